@@ -1,0 +1,171 @@
+"""Command line: `lagwise table FILE ...` (estimator comparison) and `lagwise serve [FILE]`."""
+
+from __future__ import annotations
+
+import argparse
+import math
+import sys
+from pathlib import Path
+
+import numpy as np
+
+
+def _fmt(x, spec=".4g"):
+    if x is None or (isinstance(x, float) and not math.isfinite(x)):
+        return "."
+    return format(x, spec)
+
+
+def _p(x):
+    if x is None or not math.isfinite(x):
+        return "."
+    return "<0.001" if x < 0.001 else f"{x:.3f}"
+
+
+def render_text(fit, comp, level: float, extra_lines=()) -> str:
+    """Our own plain-text layout: one block per coefficient, one line per estimator."""
+    pct = f"{level * 100:g}%"
+    head = (f"Lagwise comparison: {fit.response} on {', '.join(fit.terms)}\n"
+            f"T = {fit.nobs} ({fit.sample.first} .. {fit.sample.last}), {pct} intervals"
+            + (f", overlapping {fit.horizon}-period response" if fit.horizon else ""))
+    lines = [head]
+    lines += [f"  note: {n}" for n in fit.sample.notes]
+    width = max(len(s) for s in comp.estimator) + 2
+    for term in fit.terms:
+        block = comp[comp.term == term]
+        est = block.estimate.iloc[0]
+        lines.append("")
+        lines.append(f"== {term}: estimate {est:.6g} " + "=" * max(0, 60 - len(term)))
+        lines.append(f"  {'estimator':<{width}}{'b':>8}{'lags':>6}{'std err':>11}{'t':>9}"
+                     f"{'p':>8}   {pct + ' interval':<26}{'null beta=0'}")
+        for _, r in block.iterrows():
+            if isinstance(r.note, str) and r.note and not np.isfinite(r.std_error):
+                lines.append(f"  {r.estimator:<{width}}not available: {r.note}")
+                continue
+            ci = f"[{_fmt(r.ci_low)}, {_fmt(r.ci_high)}]"
+            verdict = "rejected" if r.rejects else ("kept" if r.rejects is False else ".")
+            lines.append(f"  {r.estimator:<{width}}{_fmt(r.bandwidth, '.3g'):>8}"
+                         f"{_fmt(r.lags, '.0f'):>6}{_fmt(r.std_error):>11}{_fmt(r.t_stat, '.3f'):>9}"
+                         f"{_p(r.p_value):>8}   {ci:<26}{verdict}")
+    notes = sorted({n for n in comp.note if isinstance(n, str) and n and "not available" not in n
+                    and n.strip()})
+    if notes:
+        lines.append("")
+        lines += [f"  note: {n}" for n in notes]
+    lines += list(extra_lines)
+    lines.append("")
+    lines.append("Reference laws: normal = large-sample; t/F and fixed-b are small-sample "
+                 "corrections. Kernel rows show the real bandwidth b (weights k(j/b); "
+                 "Newey-West with L lags is b = L + 1).")
+    return "\n".join(lines) + "\n"
+
+
+def _bandwidth_arg(text):
+    try:
+        return float(text)
+    except ValueError:
+        return text
+
+
+def cmd_table(args) -> int:
+    import engine
+    from engine.compare import compare
+    from engine.export import render
+
+    table = engine.load_table(args.file)
+    for spec in args.transform or []:
+        kind, _, rest = spec.partition(":")
+        col, _, p = rest.partition(":")
+        table, name = table.with_transform(kind, col, int(p) if p else 1)
+        print(f"added column {name}", file=sys.stderr)
+    regs = [r.strip() for r in (args.regressors or "").split(",") if r.strip()]
+    fit = engine.fit_ols(table, args.response, regs, intercept=not args.no_intercept,
+                         horizon=args.horizon)
+    bandwidth = args.bandwidth
+    if args.lags is not None:
+        bandwidth = args.lags + 1.0
+    comp = compare(fit, level=args.level, reference=args.reference, kernel=args.kernel,
+                   bandwidth=bandwidth)
+    extra = []
+    try:
+        from engine.flip import flip_summary
+        extra = flip_summary(fit, args.kernel or "bartlett", level=args.level)
+    except ImportError:
+        pass
+    try:
+        from engine.diagnostics import diagnose
+        report = diagnose(fit)
+        extra = list(extra) + ["", "Residual diagnostics"] + report.lines()
+    except ImportError:
+        pass
+    if args.format == "text":
+        out = render_text(fit, comp, args.level, extra)
+    else:
+        cols = ["term", "estimator", "estimate", "std_error", "t_stat", "p_value", "ci_low",
+                "ci_high", "bandwidth", "lags", "reference", "rejects", "note"]
+        out = render(comp[cols], args.format, index=False,
+                     caption=f"{fit.response}: standard errors across estimators")
+    if args.output:
+        Path(args.output).write_text(out)
+        print(f"wrote {args.output}", file=sys.stderr)
+    else:
+        sys.stdout.write(out)
+    return 0
+
+
+def cmd_serve(args) -> int:
+    from app.main import serve
+    return serve(args.file, host=args.host, port=args.port, debug=args.debug,
+                 settings=args.settings)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(prog="lagwise", description="Robust standard errors for "
+                                "time-series regressions, and how they depend on the lag choice.")
+    sub = p.add_subparsers(dest="command", required=True)
+    t = sub.add_parser("table", help="print the estimator comparison for a regression")
+    t.add_argument("file", help="CSV or Parquet file")
+    t.add_argument("--response", required=True, help="response column")
+    t.add_argument("--regressors", default="", help="comma-separated regressor columns")
+    t.add_argument("--no-intercept", action="store_true", help="leave out the constant term")
+    t.add_argument("--transform", action="append", metavar="KIND:COLUMN[:P]",
+                   help="add a transformed column first, e.g. fsum:exret_1m:12 or lag:x:1 "
+                        "(kinds: lag, lead, diff, log, dlog, fsum); repeatable")
+    t.add_argument("--horizon", type=int, default=None,
+                   help="periods h summed by an overlapping response (errors MA(h-1))")
+    t.add_argument("--kernel", default=None, help="restrict kernel rows to one kernel")
+    t.add_argument("--bandwidth", type=_bandwidth_arg, default=None,
+                   help="real bandwidth b or a rule (andrews, newey-west, rule-of-thumb, "
+                        "textbook, llsw); default: each rule's own")
+    t.add_argument("--lags", type=int, default=None, help="lag count L (sets b = L + 1)")
+    t.add_argument("--level", type=float, default=0.95, help="confidence level (default 0.95)")
+    t.add_argument("--reference", default="auto", help="auto, normal, t or fixed-b")
+    t.add_argument("--format", default="text", choices=["text", "csv", "markdown", "latex",
+                                                        "html"])
+    t.add_argument("--output", default=None, help="write to this file instead of stdout")
+    t.set_defaults(func=cmd_table)
+    s = sub.add_parser("serve", help="open the dashboard in the browser (local only)")
+    s.add_argument("file", nargs="?", default=None, help="data file (default: the demo data)")
+    s.add_argument("--host", default="127.0.0.1")
+    s.add_argument("--port", type=int, default=8050)
+    s.add_argument("--debug", action="store_true", help="Dash debug mode (development only)")
+    s.add_argument("--settings", default=None, help="a saved settings JSON to start from")
+    s.set_defaults(func=cmd_serve)
+    return p
+
+
+def main(argv=None) -> int:
+    import engine
+    args = build_parser().parse_args(argv)
+    try:
+        return args.func(args)
+    except engine.LagwiseError as exc:
+        print(f"lagwise: {exc}", file=sys.stderr)
+        return 2
+    except FileNotFoundError as exc:
+        print(f"lagwise: {exc}", file=sys.stderr)
+        return 2
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,28 @@
+"""Lagwise engine: fit once, then the whole family of covariance estimators from the cache.
+
+Public API (see README.md):
+
+    table = load_table("file.csv")
+    fit = fit_ols(table, response="y", regressors=["x1", "x2"])
+    est = estimator("kernel", kernel="parzen", bandwidth="andrews")
+    result = fit.infer(est, level=0.95, reference="normal")
+    sweep = fit.sweep(kernels=["bartlett", "parzen"], bandwidths=range(1, 61))
+"""
+
+from .errors import DataError, EstimationError, LagwiseError, SpecificationError
+from .data import LoadReport, Table, load_table, transform, TRANSFORMS
+from .kernels import KERNELS, get_kernel
+from .model import OLSFit, fit_ols, INTERCEPT
+from .covariance import ESTIMATORS, Estimator, EstimatorSpec, estimator, estimators
+from .bandwidth import RULES as BANDWIDTH_RULES, select_bandwidth, BandwidthChoice
+from .inference import Inference, WaldTest, infer
+from .sweep import SweepResult, sweep
+
+__all__ = [
+    "DataError", "EstimationError", "LagwiseError", "SpecificationError",
+    "LoadReport", "Table", "load_table", "transform", "TRANSFORMS",
+    "KERNELS", "get_kernel", "OLSFit", "fit_ols", "INTERCEPT",
+    "ESTIMATORS", "Estimator", "EstimatorSpec", "estimator", "estimators",
+    "BANDWIDTH_RULES", "select_bandwidth", "BandwidthChoice",
+    "Inference", "WaldTest", "infer", "SweepResult", "sweep",
+]
