@@ -90,6 +90,11 @@ def kernel_many(fit, kernel: Kernel, bandwidths, *, small_sample: bool = False,
             clipped = np.clip(vals[neg], 0.0, None)
             s[neg] = np.einsum("nij,nj,nkj->nik", vecs[neg], clipped, vecs[neg])
             repaired = neg
+    # S collapses to (numerically) zero in some direction when the weights are flat over every
+    # lag (truncated kernel with b >= T: the scores sum to zero). Never report rounding noise.
+    g0 = np.diag(fit.moments.gamma0())
+    collapsed = (np.diagonal(s, axis1=1, axis2=2) <= 1e-10 * g0).any(axis=1)
+    s[collapsed] = np.nan
     return s, lags, min_eig, repaired
 
 
@@ -97,6 +102,11 @@ def kernel(fit, kernel: Kernel, bandwidth: float, *, small_sample=False, repair=
            rule: str | None = None) -> LongRun:
     s, lags, min_eig, repaired = kernel_many(fit, kernel, [bandwidth], small_sample=small_sample,
                                              repair=repair)
+    if np.isnan(s[0]).any():
+        raise EstimationError(
+            f"the {kernel.display_name} estimate of S is zero at b = {bandwidth:g} (T = "
+            f"{fit.nobs}): with weights that stay flat over every lag the autocovariances of "
+            "the scores sum to zero. Choose a smaller bandwidth.")
     out = LongRun(S=s[0], bandwidth=float(bandwidth), lags=int(lags[0]),
                   factor=fit.small_sample_factor if small_sample else 1.0, rule=rule)
     if not kernel.psd and np.isfinite(min_eig[0]) and min_eig[0] < 0:

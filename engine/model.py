@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 import scipy.linalg as sla
 
-from .data import Table, as_table
+from .data import Table
 from .errors import DataError, SpecificationError
 from .moments import MomentCache
 
@@ -56,20 +56,19 @@ class OLSFit:
     # ------------------------------------------------------------------ least squares
     def _solve(self):
         X, y = self.X, self.y
-        norms = np.sqrt((X**2).sum(axis=0))
+        norms = np.sqrt(np.einsum("ij,ij->j", X, X))
         xs = X / norms
-        q, r, piv = sla.qr(xs, mode="economic", pivoting=True)
+        q, r, piv = sla.qr(xs, mode="economic", pivoting=True, check_finite=False)
         diag = np.abs(np.diag(r))
         rank = int(np.sum(diag > RANK_TOLERANCE * diag[0]))
         if rank < self.k:
             raise SpecificationError(_collinearity_message(r, piv, rank, self.terms))
-        beta_p = sla.solve_triangular(r, q.T @ y)
-        # one step of iterative refinement: solves the residual system again
-        resid = y - xs[:, piv] @ beta_p
-        beta_p += sla.solve_triangular(r, q.T @ resid)
         beta = np.empty(self.k)
-        beta[piv] = beta_p
-        beta /= norms
+        beta[piv] = sla.solve_triangular(r, q.T @ y) / norms[piv]
+        # one step of iterative refinement on the residual system
+        step = np.empty(self.k)
+        step[piv] = sla.solve_triangular(r, q.T @ (y - X @ beta)) / norms[piv]
+        beta += step
         # X = Q C with C = R diag(norms[piv]) P'; the bread is B = C^-1 = P diag(1/norms[piv]) R^-1
         rinv = sla.solve_triangular(r, np.eye(self.k))
         bread = np.empty((self.k, self.k))
@@ -218,8 +217,14 @@ def fit_ols(data, response: str, regressors=None, intercept: bool = True,
     Rows with a missing value in any used column are dropped and counted in `fit.sample`.
     Raises DataError for unusable columns, SpecificationError for an impossible model.
     """
-    table: Table = as_table(data)
-    frame = table.frame
+    if isinstance(data, Table):
+        table, frame = data, data.frame
+        non_numeric, horizons = table.report.non_numeric, table.horizons
+    elif isinstance(data, pd.DataFrame):
+        table, frame, horizons = None, data, {}
+        non_numeric = {}
+    else:
+        raise DataError(f"expected a Table or a pandas DataFrame, got {type(data).__name__}")
     regs = _as_list(regressors)
     if not isinstance(response, str) or not response:
         raise SpecificationError("choose a response column")
@@ -233,34 +238,43 @@ def fit_ols(data, response: str, regressors=None, intercept: bool = True,
     if INTERCEPT in regs:
         raise SpecificationError(f"'{INTERCEPT}' is reserved for the constant term; "
                                  "rename that column")
-    for col in [response, *regs]:
-        if col in table.report.non_numeric:
+    cols = [response, *regs]
+    for col in cols:
+        if col not in non_numeric and col in frame.columns and (
+                not pd.api.types.is_numeric_dtype(frame[col])
+                or pd.api.types.is_bool_dtype(frame[col])):
+            nonnull = frame[col].dropna()
+            non_numeric = {**non_numeric, col: nonnull.iloc[0] if len(nonnull) else None}
+        if col in non_numeric:
             raise DataError(f"column '{col}' is not numeric (it holds values such as "
-                            f"{table.report.non_numeric[col]!r}); choose a numeric column or "
-                            "clean the file")
+                            f"{non_numeric[col]!r}); choose a numeric column or clean the file")
         if col not in frame.columns:
             raise SpecificationError(f"no column named '{col}'; available: "
-                                     + ", ".join(frame.columns[:20]))
-        if frame[col].isna().all():
-            raise DataError(f"column '{col}' has no values (every cell is missing)")
-    used = frame[[response, *regs]]
+                                     + ", ".join(map(str, list(frame.columns)[:20])))
+    used = frame[cols]
     available = len(used)
     info = SampleInfo(rows_available=available, rows_used=0)
     if sample is not None:
         start, end = sample
         try:
-            window = used.loc[start:end]
+            used = used.loc[start:end]
         except (TypeError, KeyError, ValueError) as exc:
             raise SpecificationError(f"sample window {sample!r} does not match the index: {exc}") \
                 from None
-        info.dropped_window = available - len(window)
-        used = window
+        info.dropped_window = available - len(used)
+    index = used.index
     values = used.to_numpy(dtype=float)
-    if np.isinf(values).any():
-        col = used.columns[np.isinf(values).any(axis=0)][0]
-        raise DataError(f"column '{col}' contains infinite values")
-    ok = ~np.isnan(values).any(axis=1)
+    finite = np.isfinite(values)
+    ok = finite.all(axis=1)
     if not ok.all():
+        nan = np.isnan(values)
+        empty = nan.all(axis=0)
+        if empty.any():
+            raise DataError(f"column '{cols[int(np.flatnonzero(empty)[0])]}' has no values "
+                            "(every cell is missing" + (" in the sample window)" if sample else ")"))
+        if (~finite & ~nan).any():
+            col = cols[int(np.flatnonzero((~finite & ~nan).any(axis=0))[0])]
+            raise DataError(f"column '{col}' contains infinite values")
         idx = np.flatnonzero(ok)
         info.dropped_missing = int((~ok).sum())
         if idx.size:
@@ -272,31 +286,34 @@ def fit_ols(data, response: str, regressors=None, intercept: bool = True,
                     "the remaining rows are treated as consecutive periods by the lag-based "
                     "estimators")
         info.notes.insert(0, f"{info.dropped_missing} rows with missing values dropped")
-        used = used[ok]
+        index = index[ok]
         values = values[ok]
     t_obs = len(values)
     k = len(regs) + int(intercept)
     if t_obs <= k:
         raise SpecificationError(f"{k} coefficients but only {t_obs} usable rows: the model needs "
                                  "more observations than coefficients (T > k)")
-    y = values[:, 0]
-    x_cols = values[:, 1:]
-    if np.ptp(y) == 0:
-        raise SpecificationError(f"response '{response}' is constant ({y[0]!r}): nothing to explain")
-    for j, col in enumerate(regs):
-        if np.ptp(x_cols[:, j]) == 0 and (intercept or k > 1):
-            what = "it duplicates the intercept" if intercept else "it acts as an intercept"
-            if intercept or np.any(np.ptp(np.delete(x_cols, j, axis=1), axis=0) == 0):
-                raise SpecificationError(f"regressor '{col}' is constant ({x_cols[0, j]!r}); {what}."
-                                         " Remove it.")
+    spread = np.ptp(values, axis=0)
+    if spread[0] == 0:
+        raise SpecificationError(f"response '{response}' is constant ({values[0, 0]!r}): "
+                                 "nothing to explain")
+    constant = [j for j in range(len(regs)) if spread[j + 1] == 0]
+    if constant and (intercept or len(constant) > 1):
+        j = constant[-1] if not intercept else constant[0]
+        what = "it duplicates the intercept" if intercept else "it duplicates another constant"
+        raise SpecificationError(f"regressor '{regs[j]}' is constant ({values[0, j + 1]!r}); "
+                                 f"{what}. Remove it.")
     terms = ([INTERCEPT] if intercept else []) + regs
-    X = np.column_stack([np.ones(t_obs)] + [x_cols[:, j] for j in range(len(regs))]) \
-        if intercept else x_cols.copy()
+    X = np.empty((t_obs, k))
+    if intercept:
+        X[:, 0] = 1.0
+    X[:, int(intercept):] = values[:, 1:]
+    y = np.ascontiguousarray(values[:, 0])
     info.rows_used = t_obs
-    info.first, info.last = (_label(used.index[0]), _label(used.index[-1]))
+    info.first, info.last = (_label(index[0]), _label(index[-1]))
     if horizon is None:
-        horizon = table.horizons.get(response)
+        horizon = horizons.get(response)
     elif isinstance(horizon, bool) or not isinstance(horizon, (int, np.integer)) or horizon < 1:
         raise SpecificationError(f"horizon must be a whole number of periods >= 1, got {horizon!r}")
-    return OLSFit(X=np.ascontiguousarray(X), y=np.ascontiguousarray(y), terms=terms,
-                  index=used.index, response=response, sample=info, horizon=horizon, table=table)
+    return OLSFit(X=X, y=y, terms=terms, index=index, response=response, sample=info,
+                  horizon=horizon, table=table)

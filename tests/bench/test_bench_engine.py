@@ -1,0 +1,123 @@
+"""Engine benchmarks (not in the default run): python -m pytest tests/bench -m bench -s
+
+Ratios are measured in one process against what a user would otherwise run: a loop of
+statsmodels HAC fits, one per lag count.
+"""
+
+import json
+import subprocess
+import sys
+import time
+
+import numpy as np
+import pytest
+
+import engine
+
+pytestmark = pytest.mark.bench
+KERNELS = ["bartlett", "parzen", "quadratic_spectral", "tukey_hanning", "truncated"]
+
+
+def make_data(n, k, seed=0):
+    rng = np.random.default_rng(seed)
+    X = np.column_stack([np.ones(n), rng.standard_normal((n, k - 1))])
+    for j in range(1, k):                                   # persistent regressors
+        X[:, j] = _ar1(X[:, j], 0.5)
+    e = _ar1(rng.standard_normal(n), 0.6) * (1 + 0.5 * np.abs(X[:, 1]))
+    return X, X @ np.linspace(0.2, 1.0, k) + e
+
+
+def _ar1(shocks, rho):
+    from scipy.signal import lfilter
+    return lfilter([1.0], [1.0, -rho], shocks)
+
+
+def best_of(fn, repeat=3):
+    times = []
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        out = fn()
+        times.append(time.perf_counter() - t0)
+    return min(times), out
+
+
+def test_sweep_against_statsmodels_loop():
+    import pandas as pd
+    import statsmodels.api as sm
+    n, k, lmax = 100_000, 5, 100
+    X, y = make_data(n, k)
+    df = pd.DataFrame(X[:, 1:], columns=[f"x{i}" for i in range(1, k)]).assign(y=y)
+    regs = [f"x{i}" for i in range(1, k)]
+    lags = np.arange(lmax + 1)
+
+    def baseline():
+        return np.array([sm.OLS(y, X).fit(cov_type="HAC", cov_kwds={"maxlags": int(L)}).bse
+                         for L in lags])
+
+    def ours_bartlett():
+        fit = engine.fit_ols(df, "y", regs)
+        return fit.sweep(kernels=["bartlett"], bandwidths=lags + 1.0)
+
+    def ours_all():
+        fit = engine.fit_ols(df, "y", regs)
+        return fit.sweep(kernels=KERNELS, bandwidths=lags + 1.0)
+
+    t_base, base_se = best_of(baseline, repeat=1)
+    t_i, sw = best_of(ours_bartlett, repeat=5)
+    t_ii, _ = best_of(ours_all, repeat=3)
+    diff = np.max(np.abs(sw.std_error[0] / base_se - 1))
+    fit = engine.fit_ols(df, "y", regs)
+    fit.moments.ensure(n - 1)
+    infer_ms = {}
+    for kern in KERNELS:
+        est = engine.estimator("kernel", kernel=kern, bandwidth=12.0)
+        fit.infer(est)
+        reps = 50
+        t0 = time.perf_counter()
+        for _ in range(reps):
+            fit.infer(est)
+        infer_ms[kern] = (time.perf_counter() - t0) / reps * 1e3
+    report = {"statsmodels_loop_s": round(t_base, 3), "fit_plus_bartlett_sweep_s": round(t_i, 4),
+              "ratio_i": round(t_base / t_i, 1), "fit_plus_five_kernel_sweep_s": round(t_ii, 4),
+              "ratio_ii": round(t_base / t_ii, 1), "max_rel_diff_bartlett_se": float(diff),
+              "one_infer_ms_after_cache": {k: round(v, 3) for k, v in infer_ms.items()}}
+    print("\nBENCH sweep", json.dumps(report, indent=1))
+    assert diff <= 1e-10
+    assert t_base / t_i >= 300
+    assert t_base / t_ii >= 100
+
+
+CHILD = r"""
+import json, resource, sys, time
+import numpy as np
+sys.path.insert(0, ".")
+from tests.bench.test_bench_engine import make_data
+import engine
+X, y = make_data(1_000_000, 10, seed=1)
+import pandas as pd
+df = pd.DataFrame(X[:, 1:], columns=[f"x{i}" for i in range(1, 10)]).assign(y=y)
+del X, y
+before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+t0 = time.perf_counter()
+fit = engine.fit_ols(df, "y", [f"x{i}" for i in range(1, 10)])
+t_fit = time.perf_counter() - t0
+fit.moments.ensure(100)
+t_cache100 = time.perf_counter() - t0
+fit.moments.ensure(fit.nobs - 1)
+t_all = time.perf_counter() - t0
+res = fit.infer(engine.estimator("kernel", kernel="quadratic_spectral", bandwidth=20.0))
+peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+print(json.dumps({"fit_s": t_fit, "fit_cache_100_lags_s": t_cache100,
+                  "fit_cache_all_lags_s": t_all, "peak_rss_gib": peak / 2**20,
+                  "data_rss_gib": before / 2**20}))
+"""
+
+
+def test_million_rows_fit_and_cache():
+    out = subprocess.run([sys.executable, "-c", CHILD], capture_output=True, text=True,
+                         timeout=600)
+    assert out.returncode == 0, out.stderr
+    report = json.loads(out.stdout.strip().splitlines()[-1])
+    print("\nBENCH 1e6 x 10", json.dumps({k: round(v, 3) for k, v in report.items()}))
+    assert report["fit_cache_all_lags_s"] < 5
+    assert report["peak_rss_gib"] < 2
