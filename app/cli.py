@@ -87,11 +87,8 @@ def cmd_table(args) -> int:
     comp = compare(fit, level=args.level, reference=args.reference, kernel=args.kernel,
                    bandwidth=bandwidth)
     extra = []
-    try:
-        from engine.flip import flip_summary
-        extra = flip_summary(fit, args.kernel or "bartlett", level=args.level)
-    except ImportError:
-        pass
+    from engine.sweep import flip_summary
+    extra = flip_summary(fit, args.kernel or "bartlett", level=args.level)
     try:
         from engine.diagnostics import diagnose
         report = diagnose(fit)

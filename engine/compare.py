@@ -28,21 +28,24 @@ def compare(fit, level: float = 0.95, reference: str = "auto", kernel=None, band
     reference law, whether the zero null is rejected at 1 - level, and notes. An estimator that
     cannot be computed on this fit appears with its reason in `note` (never a silent NaN)."""
     rows = []
-    for est in (estimators if estimators is not None else family_presets(fit, kernel, bandwidth)):
+    for item in (estimators if estimators is not None else family_presets(fit, kernel, bandwidth)):
+        est, ref, why = (item if isinstance(item, tuple) else (item, None, ""))
         try:
-            res = infer(fit, est, level=level, reference=reference)
+            res = infer(fit, est, level=level, reference=ref or reference)
         except LagwiseError as exc:
             for term in fit.terms:
                 rows.append({"estimator": est.label, "family": est.spec.family, "term": term,
                              "estimate": fit.params[term], "std_error": np.nan,
                              "t_stat": np.nan, "p_value": np.nan, "ci_low": np.nan,
                              "ci_high": np.nan, "bandwidth": np.nan, "lags": np.nan,
-                             "reference": "", "rejects": None, "note": str(exc)})
+                             "reference": "", "rejects": None, "note": str(exc), "why": why})
             continue
         lr = res.long_run
         label = est.label if lr.bandwidth is None or not isinstance(
             est.params.get("bandwidth"), str) else f"{est.label.split(',')[0]}, " \
             f"{est.params['bandwidth']}"
+        if res.reference == "fixed-b" and (ref or reference) == "fixed-b":
+            label += ", fixed-b"
         for term, row in res.table.iterrows():
             rows.append({"estimator": label, "family": est.spec.family, "term": term,
                          "estimate": row.estimate, "std_error": row.std_error,
@@ -53,5 +56,5 @@ def compare(fit, level: float = 0.95, reference: str = "auto", kernel=None, band
                          "reference": res.reference_text(),
                          "rejects": bool(row.p_value < 1 - level) if np.isfinite(row.p_value)
                          else None,
-                         "note": "; ".join(lr.notes)})
+                         "note": "; ".join(lr.notes), "why": why})
     return pd.DataFrame(rows)

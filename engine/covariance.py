@@ -24,7 +24,7 @@ class Param:
     """One estimator parameter: its kind drives validation and the app's control."""
 
     name: str
-    kind: str                       # "choice" | "bandwidth" | "bool" | "int" | "float"
+    kind: str     # "choice" | "bandwidth" | "bool" | "int" | "float" | "int_or_rule"
     default: Any
     help: str
     choices: tuple = ()
@@ -75,6 +75,13 @@ class Estimator:
     def label(self) -> str:
         """Short human label, e.g. 'Parzen, b=12' or 'HC1'."""
         p = self.params
+        if self.name == "ewc":
+            return f"EWC, B: {p['terms']}" if isinstance(p["terms"], str) else f"EWC, B={p['terms']}"
+        if self.name == "var":
+            if p["criterion"] == "fixed":
+                return f"VAR({'auto' if p['max_lag'] is None else p['max_lag']}) fixed"
+            return f"VAR-HAC, {p['criterion'].upper()}" + (
+                "" if p["max_lag"] is None else f", max {p['max_lag']}")
         if self.spec.has_bandwidth:
             k = get_kernel(p["kernel"]).display_name
             bw = p["bandwidth"]
@@ -132,6 +139,18 @@ def _validate(spec: EstimatorSpec, given: dict) -> dict:
                 if p.minimum is not None and value < p.minimum:
                     raise SpecificationError(f"{spec.name}: {p.name} must be at least "
                                              f"{p.minimum:g}, got {value!r}")
+        elif p.kind == "int_or_rule":
+            if isinstance(value, str):
+                if value not in p.choices:
+                    raise SpecificationError(f"{spec.name}: {p.name}={value!r} is not a whole "
+                                             f"number or one of {', '.join(p.choices)}")
+            elif isinstance(value, bool) or not isinstance(value, (int, np.integer, float)) \
+                    or not float(value).is_integer() or value < (p.minimum or 1):
+                raise SpecificationError(f"{spec.name}: {p.name} must be a whole number >= "
+                                         f"{p.minimum or 1:g} or one of {', '.join(p.choices)}, "
+                                         f"got {value!r}")
+            else:
+                value = int(value)
         elif p.kind == "bandwidth":
             from .bandwidth import check_bandwidth_setting
             value = check_bandwidth_setting(value)
@@ -230,8 +249,9 @@ register(EstimatorSpec(
 
 def _kernel_presets(fit, kernel=None, bandwidth=None) -> list:
     """Each kernel at the requested bandwidth (default: the Andrews plug-in); for an
-    overlapping h-period response also the truncated kernel with L = h - 1 and Bartlett with
-    L = h (the errors are MA(h-1))."""
+    overlapping h-period response also the truncated kernel with L = h - 1, Bartlett with
+    L = h under normal and fixed-b critical values (the errors are MA(h-1)).
+    Items are estimators or (estimator, reference law, why) tuples."""
     names = [kernel] if kernel else list(KERNELS)
     out = [estimator("kernel", kernel=n, bandwidth=bandwidth if bandwidth is not None
                      else "andrews") for n in names]
@@ -240,6 +260,46 @@ def _kernel_presets(fit, kernel=None, bandwidth=None) -> list:
         out.append(estimator("kernel", kernel="bartlett", bandwidth="rule-of-thumb"))
     h = getattr(fit, "horizon", None)
     if h and h > 1:
-        out.append(estimator("kernel", kernel="truncated", lags=h - 1))
-        out.append(estimator("kernel", kernel="bartlett", lags=h))
+        why = (f"overlapping {h}-period response: the errors are MA({h - 1}), so lags up to "
+               f"{h - 1} carry the autocorrelation")
+        out.append((estimator("kernel", kernel="truncated", lags=h - 1), None, why))
+        out.append((estimator("kernel", kernel="bartlett", lags=h), None, why))
+        if h + 1 <= fit.nobs:
+            out.append((estimator("kernel", kernel="bartlett", lags=h), "fixed-b",
+                        why + "; fixed-b critical values account for b/T"))
     return out
+
+
+register(EstimatorSpec(
+    name="var", display_name="Parametric VAR (VAR-HAC)",
+    reference="den Haan & Levin (1997), Handbook of Statistics 15, ch. 12",
+    assumptions="The scores follow a finite-order stationary VAR; S is its implied spectrum at "
+                "frequency zero. Positive semi-definite; can be far off if the VAR is "
+                "misspecified or close to a unit root (refused when non-stationary).",
+    params=(
+        Param("max_lag", "int", None, "largest VAR order tried (default int(T^(1/3)))",
+              minimum=0),
+        Param("criterion", "choice", "bic", "lag order by BIC or AIC, or 'fixed' to use exactly "
+              "max_lag lags (max_lag=1: the VAR(1) parametric correction)",
+              choices=("bic", "aic", "fixed")),
+        Param("selection", "choice", "equation", "choose the order per equation or jointly",
+              choices=("equation", "joint")),
+    ),
+    compute=lambda fit, **p: longrun.var_parametric(fit, **p), psd=lambda p: True,
+    family="parametric",
+    presets=lambda fit, kernel, bandwidth: [estimator("var"),
+                                            estimator("var", max_lag=1, criterion="fixed")]))
+
+register(EstimatorSpec(
+    name="ewc", display_name="Equal-weighted cosine (EWC)",
+    reference="Lazarus, Lewis, Stock & Watson (2018), JBES 36(4); Mueller (2007)",
+    assumptions="Autocorrelation may be strong; B low-frequency cosine averages estimate S and "
+                "the t statistic is referred to t(B), F(m, B-m+1) for m restrictions, which keeps "
+                "tests close to their size at the cost of some power. Assumes stationarity.",
+    params=(
+        Param("terms", "int_or_rule", "llsw", "number of cosine terms B, or 'llsw' = "
+              "floor(0.4 T^(2/3))", choices=("llsw",), minimum=1),
+        _SMALL,
+    ),
+    compute=lambda fit, **p: longrun.ewc(fit, **p), psd=lambda p: True, family="ewc",
+    presets=lambda fit, kernel, bandwidth: [estimator("ewc")]))

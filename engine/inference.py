@@ -124,6 +124,9 @@ class Inference:
             raise SpecificationError(f"r must have {m} entries (one per restriction)")
         if np.linalg.matrix_rank(Rm) < m:
             raise SpecificationError("the restrictions in R are linearly dependent")
+        if self.reference == "ewc-t" and self.df < m:
+            raise SpecificationError(f"EWC with B = {self.df:g} cosine terms cannot test "
+                                     f"{m} restrictions (needs B >= m)")
         diff = Rm @ self.params.to_numpy() - rv
         middle = Rm @ self.cov.to_numpy() @ Rm.T
         try:

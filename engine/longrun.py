@@ -13,7 +13,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .errors import EstimationError
+from .errors import EstimationError, SpecificationError
 from .kernels import Kernel
 
 #: Leverage above 1 - LEVERAGE_TOL counts as 1 (the residual is zero by construction).
@@ -121,3 +121,115 @@ def kernel(fit, kernel: Kernel, bandwidth: float, *, small_sample=False, repair=
                              f"semi-definite (smallest eigenvalue {min_eig[0]:.3g}); some "
                              "variances may be negative. Turn the eigenvalue repair on.")
     return out
+
+
+# --------------------------------------------------------------------------- parametric (VAR)
+
+def _var_design(v: np.ndarray, max_lag: int):
+    """Common sample t = max_lag..T-1: Y and the stacked lags [v_{t-1}, ..., v_{t-p}]."""
+    t_obs = v.shape[0]
+    y = v[max_lag:]
+    z = np.hstack([v[max_lag - i: t_obs - i] for i in range(1, max_lag + 1)]) if max_lag \
+        else np.zeros((t_obs, 0))
+    return y, z
+
+
+def var_parametric(fit, *, max_lag=None, criterion="bic", selection="equation") -> LongRun:
+    """VAR-HAC (den Haan & Levin 1997): fit a VAR to the scores, lag order by AIC/BIC per
+    equation (or jointly), and use S = (I - sum A_i)^-1 Sigma_e (I - sum A_i)^-1'.
+
+    criterion: "bic" (ln T' penalty), "aic" (2), or "fixed" (exactly max_lag lags; max_lag=1
+    is the simple VAR(1) parametric correction). Information criteria are
+    ln(sigma_a^2(p)) + penalty * (k p) / T' on a common sample of T' = T - max_lag rows.
+    """
+    v = fit.raw_scores
+    t_obs, k = v.shape
+    if max_lag is None:
+        max_lag = int(t_obs ** (1.0 / 3.0))
+    max_lag = int(max_lag)
+    limit = (t_obs - 1) // (k + 1)
+    if max_lag < 0 or max_lag > limit:
+        raise EstimationError(f"VAR lag order {max_lag} is too long for T = {t_obs} and k = {k} "
+                              f"scores (at most {limit})")
+    y, z = _var_design(v, max_lag)
+    t_eff = y.shape[0]
+    penalty = {"bic": np.log(t_eff), "aic": 2.0}.get(criterion)
+    orders = np.full(k, max_lag)
+    if criterion != "fixed":
+        ic = np.empty((max_lag + 1, k)) if selection == "equation" else np.empty(max_lag + 1)
+        for p in range(max_lag + 1):
+            zp = z[:, : k * p]
+            resid = y - zp @ np.linalg.lstsq(zp, y, rcond=None)[0] if p else y
+            if selection == "equation":
+                with np.errstate(divide="ignore"):
+                    ic[p] = np.log((resid**2).mean(axis=0)) + penalty * k * p / t_eff
+            else:
+                sign, logdet = np.linalg.slogdet(resid.T @ resid / t_eff)
+                ic[p] = logdet + penalty * k * k * p / t_eff
+        orders = ic.argmin(axis=0) if selection == "equation" else np.full(k, int(ic.argmin()))
+    coef = np.zeros((k * max_lag, k))          # column a: equation a
+    resid = np.empty_like(y)
+    for a in range(k):
+        p = int(orders[a])
+        if p:
+            zp = z[:, : k * p]
+            coef[: k * p, a] = np.linalg.lstsq(zp, y[:, a], rcond=None)[0]
+        resid[:, a] = y[:, a] - z @ coef[:, a] if max_lag else y[:, a]
+    sigma = resid.T @ resid / t_eff
+    a_sum = sum(coef[k * i: k * (i + 1)].T for i in range(max_lag)) if max_lag else np.zeros((k, k))
+    p_max = int(orders.max()) if k else 0
+    if p_max:
+        companion = np.zeros((k * p_max, k * p_max))
+        companion[:k] = coef[: k * p_max].T
+        companion[k:, :-k] = np.eye(k * (p_max - 1))
+        root = float(np.abs(np.linalg.eigvals(companion)).max())
+        if root >= 0.999:
+            raise EstimationError(f"the VAR fitted to the scores has a root of modulus {root:.3f}"
+                                  " (non-stationary); the parametric long-run variance does not "
+                                  "exist. Use a kernel estimator or EWC.")
+    inv = np.linalg.inv(np.eye(k) - a_sum)
+    s_raw = inv @ sigma @ inv.T
+    s_q = fit.bread.T @ s_raw @ fit.bread
+    how = (f"VAR orders by {criterion.upper()} "
+           + ("per equation: " + ", ".join(f"{t} {int(o)}" for t, o in zip(fit.terms, orders))
+              if selection == "equation" else f"(joint): {int(orders[0])}")
+           if criterion != "fixed" else f"VAR({max_lag}) fixed order")
+    return LongRun(S=0.5 * (s_q + s_q.T), rule=how + f"; max order {max_lag}",
+                   notes=[how])
+
+
+# --------------------------------------------------------------------------- EWC
+
+def ewc_terms(nobs: int, terms) -> tuple[int, str]:
+    """B: a whole number, or "llsw" = floor(0.4 T^(2/3)) (Lazarus, Lewis, Stock & Watson 2018)."""
+    if isinstance(terms, str):
+        if terms != "llsw":
+            raise SpecificationError(f"EWC terms must be a whole number or 'llsw', got {terms!r}")
+        b = max(int(np.floor(0.4 * nobs ** (2.0 / 3.0))), 1)
+        return b, f"B = floor(0.4 T^(2/3)) = {b} cosine terms (LLSW 2018)"
+    return int(terms), f"B = {int(terms)} cosine terms (fixed)"
+
+
+def cosine_transform(fit) -> np.ndarray:
+    """Lambda_j = sqrt(2/T) sum_t u_t cos(pi j (t - 1/2) / T), j = 0..T-1 (row j), cached."""
+    cache = fit.__dict__.get("_cosine")
+    if cache is None:
+        from scipy.fft import dct
+        t_obs = fit.nobs
+        cache = dct(fit.scores, type=2, axis=0) * 0.5 * np.sqrt(2.0 / t_obs)
+        fit.__dict__["_cosine"] = cache
+    return cache
+
+
+def ewc(fit, *, terms="llsw", small_sample=False) -> LongRun:
+    """Equal-weighted cosine estimator: S = (1/B) sum_{j=1}^B Lambda_j Lambda_j'. With B terms,
+    the t statistic is referred to t(B) and m restrictions to F(m, B - m + 1) (LLSW 2018)."""
+    b, how = ewc_terms(fit.nobs, terms)
+    if b >= fit.nobs:
+        raise SpecificationError(f"EWC needs fewer cosine terms than observations (B = {b}, "
+                                 f"T = {fit.nobs})")
+    lam = cosine_transform(fit)[1: b + 1]
+    s = lam.T @ lam / b
+    factor = fit.small_sample_factor if small_sample else 1.0
+    return LongRun(S=s * factor, factor=factor, rule=how, reference="ewc-t", df=float(b),
+                   notes=[f"EWC with {how}; reference law t({b})"])

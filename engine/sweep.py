@@ -46,6 +46,26 @@ class SweepResult:
             "repaired": np.repeat(self.repaired.ravel(), k),
         })
 
+    def critical_values(self, level: float = 0.95, reference: str = "normal") -> np.ndarray:
+        """Two-sided critical value of |t| for each (kernel, bandwidth): constant under the
+        normal law, a function of b/T under fixed-b (kernels without fixed-b tables: NaN)."""
+        from scipy import stats
+        nk, nb = self.lags.shape
+        if reference == "normal":
+            return np.full((nk, nb), stats.norm.ppf(0.5 + level / 2))
+        if reference == "t":
+            return np.full((nk, nb), stats.t.ppf(0.5 + level / 2, self.nobs - len(self.terms)))
+        if reference != "fixed-b":
+            raise SpecificationError(f"unknown reference law {reference!r} for a sweep")
+        from .fixedb import FIXED_B_KERNELS, fixed_b_critical_value
+        out = np.full((nk, nb), np.nan)
+        for i, kern in enumerate(self.kernels):
+            if kern in FIXED_B_KERNELS:
+                for j, b in enumerate(self.bandwidths):
+                    if b / self.nobs <= 1:
+                        out[i, j] = fixed_b_critical_value(kern, b / self.nobs, level)
+        return out
+
     def series(self, kernel: str, term: str, what: str = "t_stat") -> pd.Series:
         i, j = self.kernels.index(kernel), self.terms.index(term)
         return pd.Series(getattr(self, what)[i, :, j], index=self.bandwidths, name=what)
@@ -85,3 +105,75 @@ def sweep(fit, kernels=("bartlett",), bandwidths=None, small_sample: bool = Fals
     return SweepResult(kernels=kernels, bandwidths=b, terms=list(fit.terms), estimate=fit.beta,
                        std_error=se, t_stat=t, lags=lags, repaired=repaired,
                        small_sample=small_sample, nobs=fit.nobs)
+
+
+@dataclass
+class Flip:
+    """Where a test's conclusion changes along the bandwidth axis."""
+
+    term: str
+    kernel: str
+    level: float
+    reference: str
+    rejects_at_start: bool | None
+    flip_bandwidth: float | None       # smallest b whose decision differs from b at the start
+    holds_up_to: float | None          # largest b before that (the conclusion holds for b <= it)
+    bandwidths: np.ndarray
+    rejects: np.ndarray
+
+    def sentence(self) -> str:
+        verdict = "rejected" if self.rejects_at_start else "not rejected"
+        start = self.bandwidths[0]
+        if self.rejects_at_start is None:
+            return f"{self.term}: no usable standard error at b = {start:g}."
+        if self.flip_bandwidth is None:
+            return (f"{self.term}: beta = 0 is {verdict} at {100 * (1 - self.level):g}% for "
+                    f"every b from {start:g} to {self.bandwidths[-1]:g} ({self.kernel}, "
+                    f"{self.reference} critical values).")
+        return (f"{self.term}: beta = 0 is {verdict} at {100 * (1 - self.level):g}% for "
+                f"b <= {self.holds_up_to:g}; the conclusion flips at b = {self.flip_bandwidth:g}"
+                f" ({self.kernel}, {self.reference} critical values).")
+
+
+def significance_flip(fit, term: str, kernel: str = "bartlett", level: float = 0.95,
+                      reference: str = "normal", bandwidths=None, sweep_result=None) -> Flip:
+    """The smallest bandwidth at which the two-sided test of beta = 0 for `term` at `level`
+    stops (or starts) rejecting, scanning `bandwidths` (default 1..min(T, 100)) upward."""
+    if term not in fit.terms:
+        raise SpecificationError(f"no coefficient named {term!r}; terms are {', '.join(fit.terms)}")
+    sw = sweep_result if sweep_result is not None else \
+        sweep(fit, kernels=[kernel], bandwidths=bandwidths if bandwidths is not None
+              else default_bandwidths(fit.nobs, 100))
+    i, j = sw.kernels.index(kernel), sw.terms.index(term)
+    cv = sw.critical_values(level, reference)[i]
+    t = np.abs(sw.t_stat[i, :, j])
+    valid = np.isfinite(t) & np.isfinite(cv)
+    rejects = np.where(valid, t > cv, False)
+    if not valid.any():
+        return Flip(term, kernel, level, reference, None, None, None, sw.bandwidths, rejects)
+    first = int(np.flatnonzero(valid)[0])
+    start = bool(rejects[first])
+    change = np.flatnonzero(valid & (rejects != start) & (np.arange(len(t)) > first))
+    if change.size == 0:
+        return Flip(term, kernel, level, reference, start, None, float(sw.bandwidths[-1]),
+                    sw.bandwidths[first:], rejects[first:])
+    at = int(change[0])
+    return Flip(term, kernel, level, reference, start, float(sw.bandwidths[at]),
+                float(sw.bandwidths[at - 1]), sw.bandwidths[first:], rejects[first:])
+
+
+def flip_summary(fit, kernel: str = "bartlett", level: float = 0.95) -> list[str]:
+    """Lines for the CLI: where each slope's conclusion flips, normal and fixed-b references."""
+    lines = ["", f"Where the conclusion flips ({kernel} kernel, b = 1..{min(fit.nobs, 100)})"]
+    sw = sweep(fit, kernels=[kernel], bandwidths=default_bandwidths(fit.nobs, 100))
+    refs = ["normal"]
+    from .fixedb import FIXED_B_KERNELS
+    if kernel in FIXED_B_KERNELS:
+        refs.append("fixed-b")
+    for term in fit.terms:
+        if term == "intercept":
+            continue
+        for ref in refs:
+            lines.append("  " + significance_flip(fit, term, kernel, level, ref,
+                                                  sweep_result=sw).sentence())
+    return lines

@@ -75,7 +75,7 @@ def test_bad_parameters_raise_clear_errors(spec):
         engine.estimator(spec.name, nonsense=1)
     for p in spec.params:
         bad = {"choice": "no-such-choice", "bool": "yes", "int": "three", "float": "x",
-               "bandwidth": -1.0}[p.kind]
+               "bandwidth": -1.0, "int_or_rule": "three"}[p.kind]
         with pytest.raises(engine.SpecificationError, match=p.name if p.kind != "bandwidth"
                            else "bandwidth"):
             engine.estimator(spec.name, **{p.name: bad})

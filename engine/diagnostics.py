@@ -1,0 +1,269 @@
+"""Residual diagnostics: the evidence for or against White, HAC and a larger bandwidth.
+
+statsmodels computes most statistics (its conventions noted beside each); Lagwise adds the exact
+Durbin-Watson p-value, White's test without cross terms with the levels kept, the moment
+contributions' autocorrelation and a plain-language reading. `diagnose(fit)` returns a
+`DiagnosticReport`; nothing here refits the regression for the covariance estimators.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+from scipy import integrate, linalg as sla, stats
+
+from .errors import EstimationError
+
+#: Largest T for the exact Durbin-Watson p-value (eigenvalues of a (T-k) x (T-k) matrix).
+DW_EXACT_MAX_T = 1500
+
+
+@dataclass
+class DiagnosticReport:
+    tests: pd.DataFrame                  # one row per test
+    acf: pd.DataFrame                    # lag x {resid, resid_sq} autocorrelations
+    pacf: pd.DataFrame
+    bands: dict                          # how the ACF/PACF bands are computed, and their values
+    score_acf: pd.DataFrame              # lag x term autocorrelation of x_t e_t
+    persistence: pd.DataFrame            # per term: first-order autocorrelation, Andrews b
+    reading: list[str]
+    notes: list[str] = field(default_factory=list)
+
+    def lines(self) -> list[str]:
+        out = []
+        for _, r in self.tests.iterrows():
+            df = "" if pd.isna(r.df) else f", df {r.df:g}"
+            p = "<0.001" if r.p_value < 0.001 else f"{r.p_value:.3f}"
+            out.append(f"  {r.test:<34} {r.statistic:>10.4g}{df:<12} p = {p:<7} H0: {r.null}")
+        out.append("")
+        out += [f"  reading: {s}" for s in self.reading]
+        out += [f"  note: {n}" for n in self.notes]
+        return out
+
+
+def _check(fit):
+    e = fit.resid
+    scale = np.abs(fit.y).max() or 1.0
+    if np.abs(e).max() <= 1e-12 * scale:
+        raise EstimationError("the regression fits perfectly (all residuals are zero): there is "
+                              "nothing to diagnose")
+
+
+def default_lags(nobs: int) -> list[int]:
+    top = max(1, min(24, nobs // 5))
+    return sorted({x for x in (1, 2, 4, 6, 12, 24) if x <= top} | {top})
+
+
+def durbin_watson_exact(fit, d: float) -> float:
+    """P(d <= d_obs) under i.i.d. normal errors: d = e'Ae/e'e with A the first-difference matrix,
+    so P(d <= c) = P(sum (lambda_i - c) z_i^2 <= 0) with lambda_i the T-k eigenvalues of
+    Z'AZ (Z an orthonormal basis of the residual space), by Imhof's (1961) inversion."""
+    t_obs, k = fit.X.shape
+    q_full, _ = sla.qr(fit.X, mode="full")
+    z = q_full[:, k:]
+    dz = np.diff(z, axis=0)                       # A = D'D with D the T-1 x T difference matrix
+    lam = sla.eigvalsh(dz.T @ dz)
+    mu = lam - d
+    return _imhof_below_zero(mu)
+
+
+def _imhof_below_zero(mu: np.ndarray) -> float:
+    """P(sum mu_i z_i^2 < 0), z_i iid N(0, 1) (Imhof 1961)."""
+    mu = mu[np.abs(mu) > 1e-14]
+
+    def integrand(u):
+        theta = 0.5 * np.sum(np.arctan(mu * u))
+        with np.errstate(over="ignore"):
+            rho = np.exp(0.25 * np.sum(np.log1p((mu * u) ** 2)))
+        return np.sin(theta) / (u * rho)
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", integrate.IntegrationWarning)
+        val, _ = integrate.quad(integrand, 0, np.inf, limit=500)
+    return float(np.clip(0.5 - val / np.pi, 0.0, 1.0))
+
+
+def _white_no_cross(resid, X):
+    """White's test without cross products, levels kept: e^2 on 1, x_j, x_j^2 (unique columns).
+    (statsmodels' het_white(interaction_terms=False) uses the squares only.)"""
+    cols = [X]
+    cols.append(X[:, np.ptp(X, axis=0) > 0] ** 2)
+    z = np.hstack(cols)
+    z = np.unique(np.round(z, 12), axis=1) if z.shape[0] < 2 else z
+    _, r, piv = sla.qr(z, mode="economic", pivoting=True)
+    rank = int(np.sum(np.abs(np.diag(r)) > 1e-10 * abs(r[0, 0])))
+    z = z[:, np.sort(piv[:rank])]
+    if not np.any(np.all(z == z[0], axis=0)):
+        z = np.column_stack([np.ones(len(z)), z])
+    e2 = resid**2
+    coef, *_ = np.linalg.lstsq(z, e2, rcond=None)
+    fitted = z @ coef
+    r2 = 1 - np.sum((e2 - fitted) ** 2) / np.sum((e2 - e2.mean()) ** 2)
+    lm = len(e2) * r2
+    df = z.shape[1] - 1
+    return lm, df, stats.chi2.sf(lm, df)
+
+
+def diagnose(fit, lags=None, arch_lags=None) -> DiagnosticReport:
+    """Residual and score diagnostics for an OLSFit (see module docstring)."""
+    import statsmodels.api as sm
+    from statsmodels.stats import diagnostic as smd
+    from statsmodels.stats.stattools import durbin_watson
+    from statsmodels.tsa.stattools import acf, pacf
+
+    _check(fit)
+    t_obs = fit.nobs
+    notes = []
+    lag_list = default_lags(t_obs) if lags is None else sorted({int(x) for x in np.atleast_1d(lags)})
+    cap = max(1, t_obs // 5)
+    if lag_list[-1] > cap:
+        notes.append(f"lags capped at T/5 = {cap} (T = {t_obs})")
+        lag_list = sorted({min(x, cap) for x in lag_list})
+    top = lag_list[-1]
+    e = fit.resid
+    sm_res = sm.OLS(fit.y, fit.X).fit()
+    rows = []
+
+    def add(name, stat, df, p, null, convention):
+        rows.append({"test": name, "statistic": float(stat), "df": df, "p_value": float(p),
+                     "null": null, "convention": convention})
+
+    lb = smd.acorr_ljungbox(e, lags=lag_list, boxpierce=True, return_df=True)
+    for h, r in lb.iterrows():
+        add(f"Ljung-Box Q({h})", r.lb_stat, h, r.lb_pvalue,
+            f"no residual autocorrelation up to lag {h}",
+            "chi-square(h); Ljung & Box (1978); statsmodels acorr_ljungbox")
+    for h, r in lb.iterrows():
+        add(f"Box-Pierce Q({h})", r.bp_stat, h, r.bp_pvalue,
+            f"no residual autocorrelation up to lag {h}", "chi-square(h); statsmodels")
+    for p in sorted({1, min(4, top), top}):
+        lm, lmp, f, fp = smd.acorr_breusch_godfrey(sm_res, nlags=p, result_object=False)
+        add(f"Breusch-Godfrey LM({p})", lm, p, lmp,
+            f"no autocorrelation of order 1..{p}",
+            "T R^2 ~ chi-square(p), pre-sample residuals set to 0 (statsmodels)")
+        add(f"Breusch-Godfrey F({p})", f, p, fp, f"no autocorrelation of order 1..{p}",
+            "F form of the same regression (statsmodels)")
+    dw = float(durbin_watson(e))
+    if t_obs <= DW_EXACT_MAX_T:
+        p_dw = durbin_watson_exact(fit, dw)
+        add("Durbin-Watson", dw, np.nan, p_dw, "no first-order autocorrelation",
+            "exact P(d <= observed) under normal errors, Imhof inversion; valid without "
+            "lagged responses")
+    else:
+        add("Durbin-Watson", dw, np.nan, np.nan, "no first-order autocorrelation",
+            f"statistic only: exact p-value computed for T <= {DW_EXACT_MAX_T}")
+    z_het = fit.X if fit.has_intercept else np.column_stack([np.ones(t_obs), fit.X])
+    if z_het.shape[1] > 1:
+        lm, lmp, _, _ = smd.het_breuschpagan(e, z_het, robust=True)
+        add("Breusch-Pagan (Koenker)", lm, z_het.shape[1] - 1, lmp,
+            "error variance unrelated to the regressors",
+            "studentised, T R^2 of e^2 on X (Koenker 1981; statsmodels robust=True)")
+        lm, lmp, _, _ = smd.het_breuschpagan(e, z_het, robust=False)
+        add("Breusch-Pagan (original)", lm, z_het.shape[1] - 1, lmp,
+            "error variance unrelated to the regressors",
+            "ESS/2 of e^2/mean(e^2) on X (Breusch & Pagan 1979; statsmodels robust=False)")
+        try:
+            lm, lmp, _, _ = smd.het_white(e, z_het)
+            white_df = _white_df(z_het)
+            add("White (with cross terms)", lm, white_df, lmp,
+                "homoskedastic errors", "e^2 on levels, squares and cross products (statsmodels)")
+        except (ValueError, np.linalg.LinAlgError, AssertionError):
+            notes.append("White's test with cross terms is not available for this design")
+        lm, df, p = _white_no_cross(e, z_het)
+        add("White (no cross terms)", lm, df, p, "homoskedastic errors",
+            "e^2 on levels and squares; statsmodels' interaction_terms=False drops the levels")
+    for q in sorted({1, min(4, top)} if arch_lags is None else set(np.atleast_1d(arch_lags))):
+        lm, p, _, _ = smd.het_arch(e, nlags=int(q), result_object=False)
+        add(f"ARCH-LM({q})", lm, q, p, "no autoregressive conditional heteroskedasticity",
+            "(T-q) R^2 of e^2 on q own lags (Engle 1982; statsmodels het_arch)")
+    tests = pd.DataFrame(rows)
+
+    nl = min(max(top, 12), t_obs - 1)
+    acf_e, conf_e = acf(e, nlags=nl, alpha=0.05, fft=True, result_object=False)
+    acf_e2, conf_e2 = acf(e**2, nlags=nl, alpha=0.05, fft=True,
+                           result_object=False)
+    acf_df = pd.DataFrame({"resid": acf_e[1:], "resid_sq": acf_e2[1:],
+                           "resid_band": conf_e[1:, 1] - acf_e[1:],
+                           "resid_sq_band": conf_e2[1:, 1] - acf_e2[1:]},
+                          index=pd.RangeIndex(1, nl + 1, name="lag"))
+    nlp = min(nl, t_obs // 2 - 1)
+    pacf_df = pd.DataFrame({"resid": pacf(e, nlags=nlp)[1:], "resid_sq": pacf(e**2, nlags=nlp)[1:]},
+                           index=pd.RangeIndex(1, nlp + 1, name="lag"))
+    bands = {"acf": "95% band by Bartlett's formula (widens with the lag)",
+             "pacf": f"95% band +-1.96/sqrt(T) = {1.96 / np.sqrt(t_obs):.3f}",
+             "pacf_value": 1.96 / np.sqrt(t_obs)}
+    u = fit.raw_scores
+    score_acf = pd.DataFrame({t: acf(u[:, i], nlags=nl, fft=True, result_object=False)[1:] if np.ptp(u[:, i]) > 0
+                              else np.full(nl, np.nan) for i, t in enumerate(fit.terms)},
+                             index=pd.RangeIndex(1, nl + 1, name="lag"))
+    from .bandwidth import select_bandwidth
+    andrews = select_bandwidth(fit, "bartlett", "andrews")
+    persistence = pd.DataFrame({"rho1": score_acf.iloc[0]})
+    reading = _reading(tests, acf_df, persistence, andrews, fit)
+    return DiagnosticReport(tests=tests, acf=acf_df, pacf=pacf_df, bands=bands,
+                            score_acf=score_acf, persistence=persistence.assign(
+                                andrews_bartlett_b=andrews.b), reading=reading, notes=notes)
+
+
+def _white_df(z):
+    k = z.shape[1]
+    prods = np.column_stack([z[:, i] * z[:, j] for i in range(k) for j in range(i, k)])
+    return int(np.linalg.matrix_rank(prods)) - 1
+
+
+def _reading(tests, acf_df, persistence, andrews, fit) -> list[str]:
+    out = []
+    lb = tests[tests.test.str.startswith("Ljung-Box")]
+    sig = lb[lb.p_value < 0.05]
+    band = acf_df.resid_band.to_numpy()
+    outside = [int(l) for l, v, b in zip(acf_df.index, acf_df.resid, band) if abs(v) > b]
+    if len(sig):
+        out.append(f"Residual autocorrelation is significant at 5% (Ljung-Box rejects for "
+                   f"lags up to {', '.join(str(int(x)) for x in sig.df)}; smallest p = "
+                   f"{lb.p_value.min():.2g})"
+                   + (f"; sample autocorrelations outside the band at lags "
+                      f"{_ranges(outside)}" if outside else "") + ".")
+        out.append(f"This supports HAC standard errors over classical or White ones; the "
+                   f"Andrews (1991) AR(1) plug-in for the Bartlett kernel suggests b of about "
+                   f"{andrews.b:.1f} ({max(int(np.ceil(andrews.b)) - 1, 0)} lags).")
+    else:
+        out.append("No significant residual autocorrelation at 5% (Ljung-Box): little evidence "
+                   "that HAC is needed for the residuals themselves.")
+    slopes = persistence.drop(index="intercept", errors="ignore")
+    if len(slopes):
+        worst = slopes.rho1.abs().idxmax()
+        out.append(f"The moment contribution x_t e_t of '{worst}' has first-order "
+                   f"autocorrelation {slopes.rho1[worst]:.2f}; that is what HAC corrects for.")
+    if fit.horizon and fit.horizon > 1:
+        out.append(f"The response overlaps over {fit.horizon} periods, so MA({fit.horizon - 1}) "
+                   "errors are expected by construction whatever the tests say.")
+    het = tests[tests.test.str.startswith(("Breusch-Pagan", "White"))]
+    if len(het):
+        if (het.p_value < 0.05).any():
+            out.append("Heteroskedasticity tests reject at 5% (" + ", ".join(
+                het[het.p_value < 0.05].test) + "): classical standard errors are not reliable.")
+        else:
+            out.append("Heteroskedasticity tests do not reject at 5%.")
+    arch = tests[tests.test.str.startswith("ARCH")]
+    if (arch.p_value < 0.05).any():
+        out.append("ARCH-LM rejects: volatility clusters over time.")
+    out.append("These are tests of evidence, not verdicts: a non-rejection does not prove the "
+               "absence of autocorrelation or heteroskedasticity.")
+    return out
+
+
+def _ranges(lags: list[int]) -> str:
+    if not lags:
+        return ""
+    parts, start, prev = [], lags[0], lags[0]
+    for x in lags[1:] + [None]:
+        if x is not None and x == prev + 1:
+            prev = x
+            continue
+        parts.append(f"{start}-{prev}" if prev != start else f"{start}")
+        if x is not None:
+            start = prev = x
+    return ", ".join(parts)
