@@ -107,7 +107,7 @@ def _white_no_cross(resid, X):
     return lm, df, stats.chi2.sf(lm, df)
 
 
-def diagnose(fit, lags=None, arch_lags=None) -> DiagnosticReport:
+def diagnose(fit, lags=None, arch_lags=None, exact_dw: bool = True) -> DiagnosticReport:
     """Residual and score diagnostics for an OLSFit (see module docstring)."""
     import statsmodels.api as sm
     from statsmodels.stats import diagnostic as smd
@@ -147,14 +147,15 @@ def diagnose(fit, lags=None, arch_lags=None) -> DiagnosticReport:
         add(f"Breusch-Godfrey F({p})", f, p, fp, f"no autocorrelation of order 1..{p}",
             "F form of the same regression (statsmodels)")
     dw = float(durbin_watson(e))
-    if t_obs <= DW_EXACT_MAX_T:
+    if exact_dw and t_obs <= DW_EXACT_MAX_T:
         p_dw = durbin_watson_exact(fit, dw)
         add("Durbin-Watson", dw, np.nan, p_dw, "no first-order autocorrelation",
             "exact P(d <= observed) under normal errors, Imhof inversion; valid without "
             "lagged responses")
     else:
         add("Durbin-Watson", dw, np.nan, np.nan, "no first-order autocorrelation",
-            f"statistic only: exact p-value computed for T <= {DW_EXACT_MAX_T}")
+            f"statistic only: exact p-value computed for T <= {DW_EXACT_MAX_T}"
+            if exact_dw else "statistic only (exact p-value not requested)")
     z_het = fit.X if fit.has_intercept else np.column_stack([np.ones(t_obs), fit.X])
     if z_het.shape[1] > 1:
         lm, lmp, _, _ = smd.het_breuschpagan(e, z_het, robust=True)
