@@ -74,18 +74,25 @@ class Inference:
         return self.long_run.flags
 
     def describe(self) -> str:
-        """One line: estimator, bandwidth, factor and reference law."""
-        parts = [self.estimator.label if self.long_run.bandwidth is None
-                 else f"{self.estimator.label.split(',')[0]}, b = {self.long_run.bandwidth:.4g}"
-                 f" ({self.long_run.lags} lags)"]
-        if self.long_run.rule:
-            parts.append(self.long_run.rule)
-        parts.append("small-sample factor T/(T-k) applied" if self.long_run.factor != 1.0
-                     and self.estimator.name != "hc1" else "no small-sample factor"
-                     if self.estimator.name not in ("classical", "hc1", "hc2", "hc3")
-                     else "")
+        """One line: estimator, bandwidth and how it was chosen, factor, reference law."""
+        lr = self.long_run
+        if lr.bandwidth is not None:
+            name = self.estimator.label.split(",")[0]
+            if self.estimator.params.get("prewhiten"):
+                name += " prewhitened"
+            parts = [f"{name}, b = {lr.bandwidth:.4g} ({lr.lags} lags)"]
+            if lr.rule and not lr.rule.startswith("fixed bandwidth"):
+                parts.append(lr.rule)
+        else:
+            parts = [self.estimator.label]
+        if self.estimator.name in ("hc1", "hc2", "hc3", "classical"):
+            pass                                   # their own finite-sample form
+        elif lr.factor != 1.0:
+            parts.append("small-sample factor T/(T-k) applied")
+        else:
+            parts.append("no small-sample factor")
         parts.append(f"reference: {self.reference_text()}")
-        return "; ".join(p for p in parts if p)
+        return "; ".join(parts)
 
     def reference_text(self) -> str:
         if self.reference == "normal":

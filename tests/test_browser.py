@@ -1,0 +1,149 @@
+"""Real-browser tests: Playwright driving Debian's headless Chromium against a live server.
+
+Skipped locally without chromium; CI sets LAGWISE_REQUIRE_BROWSER=1 so they fail instead."""
+
+import re
+from pathlib import Path
+
+import pytest
+from playwright.sync_api import Page, expect
+
+import engine
+from app.figures import fmt
+from lagwise_assets import demo_file
+
+pytestmark = pytest.mark.browser
+DEMO = demo_file()
+
+
+def choose(page: Page, dropdown: str, option: str):
+    page.locator(f"#{dropdown}").click()
+    page.get_by_role("option", name=option, exact=True).click()
+    page.keyboard.press("Escape")
+
+
+def card(page: Page, inner_id: str):
+    return page.locator("section.lw-card", has=page.locator(f"#{inner_id}"))
+
+
+def se_cell(page: Page, term_index: int):
+    return page.locator("#coef-table td[data-dash-column='std_error']").nth(term_index)
+
+
+def engine_se(response, regs, term, **est):
+    fit = engine.fit_ols(engine.load_table(DEMO), response, regs)
+    return fmt(fit.infer(engine.estimator("kernel", **est)).table.loc[term, "std_error"])
+
+
+def open_app(page: Page, url: str):
+    errors = []
+    page.on("console", lambda m: errors.append(m.text) if m.type == "error" else None)
+    page.goto(url)
+    expect(page.locator("#coef-table td[data-dash-column='term']").first).to_have_text(
+        "intercept", timeout=30_000)
+    return errors
+
+
+def upload(page: Page, path_or_payload):
+    page.locator("#upload input[type=file]").set_input_files(path_or_payload)
+
+
+def test_upload_model_slider_rule(page: Page, live_server):
+    errors = open_app(page, live_server)
+    upload(page, DEMO)
+    expect(page.locator("#upload-message")).to_contain_text("loaded freight_index.csv",
+                                                           timeout=20_000)
+    choose(page, "response", "exret_36m")
+    choose(page, "regressors", "credit_spread")          # toggles it off: rate_capacity only
+    expect(page.locator("#coef-table td[data-dash-column='term']")).to_have_text(
+        ["intercept", "rate_capacity"], timeout=20_000)
+    expect(se_cell(page, 1)).to_have_text(
+        engine_se("exret_36m", ["rate_capacity"], "rate_capacity", kernel="bartlett",
+                  bandwidth=13.0), timeout=20_000)
+    # keyboard on the slider: b = 13 -> 15
+    thumb = page.locator("#bw-slider [role=slider]")
+    thumb.focus()
+    page.keyboard.press("ArrowRight")
+    page.keyboard.press("ArrowRight")
+    expect(thumb).to_have_attribute("aria-valuenow", "15")
+    expect(se_cell(page, 1)).to_have_text(
+        engine_se("exret_36m", ["rate_capacity"], "rate_capacity", kernel="bartlett",
+                  bandwidth=15.0), timeout=20_000)
+    expect(page.locator("#bw-text")).to_contain_text("b = 15 · 14 lags used")
+    # the sensitivity chart's marker sits on the new bandwidth
+    page.wait_for_function(
+        "() => document.getElementById('sens-graph').querySelector('.js-plotly-plot')"
+        ".layout.shapes[0].x0 === 15")
+    # switch the bandwidth rule to Andrews: the slider jumps to where the rule landed
+    choose(page, "bw-rule", "Andrews (1991)")
+    fit = engine.fit_ols(engine.load_table(DEMO), "exret_36m", ["rate_capacity"])
+    b = engine.select_bandwidth(fit, "bartlett", "andrews").b
+    expect(thumb).to_have_attribute("aria-valuenow", str(int(round(b))), timeout=20_000)
+    expect(se_cell(page, 1)).to_have_text(
+        engine_se("exret_36m", ["rate_capacity"], "rate_capacity", kernel="bartlett",
+                  bandwidth="andrews"), timeout=20_000)
+    expect(page.locator("#bw-text")).to_contain_text("Andrews (1991)")
+    assert not [e for e in errors if "Error" in e], errors
+
+
+def test_exports_chart_and_table(page: Page, live_server, tmp_path):
+    open_app(page, live_server)
+    expect(page.locator("#sens-graph .js-plotly-plot")).to_be_visible(timeout=30_000)
+    page.wait_for_timeout(1500)
+    magic = {"PNG": b"\x89PNG", "SVG": b"<svg", "PDF": b"%PDF"}
+    for label, head in magic.items():
+        with page.expect_download(timeout=60_000) as info:
+            card(page, "sens-graph").locator("button", has_text=label).click()
+        path = tmp_path / info.value.suggested_filename
+        info.value.save_as(path)
+        data = path.read_bytes()
+        assert head in data[:200], (label, data[:40])
+        assert len(data) > 2000
+    with page.expect_download(timeout=30_000) as info:
+        card(page, "coef-table").locator("button", has_text="LATEX").click()
+    tex = Path(info.value.path()).read_text()
+    assert "\\begin{tabular}" in tex and "rate\\_capacity" in tex
+    with page.expect_download(timeout=30_000) as info:
+        card(page, "compare-table").locator("button", has_text="CSV").click()
+    csv_text = Path(info.value.path()).read_text()
+    assert csv_text.startswith("estimator,") and "HC3" in csv_text
+    with page.expect_download(timeout=60_000) as info:
+        page.locator("#export-report").click()
+    report = Path(info.value.path()).read_text()
+    assert "<html" in report and "Lagwise report" in report and "plotly" in report.lower()
+
+
+def test_malformed_upload_then_good_file(page: Page, live_server):
+    open_app(page, live_server)
+    upload(page, {"name": "junk.csv", "mimeType": "text/csv", "buffer": b"\x00\x01\x02\x03binary"})
+    expect(page.locator("#upload-message .lw-error")).to_contain_text("binary", timeout=20_000)
+    upload(page, {"name": "words.csv", "mimeType": "text/csv",
+                  "buffer": b"name,city\nann,oslo\nbo,rome\n"})
+    expect(page.locator("#upload-message .lw-error")).to_contain_text("no numeric columns")
+    # the app stays usable: the results still show and a good file loads
+    expect(page.locator("#coef-table td[data-dash-column='term']").first).to_have_text(
+        "intercept")
+    upload(page, DEMO)
+    expect(page.locator("#upload-message .lw-ok")).to_contain_text("loaded freight_index.csv",
+                                                                   timeout=20_000)
+
+
+def test_sessions_are_isolated(browser, live_server):
+    ctx_a, ctx_b = browser.new_context(), browser.new_context()
+    a, b = ctx_a.new_page(), ctx_b.new_page()
+    open_app(a, live_server)
+    open_app(b, live_server)
+    rows = "\n".join(f"{i},{(i * 7) % 11 + 0.5 * i},{(i * 3) % 5}" for i in range(60))
+    upload(b, {"name": "other.csv", "mimeType": "text/csv",
+               "buffer": ("alpha,beta,gamma\n" + rows + "\n").encode()})
+    expect(b.locator("#upload-message")).to_contain_text("loaded other.csv", timeout=20_000)
+    expect(b.locator("#coef-table td[data-dash-column='term']")).to_have_text(
+        ["intercept", "beta"], timeout=20_000)
+    # session A still sees the demo model and none of B's columns
+    expect(a.locator("#coef-table td[data-dash-column='term']")).to_have_text(
+        ["intercept", "rate_capacity", "credit_spread"])
+    a.locator("#response").click()
+    expect(a.get_by_role("option", name="alpha", exact=True)).to_have_count(0)
+    a.keyboard.press("Escape")
+    ctx_a.close()
+    ctx_b.close()
