@@ -137,9 +137,15 @@ def register(app):  # noqa: C901 - one place that wires every callback
 
     @app.callback(
         Output("dataset-key", "data"), Output("upload-message", "children"),
+        Output("upload", "contents"),
         Input("upload", "contents"), Input("load-demo", "n_clicks"),
         State("upload", "filename"), State("session", "data"), prevent_initial_call=True)
     def on_upload(contents, _demo, filename, session):
+        # the file's bytes are not kept in the browser once the server has them
+        key, message = _on_upload(contents, filename, session)
+        return key, message, None
+
+    def _on_upload(contents, filename, session):
         if ctx.triggered_id == "load-demo":
             from lagwise_assets import demo_file
             path = demo_file()
@@ -260,30 +266,11 @@ def register(app):  # noqa: C901 - one place that wires every callback
                 slider_top(fit.nobs), text, h if h is not None else None)
 
     @app.callback(Output("est-params", "children"), Input("est-name", "value"),
-                  State("pending-settings", "data"))
+                  Input("pending-settings", "data"))
     def on_estimator_name(name, pending):
         values = (pending or {}).get("params") if pending and pending.get("estimator") == name \
             else None
         return estimator_controls(name, values)
-
-    @app.callback(
-        Output("bw-rule", "value"), Output("bw-slider", "value"), Output("bw-slider", "disabled"),
-        Input("bw-rule", "value"), Input("bw-slider", "value"), Input("fit-key", "data"),
-        Input("est-name", "value"), Input({"type": "est-param", "name": ALL}, "value"),
-        State({"type": "est-param", "name": ALL}, "id"), State("session", "data"))
-    def sync_bandwidth(rule, slider, fkey, name, values, ids, session):
-        has_bw = engine.ESTIMATORS[name].has_bandwidth
-        if ctx.triggered_id == "bw-slider":
-            return ("fixed" if rule != "fixed" else no_update), no_update, not has_bw
-        fit = get_fit(session, fkey)
-        if fit is None or not rule or rule == "fixed" or not has_bw:
-            return no_update, no_update, not has_bw
-        kernel = current_kernel(name, values, ids)
-        try:
-            b = engine.select_bandwidth(fit, kernel, rule).b
-        except engine.LagwiseError:
-            return no_update, no_update, not has_bw
-        return no_update, int(min(max(round(b), 1), slider_top(fit.nobs))), not has_bw
 
     @app.callback(
         Output("coef-table", "data"), Output("coef-table", "columns"),
@@ -291,25 +278,35 @@ def register(app):  # noqa: C901 - one place that wires every callback
         Output("headline", "children"), Output("bw-text", "children"),
         Output("compare-table", "data"), Output("compare-table", "columns"),
         Output("compare-table", "tooltip_data"),
-        Output("sens-graph", "figure", allow_duplicate=True),
+        Output("bw-rule", "value"), Output("bw-slider", "value"), Output("bw-slider", "disabled"),
         Input("fit-key", "data"), Input("est-name", "value"),
         Input({"type": "est-param", "name": ALL}, "value"), Input("bw-rule", "value"),
         Input("bw-slider", "value"), Input("reference", "value"), Input("level", "value"),
         Input("focus", "value"), State({"type": "est-param", "name": ALL}, "id"),
         State("session", "data"), prevent_initial_call=True)
     def on_inference(fkey, name, values, rule, slider, reference, level, focus, ids, session):
+        """The hot path of a slider move, in one round trip. The bandwidth rule and the slider
+        are kept in step here (a callback may output its own inputs): a rule places the
+        slider where it landed; moving the slider switches the rule to a fixed b."""
+        has_bw = engine.ESTIMATORS[name].has_bandwidth
+        out_rule, out_slider = no_update, no_update
+        if ctx.triggered_id == "bw-slider" and rule != "fixed":
+            rule = out_rule = "fixed"
         fit = get_fit(session, fkey)
         if fit is None or focus not in getattr(fit, "terms", []):
-            blank = ([], F.COEF_COLUMNS, "", [], "Load data and choose a model.", "", [],
-                     F.COMPARE_COLUMNS, [], no_update)
-            return blank
+            return ([], F.COEF_COLUMNS, "", [], "Load data and choose a model.", "", [],
+                    F.COMPARE_COLUMNS, [], out_rule, out_slider, not has_bw)
         try:
             est = make_estimator(name, values, ids, rule, slider)
             res = fit.infer(est, level=level, reference=reference)
         except engine.LagwiseError as exc:
             msg = _error(str(exc))
             return ([], F.COEF_COLUMNS, msg, [], msg, "", no_update, F.COMPARE_COLUMNS,
-                    no_update, no_update)
+                    no_update, out_rule, out_slider, not has_bw)
+        if has_bw and rule != "fixed" and res.long_run.bandwidth is not None:
+            landed = int(min(max(round(res.long_run.bandwidth), 1), slider_top(fit.nobs)))
+            if landed != slider:
+                out_slider = landed
         row = res.table.loc[focus]
         rejects = bool(row.p_value < 1 - level) if np.isfinite(row.p_value) else None
         lr = res.long_run
@@ -339,16 +336,28 @@ def register(app):  # noqa: C901 - one place that wires every callback
             html.Div(f"At {1 - level:.0%}: {verdict} under {res.describe()}.",
                      className="lw-hl-verdict " + ("lw-yes" if rejects else "lw-no")),
             html.Div(flip_line, className="lw-hl-flip")]
-        comp = comparison_for(fit, level, reference)
-        crecs = F.comparison_records(comp, focus, rejects)
-        tooltips = [{"estimator": {"value": r["note"] or "", "type": "text"}} for r in crecs]
-        patch = Patch()
-        if lr.bandwidth is not None:
-            patch["layout"]["shapes"][0]["x0"] = lr.bandwidth
-            patch["layout"]["shapes"][0]["x1"] = lr.bandwidth
+        # the comparison only changes when its inputs or the current conclusion change
+        shown = (session, focus, level, reference, rejects)
+        if app_cache(fit).get("compare_shown") == shown:
+            crecs = tooltips = no_update
+        else:
+            comp = comparison_for(fit, level, reference)
+            crecs = F.comparison_records(comp, focus, rejects)
+            tooltips = [{"estimator": {"value": r["note"] or "", "type": "text"}}
+                        for r in crecs]
+            app_cache(fit)["compare_shown"] = shown
         return (F.coefficient_records(res), F.COEF_COLUMNS, res.describe(),
                 [html.Li(n) for n in res.notes], headline, bw_text, crecs,
-                F.COMPARE_COLUMNS, tooltips, patch)
+                F.COMPARE_COLUMNS, tooltips, out_rule, out_slider, not has_bw)
+
+    @app.callback(Output("sens-graph", "figure", allow_duplicate=True),
+                  Input("bw-slider", "value"), prevent_initial_call=True)
+    def on_marker(slider):
+        """Move the current-bandwidth marker only (a partial update of the figure)."""
+        patch = Patch()
+        patch["layout"]["shapes"][0]["x0"] = slider
+        patch["layout"]["shapes"][0]["x1"] = slider
+        return patch
 
     @app.callback(
         Output("sens-graph", "figure"), Output("flip-text", "children"),

@@ -143,14 +143,37 @@ def interval_figure(comp: pd.DataFrame, term: str, level: float) -> go.Figure:
     return _base(fig, f"Interval for {term} across estimators", max(300, 26 * len(rows) + 90))
 
 
+#: Charts of per-observation data show at most this many points; the browser holds every figure
+#: it shows, and hundreds of thousands of points make every interaction slow.
+MAX_POINTS = 4000
+
+
+def envelope(y: np.ndarray, max_points: int = MAX_POINTS):
+    """Indices keeping each bucket's minimum and maximum: the line's envelope is preserved."""
+    n = len(y)
+    if n <= max_points:
+        return np.arange(n)
+    buckets = np.array_split(np.arange(n), max_points // 2)
+    keep = []
+    for b in buckets:
+        seg = y[b]
+        keep += sorted({int(b[np.argmin(seg)]), int(b[np.argmax(seg)])})
+    return np.array(keep)
+
+
 def residual_figure(fit) -> go.Figure:
     fig = go.Figure()
-    x = fit.index.astype(str) if not isinstance(fit.index, pd.DatetimeIndex) else fit.index
-    fig.add_trace(go.Scatter(x=x, y=fit.resid, mode="lines", line={"color": ACCENT, "width": 1},
-                             name="residual"))
+    idx = envelope(fit.resid)
+    x = fit.index[idx]
+    x = x.astype(str) if not isinstance(fit.index, pd.DatetimeIndex) else x
+    fig.add_trace(go.Scatter(x=x, y=fit.resid[idx], mode="lines",
+                             line={"color": ACCENT, "width": 1}, name="residual"))
     fig.add_hline(y=0, line={"color": MUTED, "width": 1})
     fig.update_yaxes(title_text="residual")
-    return _base(fig, "Residuals over time", 280)
+    title = "Residuals over time"
+    if len(idx) < fit.nobs:
+        title += f" (min/max envelope of {fit.nobs:,} points)"
+    return _base(fig, title, 280)
 
 
 def acf_figure(report) -> go.Figure:
@@ -172,12 +195,18 @@ def acf_figure(report) -> go.Figure:
 
 
 def fitted_scatter_figure(fit) -> go.Figure:
-    fig = go.Figure(go.Scatter(x=fit.fitted_values, y=fit.resid**2, mode="markers",
+    n = fit.nobs
+    idx = np.arange(n) if n <= MAX_POINTS else \
+        np.sort(np.random.default_rng(0).choice(n, MAX_POINTS, replace=False))
+    fig = go.Figure(go.Scatter(x=fit.fitted_values[idx], y=fit.resid[idx] ** 2, mode="markers",
                                marker={"color": ACCENT, "size": 5, "opacity": 0.6},
                                name="e^2"))
     fig.update_xaxes(title_text="fitted value")
     fig.update_yaxes(title_text="squared residual")
-    return _base(fig, "Squared residuals against fitted values", 280)
+    title = "Squared residuals against fitted values"
+    if n > MAX_POINTS:
+        title += f" ({MAX_POINTS:,} of {n:,} points, random sample)"
+    return _base(fig, title, 280)
 
 
 def score_acf_figure(report) -> go.Figure:

@@ -12,6 +12,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
+import scipy.linalg as sla
 
 from .errors import EstimationError, SpecificationError
 from .kernels import Kernel
@@ -156,17 +157,24 @@ def var_parametric(fit, *, max_lag=None, criterion="bic", selection="equation") 
     penalty = {"bic": np.log(t_eff), "aic": 2.0}.get(criterion)
     orders = np.full(k, max_lag)
     if criterion != "fixed":
-        ic = np.empty((max_lag + 1, k)) if selection == "equation" else np.empty(max_lag + 1)
-        for p in range(max_lag + 1):
-            zp = z[:, : k * p]
-            resid = y - zp @ np.linalg.lstsq(zp, y, rcond=None)[0] if p else y
-            if selection == "equation":
-                with np.errstate(divide="ignore"):
-                    ic[p] = np.log((resid**2).mean(axis=0)) + penalty * k * p / t_eff
-            else:
-                sign, logdet = np.linalg.slogdet(resid.T @ resid / t_eff)
-                ic[p] = logdet + penalty * k * k * p / t_eff
-        orders = ic.argmin(axis=0) if selection == "equation" else np.full(k, int(ic.argmin()))
+        # one QR of all lags: the residual sum of squares on the first k*p columns is
+        # ||y||^2 - sum of the first k*p squared entries of Q'y (nested regressions)
+        qty = sla.qr(z, mode="economic")[0].T @ y if max_lag else np.zeros((0, k))
+        total = (y**2).sum(axis=0)
+        explained = np.vstack([np.zeros(k), np.cumsum(qty**2, axis=0)])[:: k] \
+            if max_lag else np.zeros((1, k))
+        rss = np.maximum(total[None, :] - explained, 1e-300)          # (max_lag + 1, k)
+        p_grid = np.arange(max_lag + 1)
+        if selection == "equation":
+            ic = np.log(rss / t_eff) + penalty * k * p_grid[:, None] / t_eff
+            orders = ic.argmin(axis=0)
+        else:
+            ic = np.empty(max_lag + 1)
+            for p in p_grid:
+                zp = z[:, : k * p]
+                resid = y - zp @ np.linalg.lstsq(zp, y, rcond=None)[0] if p else y
+                ic[p] = np.linalg.slogdet(resid.T @ resid / t_eff)[1] + penalty * k * k * p / t_eff
+            orders = np.full(k, int(ic.argmin()))
     coef = np.zeros((k * max_lag, k))          # column a: equation a
     resid = np.empty_like(y)
     for a in range(k):

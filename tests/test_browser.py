@@ -147,3 +147,32 @@ def test_sessions_are_isolated(browser, live_server):
     a.keyboard.press("Escape")
     ctx_a.close()
     ctx_b.close()
+
+
+def test_settings_save_and_load(page: Page, live_server, tmp_path):
+    import json
+    open_app(page, live_server)
+    with page.expect_download(timeout=30_000) as info:
+        page.locator("#save-settings").click()
+    saved = json.loads(Path(info.value.path()).read_text())
+    assert saved["lagwise_settings"] == 1 and saved["estimator"] == "kernel"
+    assert saved["response"] == "exret_12m" and saved["params"]["kernel"] == "bartlett"
+    saved.update({"rule": "fixed", "bandwidth": 30, "level": 0.99,
+                  "params": {**saved["params"], "kernel": "parzen"}})
+    path = tmp_path / "mine.json"
+    path.write_text(json.dumps(saved))
+    page.locator("#load-settings input[type=file]").set_input_files(path)
+    expect(page.locator("#settings-message")).to_contain_text("settings applied",
+                                                              timeout=20_000)
+    expect(page.locator("#bw-slider [role=slider]")).to_have_attribute("aria-valuenow", "30")
+    expect(page.locator("#coef-caption")).to_contain_text("Parzen, b = 30", timeout=20_000)
+    expect(page.locator("#coef-table td[data-dash-column='interval']").nth(1)).to_be_visible()
+    fit = engine.fit_ols(engine.load_table(DEMO), "exret_12m", ["rate_capacity", "credit_spread"])
+    res = fit.infer(engine.estimator("kernel", kernel="parzen", bandwidth=30.0), level=0.99)
+    lo = fmt(res.table.loc["rate_capacity", "ci_low"])
+    expect(page.locator("#coef-table td[data-dash-column='interval']").nth(1)).to_contain_text(lo)
+    # a file that is not a settings record gives a message, not a crash
+    bad = tmp_path / "bad.json"
+    bad.write_text('{"hello": 1}')
+    page.locator("#load-settings input[type=file]").set_input_files(bad)
+    expect(page.locator("#settings-message .lw-error")).to_contain_text("not a Lagwise settings")
