@@ -277,7 +277,7 @@ def register(app):  # noqa: C901 - one place that wires every callback
         Output("coef-caption", "children"), Output("coef-notes", "children"),
         Output("headline", "children"), Output("bw-text", "children"),
         Output("compare-table", "data"), Output("compare-table", "columns"),
-        Output("compare-table", "tooltip_data"),
+        Output("compare-table", "tooltip_data"), Output("compare-table", "style_data_conditional"),
         Output("bw-rule", "value"), Output("bw-slider", "value"), Output("bw-slider", "disabled"),
         Input("fit-key", "data"), Input("est-name", "value"),
         Input({"type": "est-param", "name": ALL}, "value"), Input("bw-rule", "value"),
@@ -295,14 +295,14 @@ def register(app):  # noqa: C901 - one place that wires every callback
         fit = get_fit(session, fkey)
         if fit is None or focus not in getattr(fit, "terms", []):
             return ([], F.COEF_COLUMNS, "", [], "Load data and choose a model.", "", [],
-                    F.COMPARE_COLUMNS, [], out_rule, out_slider, not has_bw)
+                    F.COMPARE_COLUMNS, [], [], out_rule, out_slider, not has_bw)
         try:
             est = make_estimator(name, values, ids, rule, slider)
             res = fit.infer(est, level=level, reference=reference)
         except engine.LagwiseError as exc:
             msg = _error(str(exc))
             return ([], F.COEF_COLUMNS, msg, [], msg, "", no_update, F.COMPARE_COLUMNS,
-                    no_update, out_rule, out_slider, not has_bw)
+                    no_update, no_update, out_rule, out_slider, not has_bw)
         if has_bw and rule != "fixed" and res.long_run.bandwidth is not None:
             landed = int(min(max(round(res.long_run.bandwidth), 1), slider_top(fit.nobs)))
             if landed != slider:
@@ -339,16 +339,17 @@ def register(app):  # noqa: C901 - one place that wires every callback
         # the comparison only changes when its inputs or the current conclusion change
         shown = (session, focus, level, reference, rejects)
         if app_cache(fit).get("compare_shown") == shown:
-            crecs = tooltips = no_update
+            crecs = tooltips = shading = no_update
         else:
             comp = comparison_for(fit, level, reference)
             crecs = F.comparison_records(comp, focus, rejects)
             tooltips = [{"estimator": {"value": r["note"] or "", "type": "text"}}
                         for r in crecs]
+            shading = F.differs_style(crecs)
             app_cache(fit)["compare_shown"] = shown
         return (F.coefficient_records(res), F.COEF_COLUMNS, res.describe(),
                 [html.Li(n) for n in res.notes], headline, bw_text, crecs,
-                F.COMPARE_COLUMNS, tooltips, out_rule, out_slider, not has_bw)
+                F.COMPARE_COLUMNS, tooltips, shading, out_rule, out_slider, not has_bw)
 
     @app.callback(Output("sens-graph", "figure", allow_duplicate=True),
                   Input("bw-slider", "value"), prevent_initial_call=True)

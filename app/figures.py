@@ -286,6 +286,14 @@ def comparison_records(comp: pd.DataFrame, term: str, current_rejects: bool | No
     return out
 
 
+def differs_style(records: list[dict]) -> list[dict]:
+    """DataTable styling that shades the rows whose conclusion differs from the current one."""
+    rows = [i for i, r in enumerate(records) if r.get("differs")]
+    if not rows:
+        return []
+    return [{"if": {"row_index": rows}, "backgroundColor": "#fbeee4", "color": "#7a3410"}]
+
+
 COMPARE_COLUMNS = [{"name": "estimator", "id": "estimator"}, {"name": "b", "id": "b"},
                    {"name": "lags", "id": "lags"}, {"name": "std. error", "id": "std_error"},
                    {"name": "t", "id": "t_stat"}, {"name": "p", "id": "p_value"},

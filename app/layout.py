@@ -23,7 +23,8 @@ TABLE_STYLE = dict(
     style_as_list_view=True, style_table={"overflowX": "auto"},
     style_header={"fontWeight": "600", "backgroundColor": "#f1efe8", "color": "#1d2733",
                   "border": "none", "fontSize": "12px"},
-    style_cell={"fontFamily": "inherit", "fontSize": "13px", "padding": "5px 8px",
+    style_cell={"fontFamily": "Liberation Sans, Helvetica Neue, Arial, sans-serif",
+                "fontSize": "13px", "padding": "5px 8px",
                 "textAlign": "right", "border": "none", "borderBottom": "1px solid #ece9e1",
                 "whiteSpace": "normal", "height": "auto"},
     style_cell_conditional=[{"if": {"column_id": c}, "textAlign": "left"}
@@ -184,18 +185,18 @@ def main_area():
             html.Div(id="headline", className="lw-headline-text"),
             html.P(HELP["headline"], className="lw-help")],
             className="lw-card lw-headline", id="headline-card"),
-        html.Div([
-            card("Sensitivity", [
+        card("Sensitivity", [html.Div([
+            html.Div([
                 graph("sens-graph", 400),
+                html.Div([html.Label("show", className="lw-label"),
+                          dcc.RadioItems(id="chart-mode", options=[
+                              {"label": " t statistic", "value": "t"},
+                              {"label": " standard error", "value": "se"},
+                              {"label": " interval", "value": "ci"}],
+                              value="t", inline=True, className="lw-radio")], className="lw-row"),
                 html.Div(id="flip-text", className="lw-flip"),
-                html.Div([
-                    html.Div([html.Label("show", className="lw-label"),
-                              dcc.RadioItems(id="chart-mode", options=[
-                                  {"label": " t statistic", "value": "t"},
-                                  {"label": " standard error", "value": "se"},
-                                  {"label": " interval", "value": "ci"}],
-                                  value="t", inline=True, className="lw-radio")]),
-                ], className="lw-row"),
+            ], className="lw-chart-col"),
+            html.Div([
                 html.Div([
                     html.Label("bandwidth b", className="lw-label"),
                     dcc.Slider(id="bw-slider", min=1, max=60, step=1, value=13,
@@ -211,6 +212,9 @@ def main_area():
                               dcc.Dropdown(id="bw-rule", options=RULE_OPTIONS, value="fixed",
                                            clearable=False),
                               html.P(HELP["rule"], className="lw-help")], className="lw-field"),
+                ], className="lw-grid"),
+                html.Div(id="est-params", className="lw-grid"),
+                html.Div([
                     html.Div([html.Label("reference law", className="lw-label"),
                               dcc.Dropdown(id="reference", options=REFERENCE_OPTIONS,
                                            value="auto", clearable=False),
@@ -222,23 +226,20 @@ def main_area():
                                   value=0.95, clearable=False),
                               html.P(HELP["level"], className="lw-help")], className="lw-field"),
                 ], className="lw-grid"),
-                html.Div(id="est-params", className="lw-grid"),
-            ], export=export_menu("sens-graph", CHART_FORMATS), cls="lw-wide"),
-            html.Div([
-                card("Coefficients", [html.Div(id="coef-caption", className="lw-caption"),
-                                      dash_table.DataTable(id="coef-table", **TABLE_STYLE),
-                                      html.Ul(id="coef-notes", className="lw-notes")],
-                     export=export_menu("coef-table", TABLE_FORMATS)),
-                card("Every estimator, coefficient in focus", [
-                    html.P("Shaded rows reach a different conclusion from the current choice.",
-                           className="lw-help"),
-                    dcc.Loading(dash_table.DataTable(
-                        id="compare-table", **{**TABLE_STYLE, "style_data_conditional": [
-                            {"if": {"filter_query": "{differs} eq true"},
-                             "backgroundColor": "#fbeee4", "color": "#7a3410"}]},
-                        tooltip_duration=None), type="dot", color="#0e6e64")],
-                     export=export_menu("compare-table", TABLE_FORMATS)),
-            ], className="lw-col"),
+            ], className="lw-control-col"),
+        ], className="lw-sens")], export=export_menu("sens-graph", CHART_FORMATS)),
+        html.Div([
+            card("Coefficients", [html.Div(id="coef-caption", className="lw-caption"),
+                                  dash_table.DataTable(id="coef-table", **TABLE_STYLE),
+                                  html.Ul(id="coef-notes", className="lw-notes")],
+                 export=export_menu("coef-table", TABLE_FORMATS)),
+            card("Every estimator, coefficient in focus", [
+                html.P("Shaded rows reach a different conclusion from the current choice; "
+                       "hover an estimator for its notes.", className="lw-help"),
+                dcc.Loading(dash_table.DataTable(id="compare-table", tooltip_duration=None,
+                                                 **TABLE_STYLE),
+                            type="dot", color="#0e6e64")],
+                 export=export_menu("compare-table", TABLE_FORMATS)),
         ], className="lw-results"),
         card("Interval across estimators", [graph("interval-graph", 420)],
              export=export_menu("interval-graph", CHART_FORMATS)),

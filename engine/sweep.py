@@ -123,16 +123,18 @@ class Flip:
 
     def sentence(self) -> str:
         verdict = "rejected" if self.rejects_at_start else "not rejected"
+        from .kernels import KERNELS
+        kname = KERNELS[self.kernel].display_name if self.kernel in KERNELS else self.kernel
         start = self.bandwidths[0]
         if self.rejects_at_start is None:
             return f"{self.term}: no usable standard error at b = {start:g}."
         if self.flip_bandwidth is None:
             return (f"{self.term}: beta = 0 is {verdict} at {100 * (1 - self.level):g}% for "
-                    f"every b from {start:g} to {self.bandwidths[-1]:g} ({self.kernel}, "
+                    f"every b from {start:g} to {self.bandwidths[-1]:g} ({kname}, "
                     f"{self.reference} critical values).")
         return (f"{self.term}: beta = 0 is {verdict} at {100 * (1 - self.level):g}% for "
                 f"b <= {self.holds_up_to:g}; the conclusion flips at b = {self.flip_bandwidth:g}"
-                f" ({self.kernel}, {self.reference} critical values).")
+                f" ({kname}, {self.reference} critical values).")
 
 
 def significance_flip(fit, term: str, kernel: str = "bartlett", level: float = 0.95,

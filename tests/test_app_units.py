@@ -176,3 +176,11 @@ def test_create_app_with_settings_file(tmp_path):
     assert comps["initial-spec"].data["response"] == "exret_1m"
     args = build_parser().parse_args(["serve", "--settings", str(path), "--port", "9999"])
     assert args.settings == str(path) and args.host == "127.0.0.1" and not args.debug
+
+
+def test_differs_style_shades_exactly_the_differing_rows(fit):
+    recs = F.comparison_records(compare(fit), "rate_capacity", current_rejects=True)
+    style = F.differs_style(recs)
+    rows = style[0]["if"]["row_index"]
+    assert rows == [i for i, r in enumerate(recs) if r["verdict"] == "keeps 0"]
+    assert F.differs_style([{"differs": False}]) == []

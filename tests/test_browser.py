@@ -88,6 +88,12 @@ def test_upload_model_slider_rule(page: Page, live_server):
 
 def test_exports_chart_and_table(page: Page, live_server, tmp_path):
     open_app(page, live_server)
+    # the comparison shades the estimators whose conclusion differs from the current one
+    # (demo default: Bartlett b = 13 rejects; the plug-in bandwidths do not)
+    expect(page.locator("#compare-table td[data-dash-column='verdict']").first).to_be_visible(
+        timeout=30_000)
+    shaded = page.locator("#compare-table td[data-dash-column='verdict'][style*='251, 238, 228']")
+    expect(shaded.first).to_have_text("keeps 0", timeout=20_000)
     expect(page.locator("#sens-graph .js-plotly-plot")).to_be_visible(timeout=30_000)
     page.wait_for_timeout(1500)
     magic = {"PNG": b"\x89PNG", "SVG": b"<svg", "PDF": b"%PDF"}
