@@ -18,6 +18,7 @@ from scipy import stats
 
 from .covariance import Estimator, estimator as make_estimator
 from .errors import EstimationError, SpecificationError
+from ._threads import single_blas_thread
 
 REFERENCES = ("auto", "normal", "t", "fixed-b")
 
@@ -216,6 +217,7 @@ def p_values(reference: str, tstat: np.ndarray, df, kernel=None, b_over_t=None) 
                      for x in np.atleast_1d(a)])
 
 
+@single_blas_thread
 def infer(fit, est, level: float = 0.95, reference: str = "auto") -> Inference:
     """Coefficient table for `fit` under estimator `est` (an Estimator or a registry name)."""
     if isinstance(est, str):

@@ -75,9 +75,7 @@ def kernel_many(fit, kernel: Kernel, bandwidths, *, small_sample: bool = False,
     """
     b = np.atleast_1d(np.asarray(bandwidths, dtype=float))
     lags = np.array([kernel.lags_used(x, fit.nobs) for x in b])
-    n_lags = int(lags.max()) + 1
-    w = kernel.weights(b, n_lags)
-    s = fit.moments.weighted(w)
+    s = fit.moments.unpack(fit.moments.kernel_sums(kernel, b))
     if small_sample:
         s = s * fit.small_sample_factor
     min_eig = np.full(len(b), np.nan)

@@ -17,6 +17,7 @@ import scipy.linalg as sla
 from .data import Table
 from .errors import DataError, SpecificationError
 from .moments import MomentCache
+from ._threads import single_blas_thread
 
 INTERCEPT = "intercept"
 #: Columns whose norm-scaled pivoted-QR diagonal falls below this fraction of the largest are
@@ -54,11 +55,14 @@ class OLSFit:
         self._solve()
 
     # ------------------------------------------------------------------ least squares
+    @single_blas_thread
     def _solve(self):
         X, y = self.X, self.y
         norms = np.sqrt(np.einsum("ij,ij->j", X, X))
         xs = X / norms
-        q, r, piv = sla.qr(xs, mode="economic", pivoting=True, check_finite=False)
+        q, r, piv = sla.qr(xs, mode="economic", pivoting=True, check_finite=False,
+                           overwrite_a=True)
+        r = np.array(r)          # a fresh copy: triangular solves on the raw factor are slow
         diag = np.abs(np.diag(r))
         rank = int(np.sum(diag > RANK_TOLERANCE * diag[0]))
         if rank < self.k:

@@ -20,29 +20,43 @@ import numpy as np
 import scipy.fft as sfft
 
 from .errors import SpecificationError
+from ._threads import blas_threads, single_blas_thread
+
+
+#: The prepared tail used by the fast Quadratic Spectral sums is cached only below this many
+#: numbers (160 MB); beyond, it is rebuilt per call in column chunks or skipped for one bandwidth.
+FAR_CACHE_LIMIT = 20_000_000
 
 
 class MomentCache:
     """Autocovariances of the moment contributions, computed once and reused."""
 
-    def __init__(self, scores: np.ndarray):
+    def __init__(self, scores: np.ndarray, diagonal_only: bool = False):
         u = np.asarray(scores, dtype=float)
         if u.ndim != 2:
             raise SpecificationError("moment contributions must be a T x k matrix")
         self.scores = u
         self.nobs, self.k = u.shape
-        self._iu = np.triu_indices(self.k)
-        self._packed: np.ndarray | None = None   # (n_lags, P)
+        self.diagonal_only = diagonal_only      # keep only each column's own autocovariances
+        self._iu = (np.arange(self.k), np.arange(self.k)) if diagonal_only \
+            else np.triu_indices(self.k)
+        self._packed: np.ndarray | None = None   # pair-major (P, n_lags)
+        self._far: dict = {}                     # prepared tails for infinite-support kernels
 
     # ------------------------------------------------------------------ filling
     @property
     def max_lag_cached(self) -> int:
-        return -1 if self._packed is None else self._packed.shape[0] - 1
+        return -1 if self._packed is None else self._packed.shape[1] - 1
 
+    @single_blas_thread
     def ensure(self, max_lag: int) -> None:
         """Make sure lags 0..max_lag are cached (max_lag is capped at T-1)."""
         max_lag = int(min(max(max_lag, 0), self.nobs - 1))
         if max_lag <= self.max_lag_cached:
+            return
+        if self.diagonal_only:
+            self._packed = _autocov_diagonal(self.scores, max_lag)
+            self._far.clear()
             return
         if 8 * (max_lag + 1) < self.nobs:
             full = _autocov_blocks(self.scores, max_lag)
@@ -52,17 +66,36 @@ class MomentCache:
         if full is not None:
             sym = full + np.transpose(full, (0, 2, 1))
             sym[0] = full[0]
-            packed = sym[:, self._iu[0], self._iu[1]]
+            pair_major = np.ascontiguousarray(sym[:, self._iu[0], self._iu[1]].T)
         else:
-            packed = _autocov_all_pairs(self.scores, self._iu)
-        self._packed = np.ascontiguousarray(packed)
+            pair_major = _autocov_all_pairs(self.scores, self._iu)
+        self._packed = pair_major                 # (P, n_lags): lag j of pair p at [p, j]
+        self._far.clear()
 
     def packed(self, max_lag: int) -> np.ndarray:
-        """C_0..C_L with upper triangles packed: shape (L+1, k(k+1)/2)."""
+        """C_0..C_L with upper triangles packed: shape (L+1, k(k+1)/2) (a transposed view)."""
         self.ensure(max_lag)
-        return self._packed[: int(min(max_lag, self.nobs - 1)) + 1]
+        return self._packed[:, : int(min(max_lag, self.nobs - 1)) + 1].T
 
     # ------------------------------------------------------------------ using
+    def kernel_sums(self, kernel, bandwidths) -> np.ndarray:
+        """sum_j k(j/b) C_j (packed) for each bandwidth: (n_b, P). Finite-support kernels use
+        lags 0..ceil(b)-1 (one matrix product); infinite-support kernels use every lag 0..T-1,
+        the far lags by a factorised trigonometric sum (see `_qs_far_sums`)."""
+        b = np.atleast_1d(np.asarray(bandwidths, dtype=float))
+        if kernel.finite_support:
+            n_lags = int(max(kernel.lags_used(x, self.nobs) for x in b)) + 1
+            return kernel.weights(b, n_lags) @ self.packed(n_lags - 1)
+        c = self.packed(self.nobs - 1)
+        small_tail = 2 * c.shape[0] * c.shape[1] <= FAR_CACHE_LIMIT
+        if kernel.name != "quadratic_spectral" or self.nobs <= 4096 \
+                or (len(b) <= 2 and not small_tail):
+            # direct weights, a bounded number of bandwidths at a time
+            step = max(1, int(4e6 // self.nobs))
+            return np.vstack([kernel.weights(b[i: i + step], self.nobs) @ c
+                              for i in range(0, len(b), step)])
+        return _qs_sums(self, b, c)
+
     def unpack(self, packed: np.ndarray) -> np.ndarray:
         """(..., P) packed upper triangles -> (..., k, k) symmetric matrices."""
         out = np.zeros(packed.shape[:-1] + (self.k, self.k))
@@ -108,16 +141,99 @@ def _autocov_blocks(u: np.ndarray, max_lag: int) -> np.ndarray:
     return corr[lag::-1] / t_obs
 
 
-def _autocov_all_pairs(u: np.ndarray, iu) -> np.ndarray:
-    """C_0..C_{T-1} packed, by one padded FFT per column and one inverse FFT per pair."""
+def _autocov_diagonal(u: np.ndarray, max_lag: int) -> np.ndarray:
+    """Each column's own C_0..C_L (pair-major (k, L+1)) from one FFT padded to T + L + 1."""
+    t_obs = u.shape[0]
+    n_fft = sfft.next_fast_len(t_obs + max_lag + 1, real=True)
+    f = sfft.rfft(np.ascontiguousarray(u.T), n=n_fft, axis=-1)
+    power = f.real**2 + f.imag**2
+    out = sfft.irfft(power, n=n_fft, axis=-1)[:, : max_lag + 1] * (2.0 / t_obs)
+    out[:, 0] *= 0.5
+    return np.ascontiguousarray(out)
+
+
+def _autocov_all_pairs(u: np.ndarray, iu, chunk: int = 8) -> np.ndarray:
+    """C_0..C_{T-1} packed, pair-major (P, T): one padded FFT per column and inverse FFTs of
+    the pairs' cross spectra, a few pairs at a time (bounded memory, contiguous, both cores)."""
     t_obs, k = u.shape
     n_fft = sfft.next_fast_len(2 * t_obs - 1, real=True)
-    f = sfft.rfft(u, n=n_fft, axis=0)
-    out = np.empty((t_obs, len(iu[0])))
-    for p, (a, b) in enumerate(zip(*iu)):
-        cross = f[:, a] * np.conj(f[:, b])
-        # r_ab(j) + r_ab(-j) = irfft(2 Re(F_a conj F_b))[j]
-        col = sfft.irfft(2.0 * cross.real, n=n_fft)[:t_obs]
-        col[0] *= 0.5
-        out[:, p] = col / t_obs
+    f = sfft.rfft(np.ascontiguousarray(u.T), n=n_fft, axis=-1, workers=-1)   # (k, nf)
+    fr, fi = np.ascontiguousarray(f.real), np.ascontiguousarray(f.imag)
+    del f
+    a_idx, b_idx = np.asarray(iu[0]), np.asarray(iu[1])
+    out = np.empty((len(a_idx), t_obs))
+    spec = np.empty((min(chunk, len(a_idx)), fr.shape[1]))
+    tmp = np.empty(fr.shape[1])
+    for start in range(0, len(a_idx), chunk):
+        n = min(chunk, len(a_idx) - start)
+        for i in range(n):
+            a, b = a_idx[start + i], b_idx[start + i]
+            # r_ab(j) + r_ab(-j) = irfft(2 Re(F_a conj F_b))[j]
+            np.multiply(fr[a], fr[b], out=spec[i])
+            np.multiply(fi[a], fi[b], out=tmp)
+            spec[i] += tmp
+        cols = sfft.irfft(spec[:n], n=n_fft, axis=-1, workers=-1)
+        out[start: start + n] = cols[:, :t_obs]
+    out *= 2.0 / t_obs
+    out[:, 0] *= 0.5
     return out
+
+
+def _qs_sums(cache: "MomentCache", b: np.ndarray, c: np.ndarray) -> np.ndarray:
+    """Quadratic Spectral sums over every lag without evaluating k(j/b) at every lag.
+
+    k(x) = 3/z^2 (sin z / z - cos z) with z = j theta, theta = 6 pi / (5 b). Lags below j0 (where
+    z < 1 for every b) use k directly. Beyond, sum_j k(j theta) C_j =
+    3/theta^3 Im(sum_j e^{i j theta} C_j / j^3) - 3/theta^2 Re(sum_j e^{i j theta} C_j / j^2),
+    and with j = j0 + m M + r each trigonometric sum factorises into an inner product over r
+    (one real matrix product for all bandwidths) and a short outer sum over m: exact up to
+    rounding, with exponentials evaluated only at M + (T - j0)/M points per bandwidth.
+    """
+    from .kernels import get_kernel
+    qs = get_kernel("quadratic_spectral")
+    theta = 6.0 * np.pi / (5.0 * b)
+    need = int(np.ceil(1.0 / theta.min())) + 1
+    reusable = [j for j in cache._far if need <= j <= 4 * need]      # any start past z = 1
+    j0 = min(reusable) if reusable else min(cache.nobs, 1 << max(need - 1, 1).bit_length())
+    near = qs.weights(b, j0) @ c[:j0]
+    if j0 >= cache.nobs:
+        return near
+    n_far = cache.nobs - j0
+    block = int(min(1024, max(64, 2 ** round(np.log2(np.sqrt(n_far))))))
+    n_blk = -(-n_far // block)
+    cacheable = 2 * n_far * c.shape[1] <= FAR_CACHE_LIMIT
+    if cacheable and j0 in cache._far:
+        return near + _qs_far(b, theta, j0, *cache._far[j0], c.shape[1])
+    out = np.empty((len(b), c.shape[1]))
+    width = c.shape[1] if cacheable else max(1, FAR_CACHE_LIMIT // (2 * n_far))
+    for start in range(0, c.shape[1], width):
+        cols = slice(start, min(start + width, c.shape[1]))
+        tail = c[j0:, cols]
+        p = tail.shape[1]
+        j = np.arange(j0, j0 + n_far, dtype=float)[:, None]
+        h = np.zeros((n_blk * block, 2 * p))
+        h[:n_far, :p] = tail / j**3
+        h[:n_far, p:] = tail / j**2
+        # (block, n_blk * 2p): row r holds lag j0 + m*block + r of every block m
+        hmat = np.ascontiguousarray(h.reshape(n_blk, block, -1).transpose(1, 0, 2)
+                                    .reshape(block, -1))
+        del h
+        if cacheable:
+            cache._far[j0] = (block, n_blk, hmat)
+        out[:, cols] = _qs_far(b, theta, j0, block, n_blk, hmat, p)
+    return near + out
+
+
+def _qs_far(b, theta, j0, block, n_blk, hmat, p):
+    """The far-lag part of the Quadratic Spectral sums from a prepared tail (see _qs_sums)."""
+    r = np.arange(block, dtype=float)
+    phase = theta[:, None] * r[None, :]
+    trig = np.vstack([np.cos(phase), np.sin(phase)])                 # (2 n_b, block)
+    with blas_threads():                                              # one large product
+        inner = (trig @ hmat).reshape(2, len(b), n_blk, 2 * p)
+    inner = inner[0] + 1j * inner[1]                                  # sum_r e^{i r theta} h
+    start = j0 + block * np.arange(n_blk, dtype=float)
+    outer = np.exp(1j * theta[:, None] * start[None, :])               # (n_b, n_blk)
+    total = np.einsum("bm,bmp->bp", outer, inner)
+    return (3.0 / theta**3)[:, None] * total[:, :p].imag \
+        - (3.0 / theta**2)[:, None] * total[:, p:].real

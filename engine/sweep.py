@@ -16,6 +16,8 @@ import pandas as pd
 from . import longrun
 from .errors import SpecificationError
 from .kernels import get_kernel
+from .moments import MomentCache
+from ._threads import single_blas_thread
 
 
 @dataclass
@@ -71,11 +73,22 @@ class SweepResult:
         return pd.Series(getattr(self, what)[i, :, j], index=self.bandwidths, name=what)
 
 
+def influence_cache(fit) -> MomentCache:
+    """Autocovariances of each coefficient's influence series z_t = B u_t (diagonal only),
+    cached on the fit: the variances of a whole sweep of PSD kernels come from them."""
+    cache = fit.__dict__.get("_influence")
+    if cache is None:
+        cache = MomentCache(fit.scores @ fit.bread.T, diagonal_only=True)
+        fit.__dict__["_influence"] = cache
+    return cache
+
+
 def default_bandwidths(nobs: int, upper: int | None = None) -> np.ndarray:
     top = min(nobs, upper or max(12, min(nobs // 4, 100)))
     return np.arange(1, top + 1, dtype=float)
 
 
+@single_blas_thread
 def sweep(fit, kernels=("bartlett",), bandwidths=None, small_sample: bool = False,
           repair: bool = True) -> SweepResult:
     if isinstance(kernels, str):
@@ -87,16 +100,26 @@ def sweep(fit, kernels=("bartlett",), bandwidths=None, small_sample: bool = Fals
         np.atleast_1d(np.asarray(bandwidths, dtype=float))
     if b.size == 0 or np.any(~np.isfinite(b)) or np.any(b <= 0):
         raise SpecificationError("bandwidths must be positive numbers")
-    a = fit.bread
     nk, nb, k = len(kernels), len(b), fit.k
     se = np.empty((nk, nb, k))
     lags = np.empty((nk, nb), dtype=int)
     repaired = np.zeros((nk, nb), dtype=bool)
+    factor = fit.small_sample_factor if small_sample else 1.0
+    if any(get_kernel(name).psd and not get_kernel(name).finite_support for name in kernels):
+        influence_cache(fit).ensure(fit.nobs - 1)     # fill every lag once, for all kernels
     for i, name in enumerate(kernels):
         kern = get_kernel(name)
-        s, lg, _, rep = longrun.kernel_many(fit, kern, b, small_sample=small_sample,
-                                            repair=repair)
-        var = fit.nobs * np.einsum("ia,nab,ib->ni", a, s, a)   # diagonal of T B S B'
+        if kern.psd:
+            # V_ii = T sum_j w_j C_j(z)_ii with z_t = B u_t, the coefficients' influence series:
+            # only k autocovariance series are needed, not k(k+1)/2 pairs
+            var = fit.nobs * factor * influence_cache(fit).kernel_sums(kern, b)
+            lg = np.array([kern.lags_used(x, fit.nobs) for x in b])
+            rep = np.zeros(nb, dtype=bool)
+        else:
+            s, lg, _, rep = longrun.kernel_many(fit, kern, b, small_sample=small_sample,
+                                                repair=repair)
+            a = fit.bread
+            var = fit.nobs * np.einsum("ia,nab,ib->ni", a, s, a)   # diagonal of T B S B'
         se[i] = np.sqrt(np.where(var < 0, np.nan, var))
         lags[i] = lg
         repaired[i] = rep

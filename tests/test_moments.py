@@ -1,6 +1,7 @@
 """The autocovariance cache against the textbook double loop (numpy), both fill paths."""
 
 import numpy as np
+import pytest
 from hypothesis import given, settings, strategies as st
 
 from engine.moments import MomentCache
@@ -47,3 +48,33 @@ def test_weighted_sum_is_weighted_lags():
     expect0 = direct(u, 0) + 0.5 * direct(u, 1) + 0.25 * direct(u, 2)
     np.testing.assert_allclose(s[0], expect0, rtol=1e-10)
     np.testing.assert_allclose(s[1], direct(u, 0), rtol=1e-10)
+
+
+@pytest.mark.parametrize("limit", [None, 1000])
+def test_fast_quadratic_spectral_sums_equal_direct_weights(monkeypatch, limit):
+    """The factorised trigonometric evaluation over every lag equals the direct weighted sum
+    (k(j/b) evaluated at each of the T lags) to rounding, cached or rebuilt in column chunks."""
+    import engine
+    import engine.moments as moments
+    if limit:
+        monkeypatch.setattr(moments, "FAR_CACHE_LIMIT", limit)
+    rng = np.random.default_rng(3)
+    t = 6000
+    u = rng.standard_normal((t, 3))
+    u[:, 1] = np.convolve(u[:, 1], np.ones(25) / 5, "same")
+    cache = MomentCache(u)
+    qs = engine.get_kernel("quadratic_spectral")
+    b = np.array([0.7, 1.0, 3.3, 12.0, 57.0, 240.0])
+    direct = qs.weights(b, t) @ cache.packed(t - 1)
+    np.testing.assert_allclose(cache.kernel_sums(qs, b), direct, rtol=1e-11, atol=1e-14)
+    np.testing.assert_allclose(cache.kernel_sums(qs, b[3:4]), direct[3:4], rtol=1e-11)
+
+
+@pytest.mark.parametrize("lag", [0, 3, 40, 399])
+def test_diagonal_cache_equals_direct(lag):
+    rng = np.random.default_rng(lag)
+    u = rng.standard_normal((400, 3))
+    cache = MomentCache(u, diagonal_only=True)
+    packed = cache.packed(lag)
+    for j in range(lag + 1):
+        np.testing.assert_allclose(packed[j], np.diag(direct(u, j)), rtol=1e-9, atol=1e-13)
