@@ -16,7 +16,10 @@ from .model import OLSFit, fit_ols, INTERCEPT
 from .covariance import ESTIMATORS, Estimator, EstimatorSpec, estimator, estimators
 from .bandwidth import RULES as BANDWIDTH_RULES, select_bandwidth, BandwidthChoice
 from .inference import Inference, WaldTest, infer
-from .sweep import SweepResult, sweep
+from .sweep import Flip, SweepResult, significance_flip, sweep
+from .fixedb import fixed_b_critical_value, fixed_b_p_value
+from .compare import compare
+from .diagnostics import DiagnosticReport, diagnose
 
 __all__ = [
     "DataError", "EstimationError", "LagwiseError", "SpecificationError",
@@ -24,5 +27,6 @@ __all__ = [
     "KERNELS", "get_kernel", "OLSFit", "fit_ols", "INTERCEPT",
     "ESTIMATORS", "Estimator", "EstimatorSpec", "estimator", "estimators",
     "BANDWIDTH_RULES", "select_bandwidth", "BandwidthChoice",
-    "Inference", "WaldTest", "infer", "SweepResult", "sweep",
+    "Inference", "WaldTest", "infer", "SweepResult", "sweep", "Flip", "significance_flip",
+    "fixed_b_critical_value", "fixed_b_p_value", "compare", "DiagnosticReport", "diagnose",
 ]

@@ -168,7 +168,9 @@ class Inference:
             f_df = (m, self.nobs - self.k)
             p = float(stats.chi2.sf(w, m))
             f_p = float(stats.f.sf(f_stat, *f_df))
-        return WaldTest(w, m, p, f_stat, f_df, f_p, self.reference_text(), labels)
+        law = {"normal": f"chi-square({m}), large-sample",
+               "t": f"F({m}, {self.df:g})"}.get(ref, self.reference_text())
+        return WaldTest(w, m, p, f_stat, f_df, f_p, law, labels)
 
 
 def _resolve_reference(est: Estimator, lr, reference: str, fit):
