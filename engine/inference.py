@@ -168,8 +168,12 @@ class Inference:
             f_df = (m, self.nobs - self.k)
             p = float(stats.chi2.sf(w, m))
             f_p = float(stats.f.sf(f_stat, *f_df))
-        law = {"normal": f"chi-square({m}), large-sample",
-               "t": f"F({m}, {self.df:g})"}.get(ref, self.reference_text())
+        if ref == "normal":
+            law = f"chi-square({m}), large-sample"
+        elif ref == "t":
+            law = f"F({m}, {self.df:g})"
+        else:
+            law = self.reference_text()
         return WaldTest(w, m, p, f_stat, f_df, f_p, law, labels)
 
 
