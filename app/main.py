@@ -58,5 +58,7 @@ def serve(file=None, host: str = "127.0.0.1", port: int = 8050, debug: bool = Fa
     if host not in ("127.0.0.1", "localhost", "::1"):
         print(f"warning: serving on {host}: anyone who can reach this address can use the app")
     print(f"Lagwise on http://{host}:{port}/  (Ctrl+C to stop)")
+    if not debug:
+        logging.getLogger("werkzeug").setLevel(logging.WARNING)    # no line per request
     app.run(host=host, port=port, debug=debug)
     return 0
