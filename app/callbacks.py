@@ -61,13 +61,14 @@ def app_cache(fit) -> dict:
     return fit.__dict__.setdefault("_app", {})
 
 
-def sweep_for(fit, top: int):
-    cache = app_cache(fit)
-    if cache.get("sweep_top") != top:
-        cache["sweep"] = fit.sweep(kernels=SWEEP_KERNELS, bandwidths=default_bandwidths(
-            fit.nobs, top))
-        cache["sweep_top"] = top
-    return cache["sweep"]
+def sweep_for(fit, top: int, prewhiten: bool = False):
+    """The sensitivity sweep over every kernel, computed once per fit (and prewhitening)."""
+    cache = app_cache(fit).setdefault("sweeps", {})
+    key = (top, bool(prewhiten))
+    if key not in cache:
+        cache[key] = fit.sweep(kernels=SWEEP_KERNELS, bandwidths=default_bandwidths(
+            fit.nobs, top), prewhiten=bool(prewhiten))
+    return cache[key]
 
 
 def comparison_for(fit, level, reference):
@@ -320,7 +321,7 @@ def register(app):  # noqa: C901 - one place that wires every callback
         flip_line = ""
         kern = est.params.get("kernel") if est.spec.has_bandwidth else None
         if kern:
-            sw = sweep_for(fit, slider_top(fit.nobs))
+            sw = sweep_for(fit, slider_top(fit.nobs), est.params.get("prewhiten", False))
             ref = "fixed-b" if res.reference == "fixed-b" else "normal"
             flip = significance_flip(fit, focus, kern, level, ref, sweep_result=sw)
             flip_line = flip.sentence()
@@ -374,10 +375,15 @@ def register(app):  # noqa: C901 - one place that wires every callback
             empty = F.empty_figure("Load data and choose a model to see the sensitivity chart.")
             return empty, "", F.empty_figure("")
         kern = current_kernel(name, values, ids)
-        sw = sweep_for(fit, slider_top(fit.nobs))
-        ref = "fixed-b" if reference == "fixed-b" else "normal"
+        prewhiten = bool(param_values(name, values, ids).get("prewhiten")) \
+            if name in engine.ESTIMATORS else False
+        sw = sweep_for(fit, slider_top(fit.nobs), prewhiten)
+        # the fixed-b tables assume no prewhitening
+        ref = "fixed-b" if reference == "fixed-b" and not prewhiten else "normal"
         fig = F.sensitivity_figure(sw, focus, mode or "t", level, ref, slider, kern,
-                                   auto_marks(fit, kern))
+                                   auto_marks(fit, kern) if not prewhiten else [])
+        if prewhiten:
+            fig.update_layout(title_text=fig.layout.title.text + " (prewhitened scores)")
         flips = []
         for k in ("bartlett", "parzen", "quadratic_spectral"):
             flips.append(html.Li(significance_flip(fit, focus, k, level, ref,

@@ -165,10 +165,10 @@ class OLSFit:
         return infer(self, estimator, level=level, reference=reference)
 
     def sweep(self, kernels=("bartlett",), bandwidths=None, small_sample: bool = False,
-              repair: bool = True):
+              repair: bool = True, prewhiten: bool = False):
         from .sweep import sweep
         return sweep(self, kernels=kernels, bandwidths=bandwidths, small_sample=small_sample,
-                     repair=repair)
+                     repair=repair, prewhiten=prewhiten)
 
     def __repr__(self):
         return (f"OLSFit(response={self.response!r}, terms={self.terms}, T={self.nobs}, "

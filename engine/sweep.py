@@ -90,7 +90,11 @@ def default_bandwidths(nobs: int, upper: int | None = None) -> np.ndarray:
 
 @single_blas_thread
 def sweep(fit, kernels=("bartlett",), bandwidths=None, small_sample: bool = False,
-          repair: bool = True) -> SweepResult:
+          repair: bool = True, prewhiten: bool = False) -> SweepResult:
+    """Standard errors and t statistics for every (kernel, bandwidth, term) at once.
+
+    prewhiten=True sweeps the Andrews-Monahan prewhitened-and-recoloured estimators (the VAR(1)
+    is fitted once; each bandwidth reweights the residuals' cache)."""
     if isinstance(kernels, str):
         kernels = [kernels]
     kernels = list(kernels)
@@ -109,7 +113,16 @@ def sweep(fit, kernels=("bartlett",), bandwidths=None, small_sample: bool = Fals
         influence_cache(fit).ensure(fit.nobs - 1)     # fill every lag once, for all kernels
     for i, name in enumerate(kernels):
         kern = get_kernel(name)
-        if kern.psd:
+        if prewhiten:
+            from .prewhiten import prepared
+            pw = prepared(fit)
+            s_star, lg, _, rep = longrun.kernel_many(pw["fit"], kern, b,
+                                                     small_sample=small_sample, repair=repair)
+            m = fit.bread.T @ np.linalg.inv(np.eye(fit.k) - pw["A"])   # raw -> orthonormal
+            s_q = np.einsum("ia,nab,jb->nij", m, s_star, m)
+            a = fit.bread
+            var = fit.nobs * np.einsum("ia,nab,ib->ni", a, s_q, a)
+        elif kern.psd:
             # V_ii = T sum_j w_j C_j(z)_ii with z_t = B u_t, the coefficients' influence series:
             # only k autocovariance series are needed, not k(k+1)/2 pairs
             var = fit.nobs * factor * influence_cache(fit).kernel_sums(kern, b)

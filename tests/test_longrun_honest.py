@@ -298,3 +298,15 @@ def test_cli_lists_new_estimators_and_flip(capsys):
     assert rc == 0
     for label in ("VAR-HAC, BIC", "VAR(1) fixed", "EWC, B: llsw", "fixed-b", "flips at b ="):
         assert label in out, label
+
+
+@pytest.mark.parametrize("kernel", ["bartlett", "parzen", "quadratic_spectral", "truncated"])
+def test_prewhitened_sweep_equals_infer(kernel):
+    fit = engine.fit_ols(regression_frame(seed=14, n=300, k=2, rho_e=0.7), "y", ["x1", "x2"])
+    bws = [1.0, 4.5, 20.0]
+    sw = fit.sweep(kernels=[kernel], bandwidths=bws, prewhiten=True)
+    for i, b in enumerate(bws):
+        res = fit.infer(engine.estimator("kernel", kernel=kernel, bandwidth=b, prewhiten=True))
+        np.testing.assert_allclose(sw.std_error[0, i], res.table.std_error, rtol=1e-9)
+    plain = fit.sweep(kernels=[kernel], bandwidths=bws)
+    assert not np.allclose(plain.std_error, sw.std_error)
