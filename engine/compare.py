@@ -14,6 +14,12 @@ from .errors import LagwiseError
 from .inference import infer
 
 
+def supports_fixed_b(est) -> bool:
+    from .fixedb import FIXED_B_KERNELS
+    return est.spec.has_bandwidth and est.params.get("kernel") in FIXED_B_KERNELS \
+        and not est.params.get("prewhiten")
+
+
 def family_presets(fit, kernel=None, bandwidth=None) -> list:
     out = []
     for spec in ESTIMATORS.values():
@@ -30,8 +36,14 @@ def compare(fit, level: float = 0.95, reference: str = "auto", kernel=None, band
     rows = []
     for item in (estimators if estimators is not None else family_presets(fit, kernel, bandwidth)):
         est, ref, why = (item if isinstance(item, tuple) else (item, None, ""))
+        wanted = ref or reference
+        if wanted == "fixed-b" and not supports_fixed_b(est):
+            # fixed-b values exist for some kernels only; the others keep their own law
+            wanted = "auto"
+            why = (why + "; " if why else "") + "fixed-b not defined for this estimator: its " \
+                "own reference law is used"
         try:
-            res = infer(fit, est, level=level, reference=ref or reference)
+            res = infer(fit, est, level=level, reference=wanted)
         except LagwiseError as exc:
             for term in fit.terms:
                 rows.append({"estimator": est.label, "family": est.spec.family, "term": term,
@@ -44,7 +56,7 @@ def compare(fit, level: float = 0.95, reference: str = "auto", kernel=None, band
         label = est.label if lr.bandwidth is None or not isinstance(
             est.params.get("bandwidth"), str) else f"{est.label.split(',')[0]}, " \
             f"{est.params['bandwidth']}"
-        if res.reference == "fixed-b" and (ref or reference) == "fixed-b":
+        if ref == "fixed-b" and res.reference == "fixed-b":
             label += ", fixed-b"
         for term, row in res.table.iterrows():
             rows.append({"estimator": label, "family": est.spec.family, "term": term,

@@ -310,3 +310,15 @@ def test_prewhitened_sweep_equals_infer(kernel):
         np.testing.assert_allclose(sw.std_error[0, i], res.table.std_error, rtol=1e-9)
     plain = fit.sweep(kernels=[kernel], bandwidths=bws)
     assert not np.allclose(plain.std_error, sw.std_error)
+
+
+def test_comparison_under_fixed_b_keeps_other_laws():
+    from engine.compare import compare
+    fit = engine.fit_ols(regression_frame(seed=5, n=200), "y", ["x1"])
+    comp = compare(fit, reference="fixed-b")
+    rows = comp[comp.term == "x1"].set_index("estimator")
+    assert np.isfinite(rows.loc["HC0", "std_error"])
+    assert rows.loc["HC0", "reference"].startswith("standard normal")
+    assert "fixed-b not defined" in rows.loc["HC0", "why"]
+    assert rows.loc["Parzen, andrews", "reference"].startswith("fixed-b")
+    assert rows.loc["Tukey-Hanning, andrews", "reference"].startswith("standard normal")
