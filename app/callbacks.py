@@ -389,6 +389,7 @@ def register(app):  # noqa: C901 - one place that wires every callback
             flips.append(html.Li(significance_flip(fit, focus, k, level, ref,
                                                    sweep_result=sw).sentence()))
         comp = comparison_for(fit, level, reference)
+        STORE.refresh_size(fkey)          # the fit now carries its caches: count them
         return fig, html.Ul(flips), F.interval_figure(comp, focus, level)
 
     @app.callback(

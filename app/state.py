@@ -42,13 +42,17 @@ def _size(obj) -> int:
     if frame is not None:
         return int(frame.memory_usage(index=True, deep=False).sum())
     total = 0
-    for attr in ("X", "q", "raw_scores", "scores"):
-        arr = getattr(obj, "__dict__", {}).get(attr)
+    attrs = getattr(obj, "__dict__", {})
+    for attr in ("X", "q", "raw_scores", "scores", "_cosine"):
+        arr = attrs.get(attr)
         if isinstance(arr, np.ndarray):
             total += arr.nbytes
-    cache = getattr(obj, "__dict__", {}).get("moments")
-    if cache is not None and getattr(cache, "_packed", None) is not None:
-        total += cache._packed.nbytes
+    for name in ("moments", "_influence"):
+        cache = attrs.get(name)
+        if cache is not None:
+            if getattr(cache, "_packed", None) is not None:
+                total += cache._packed.nbytes
+            total += sum(v[2].nbytes for v in getattr(cache, "_far", {}).values())
     return max(total, 1024)
 
 

@@ -184,3 +184,11 @@ def test_differs_style_shades_exactly_the_differing_rows(fit):
     rows = style[0]["if"]["row_index"]
     assert rows == [i for i, r in enumerate(recs) if r["verdict"] == "keeps 0"]
     assert F.differs_style([{"differs": False}]) == []
+
+
+def test_store_counts_a_fits_caches(fit):
+    from app.state import _size
+    fresh = engine.fit_ols(engine.load_table(demo_file()), "exret_1m", ["rate_capacity"])
+    before = _size(fresh)
+    fresh.moments.ensure(fresh.nobs - 1)
+    assert _size(fresh) >= before + fresh.moments._packed.nbytes
