@@ -126,9 +126,11 @@ def estimator_controls(name: str, values: dict | None = None):
 def sidebar(initial_horizon=None):
     return html.Aside([
         html.H2("Data & model", className="lw-side-title"),
-        dcc.Upload(id="upload", children=html.Div([
+        html.Div(dcc.Upload(id="upload", children=html.Div([
             html.Strong("Drop a CSV or Parquet file"), html.Span(" or click to choose")]),
             className="lw-upload", max_size=MAX_UPLOAD_BYTES, multiple=False),
+            **{"data-max-bytes": str(MAX_UPLOAD_BYTES)}),
+        html.Div(id="upload-limit-note", className="lw-message", role="alert"),
         html.P(HELP["upload"], className="lw-help"),
         html.Button("Use the demo data", id="load-demo", n_clicks=0, className="lw-btn-quiet"),
         dcc.Loading(html.Div(id="upload-message", className="lw-message"), type="dot",

@@ -182,3 +182,15 @@ def test_settings_save_and_load(page: Page, live_server, tmp_path):
     bad.write_text('{"hello": 1}')
     page.locator("#load-settings input[type=file]").set_input_files(bad)
     expect(page.locator("#settings-message .lw-error")).to_contain_text("not a Lagwise settings")
+
+
+def test_oversized_file_gets_a_message(page: Page, live_server):
+    from app.state import MAX_UPLOAD_BYTES
+    open_app(page, live_server)
+    big = b"y,x\n" + b"1.0,2.0\n" * (MAX_UPLOAD_BYTES // 8 + 10)
+    upload(page, {"name": "huge.csv", "mimeType": "text/csv", "buffer": big})
+    expect(page.locator("#upload-limit-note")).to_contain_text("the limit is 25 MB",
+                                                               timeout=20_000)
+    # nothing was loaded: the demo model is still there
+    expect(page.locator("#coef-table td[data-dash-column='term']")).to_have_text(
+        ["intercept", "rate_capacity", "credit_spread"])
