@@ -560,6 +560,7 @@ def report_html(fit, figs, tables, caption: str) -> str:
              "max-width:1050px;margin:24px auto;padding:0 16px}table{border-collapse:collapse;"
              "font-size:13px;margin:8px 0 20px}td,th{padding:4px 8px;border-bottom:1px solid "
              "#e7e4dc;text-align:right}th{background:#f1efe8}h1{color:#0e6e64}"
+             "td:first-child,th:first-child,td:last-child{text-align:left}"
              ".note{color:#6b7480;font-size:13px}</style></head><body>",
              "<h1>Lagwise report</h1>"]
     if fit is not None:

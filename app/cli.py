@@ -19,7 +19,7 @@ def _fmt(x, spec=".4g"):
 def _p(x):
     if x is None or not math.isfinite(x):
         return "."
-    return "<0.001" if x < 0.001 else f"{x:.3f}"
+    return "<=0.001" if x <= 0.001 else f"{x:.3f}"
 
 
 def render_text(fit, comp, level: float, extra_lines=()) -> str:

@@ -238,7 +238,7 @@ def fmt(x, digits=4):
 def fmt_p(p):
     if p is None or not math.isfinite(p):
         return ""
-    return "<0.001" if p < 0.001 else f"{p:.3f}"
+    return "≤0.001" if p <= 0.001 else f"{p:.3f}"
 
 
 def coefficient_records(result) -> list[dict]:
@@ -281,8 +281,8 @@ def comparison_records(comp: pd.DataFrame, term: str, current_rejects: bool | No
                     "reference": short_reference(r.reference) if ok else "",
                     "differs": bool(ok and current_rejects is not None
                                     and bool(r.rejects) != current_rejects),
-                    "note": (r.why + "; " if isinstance(r.get("why"), str) and r.why else "")
-                    + (r.note if isinstance(r.note, str) else "")})
+                    "note": "; ".join(x for x in (r.get("why"), r.note)
+                                      if isinstance(x, str) and x)})
     return out
 
 

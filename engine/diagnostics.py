@@ -36,7 +36,7 @@ class DiagnosticReport:
         out = []
         for _, r in self.tests.iterrows():
             df = "" if pd.isna(r.df) else f", df {r.df:g}"
-            p = "<0.001" if r.p_value < 0.001 else f"{r.p_value:.3f}"
+            p = "<=0.001" if r.p_value <= 0.001 else f"{r.p_value:.3f}"
             out.append(f"  {r.test:<34} {r.statistic:>10.4g}{df:<12} p = {p:<7} H0: {r.null}")
         out.append("")
         out += [f"  reading: {s}" for s in self.reading]
