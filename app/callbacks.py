@@ -487,7 +487,7 @@ def register(app):  # noqa: C901 - one place that wires every callback
             "bandwidth": slider, "reference": reference, "level": level, "focus": focus,
             "chart_mode": mode})
         if table is not None:
-            record["transforms"] = [{"column": c, "h": h} for c, h in table.horizons.items()]
+            record["transforms"] = [list(step) for step in table.transforms]
         return ({"content": settings_json(record), "filename": "lagwise_settings.json"},
                 _ok("settings saved to lagwise_settings.json"))
 
@@ -500,14 +500,19 @@ def register(app):  # noqa: C901 - one place that wires every callback
         Output("est-name", "value"), Output("bw-rule", "value", allow_duplicate=True),
         Output("bw-slider", "value", allow_duplicate=True), Output("reference", "value"),
         Output("level", "value"), Output("chart-mode", "value"),
+        Output("dataset-key", "data", allow_duplicate=True),
         Input("load-settings", "contents"), Input("pending-settings", "data"),
-        State("load-settings", "filename"), State("response", "options"),
-        prevent_initial_call="initial_duplicate")
-    def on_load_settings(contents, pending, filename, options):
-        nothing = (no_update,) * 11
+        State("load-settings", "filename"), State("dataset-key", "data"),
+        State("session", "data"), prevent_initial_call="initial_duplicate")
+    def on_load_settings(contents, pending, filename, dkey, session):
+        out = _apply_settings(contents, pending, filename, dkey, session)
+        return out
+
+    def _apply_settings(contents, pending, filename, dkey, session):
+        nothing = (no_update,) * 12
         if ctx.triggered_id == "load-settings":
             if not contents:
-                return (no_update,) * 12
+                return (no_update,) * 13
             try:
                 text = base64.b64decode(contents.split(",", 1)[1]).decode("utf-8")
                 s = load_settings(text)
@@ -516,20 +521,35 @@ def register(app):  # noqa: C901 - one place that wires every callback
         elif pending:
             s = pending
         else:
-            return (no_update,) * 12
-        cols = {o["value"] for o in (options or [])}
+            return (no_update,) * 13
+        table = get_table(session, dkey)
+        new_key = no_update
         msg = _ok(f"settings applied ({s.get('estimator')}, rule {s.get('rule')})")
-        if cols and s.get("response") not in cols:
-            msg = _error(f"settings refer to column '{s.get('response')}', which this data "
-                         "does not have; model settings left as they were")
-        ok_cols = not cols or s.get("response") in cols
+        steps = [tuple(x) for x in s.get("transforms") or [] if len(x) == 3]
+        if table is not None and steps:
+            try:
+                replayed = table.replay(steps)
+            except (engine.LagwiseError, ValueError, TypeError) as exc:
+                replayed = None
+                msg = _error(f"the saved transforms do not apply to this data: {exc}")
+            if replayed is not None and replayed is not table:
+                new_key = key_for(session, "data", spec_hash([dkey, steps]))
+                STORE.put(new_key, replayed)
+                table = replayed
+        cols = set(table.frame.columns) if table is not None else set()
+        wanted = [s.get("response")] + list(s.get("regressors") or [])
+        ok_cols = not cols or all(c in cols for c in wanted)
+        if not ok_cols:
+            missing = [c for c in wanted if c not in cols]
+            msg = _error(f"settings refer to column(s) {', '.join(map(repr, missing))}, which "
+                         "this data does not have; model settings left as they were")
         return (msg, s,
                 s.get("response") if ok_cols else no_update,
                 s.get("regressors") if ok_cols else no_update,
                 ["on"] if s.get("intercept", True) else [], s.get("horizon"),
                 s.get("estimator", "kernel"), s.get("rule", "fixed"),
                 s.get("bandwidth", 13), s.get("reference", "auto"), s.get("level", 0.95),
-                s.get("chart_mode", "t"))
+                s.get("chart_mode", "t"), new_key)
 
 
 def _label(value) -> str:

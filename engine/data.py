@@ -79,6 +79,8 @@ class Table:
     frame: pd.DataFrame
     report: LoadReport = field(default_factory=LoadReport)
     horizons: dict[str, int] = field(default_factory=dict)
+    #: transforms applied so far, in order, as (kind, column, p): replayable on other data
+    transforms: list[tuple[str, str, int]] = field(default_factory=list)
 
     @property
     def columns(self) -> list[str]:
@@ -98,7 +100,16 @@ class Table:
         horizons = dict(self.horizons)
         if horizon:
             horizons[name] = horizon
-        return replace(self, frame=frame, horizons=horizons), name
+        steps = list(self.transforms) + [(kind, column, int(p))]
+        return replace(self, frame=frame, horizons=horizons, transforms=steps), name
+
+    def replay(self, steps) -> "Table":
+        """Apply saved transforms [(kind, column, p), ...], skipping columns already present."""
+        table = self
+        for kind, column, p in steps:
+            if transform_name(kind, column, int(p)) not in table.frame.columns:
+                table, _ = table.with_transform(kind, column, int(p))
+        return table
 
 
 # --------------------------------------------------------------------------- transforms

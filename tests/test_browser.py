@@ -194,3 +194,24 @@ def test_oversized_file_gets_a_message(page: Page, live_server):
     # nothing was loaded: the demo model is still there
     expect(page.locator("#coef-table td[data-dash-column='term']")).to_have_text(
         ["intercept", "rate_capacity", "credit_spread"])
+
+
+def test_settings_replay_transforms(page: Page, live_server, tmp_path):
+    import json
+    open_app(page, live_server)
+    record = {"lagwise_settings": 1, "transforms": [["fsum", "exret_1m", 12]],
+              "response": "fsum12(exret_1m)", "regressors": ["rate_capacity"],
+              "intercept": True, "horizon": 12, "estimator": "kernel",
+              "params": {"kernel": "bartlett"}, "rule": "fixed", "bandwidth": 12,
+              "reference": "auto", "level": 0.95, "chart_mode": "t"}
+    path = tmp_path / "transformed.json"
+    path.write_text(json.dumps(record))
+    page.locator("#load-settings input[type=file]").set_input_files(path)
+    expect(page.locator("#response")).to_contain_text("fsum12(exret_1m)", timeout=20_000)
+    expect(page.locator("#coef-table td[data-dash-column='term']")).to_have_text(
+        ["intercept", "rate_capacity"], timeout=20_000)
+    table, y = engine.load_table(DEMO).with_transform("fsum", "exret_1m", 12)
+    fit = engine.fit_ols(table, y, ["rate_capacity"])
+    se = fit.infer(engine.estimator("kernel", kernel="bartlett", bandwidth=12.0)).table
+    expect(se_cell(page, 1)).to_have_text(fmt(se.loc["rate_capacity", "std_error"]),
+                                          timeout=20_000)

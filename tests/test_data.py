@@ -221,3 +221,15 @@ def test_leverage_one_flagged_not_nan():
     comp = compare(fit)
     hc3 = comp[comp.estimator == "HC3"]
     assert hc3.note.str.contains("leverage 1").all()
+
+
+def test_transforms_are_recorded_and_replayable():
+    t = load("y,x\n1,1\n2,2\n4,4\n8,8\n16,16\n")
+    t2, _ = t.with_transform("lag", "x", 1)
+    t3, name = t2.with_transform("fsum", "y", 2)
+    assert t3.transforms == [("lag", "x", 1), ("fsum", "y", 2)]
+    other = load("y,x\n3,1\n1,2\n4,0\n1,5\n5,9\n")
+    replayed = other.replay(t3.transforms)
+    assert {"lag1(x)", "fsum2(y)"} <= set(replayed.frame.columns)
+    assert replayed.horizons == {"fsum2(y)": 2}
+    assert replayed.replay(t3.transforms).frame.shape == replayed.frame.shape   # idempotent
