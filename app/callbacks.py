@@ -505,10 +505,8 @@ def register(app):  # noqa: C901 - one place that wires every callback
         State("load-settings", "filename"), State("dataset-key", "data"),
         State("session", "data"), prevent_initial_call="initial_duplicate")
     def on_load_settings(contents, pending, filename, dkey, session):
-        out = _apply_settings(contents, pending, filename, dkey, session)
-        return out
-
-    def _apply_settings(contents, pending, filename, dkey, session):
+        """Apply a settings record (uploaded, or given to `lagwise serve --settings`): replay
+        its transforms on the current data, then set the model and inference controls."""
         nothing = (no_update,) * 12
         if ctx.triggered_id == "load-settings":
             if not contents:
