@@ -235,7 +235,10 @@ def _load_csv(raw: bytes, label: str) -> Table:
         delimiter = csv.Sniffer().sniff(sample, delimiters=",;\t|").delimiter
     except csv.Error:
         delimiter = ","
-    header = next(csv.reader(io.StringIO(text), delimiter=delimiter), [])
+    try:
+        header = next(csv.reader(io.StringIO(text, newline=""), delimiter=delimiter), [])
+    except csv.Error as exc:
+        raise DataError(f"{label} could not be read as a table: {exc}") from None
     names = [h.strip() for h in header]
     if len(set(names)) != len(names):
         dup = next(h for h in names if names.count(h) > 1)

@@ -19,6 +19,27 @@ from .errors import EstimationError
 
 #: Largest T for the exact Durbin-Watson p-value (eigenvalues of a (T-k) x (T-k) matrix).
 DW_EXACT_MAX_T = 1500
+#: Fewest observations for which the diagnostics are computed at all.
+MIN_T = 10
+_NUMERIC_FAILURES = (ValueError, np.linalg.LinAlgError, ZeroDivisionError, FloatingPointError,
+                     IndexError)
+
+
+class _Section:
+    """Run one group of statistics; if the numbers cannot be computed for this fit (degenerate
+    data), say so in the notes instead of failing the whole report."""
+
+    def __init__(self, name: str, notes: list):
+        self.name, self.notes = name, notes
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, exc_type, exc, tb):
+        if exc_type is not None and issubclass(exc_type, _NUMERIC_FAILURES):
+            self.notes.append(f"{self.name}: not available for this fit ({exc})")
+            return True
+        return False
 
 
 @dataclass
@@ -116,6 +137,9 @@ def diagnose(fit, lags=None, arch_lags=None, exact_dw: bool = True) -> Diagnosti
 
     _check(fit)
     t_obs = fit.nobs
+    if t_obs < MIN_T:
+        raise EstimationError(f"residual diagnostics need at least {MIN_T} observations "
+                              f"(T = {t_obs})")
     notes = []
     lag_list = default_lags(t_obs) if lags is None else sorted({int(x) for x in np.atleast_1d(lags)})
     cap = max(1, t_obs // 5)
@@ -131,75 +155,91 @@ def diagnose(fit, lags=None, arch_lags=None, exact_dw: bool = True) -> Diagnosti
         rows.append({"test": name, "statistic": float(stat), "df": df, "p_value": float(p),
                      "null": null, "convention": convention})
 
-    lb = smd.acorr_ljungbox(e, lags=lag_list, boxpierce=True, return_df=True)
-    for h, r in lb.iterrows():
-        add(f"Ljung-Box Q({h})", r.lb_stat, h, r.lb_pvalue,
-            f"no residual autocorrelation up to lag {h}",
-            "chi-square(h); Ljung & Box (1978); statsmodels acorr_ljungbox")
-    for h, r in lb.iterrows():
-        add(f"Box-Pierce Q({h})", r.bp_stat, h, r.bp_pvalue,
-            f"no residual autocorrelation up to lag {h}", "chi-square(h); statsmodels")
+    with _Section("Ljung-Box / Box-Pierce", notes):
+        lb = smd.acorr_ljungbox(e, lags=lag_list, boxpierce=True, return_df=True)
+        for h, r in lb.iterrows():
+            add(f"Ljung-Box Q({h})", r.lb_stat, h, r.lb_pvalue,
+                f"no residual autocorrelation up to lag {h}",
+                "chi-square(h); Ljung & Box (1978); statsmodels acorr_ljungbox")
+        for h, r in lb.iterrows():
+            add(f"Box-Pierce Q({h})", r.bp_stat, h, r.bp_pvalue,
+                f"no residual autocorrelation up to lag {h}", "chi-square(h); statsmodels")
     for p in sorted({1, min(4, top), top}):
-        lm, lmp, f, fp = smd.acorr_breusch_godfrey(sm_res, nlags=p, result_object=False)
-        add(f"Breusch-Godfrey LM({p})", lm, p, lmp,
-            f"no autocorrelation of order 1..{p}",
-            "T R^2 ~ chi-square(p), pre-sample residuals set to 0 (statsmodels)")
-        add(f"Breusch-Godfrey F({p})", f, p, fp, f"no autocorrelation of order 1..{p}",
-            "F form of the same regression (statsmodels)")
-    dw = float(durbin_watson(e))
-    if exact_dw and t_obs <= DW_EXACT_MAX_T:
-        p_dw = durbin_watson_exact(fit, dw)
-        add("Durbin-Watson", dw, np.nan, p_dw, "no first-order autocorrelation",
-            "exact P(d <= observed) under normal errors, Imhof inversion; valid without "
-            "lagged responses")
-    else:
-        add("Durbin-Watson", dw, np.nan, np.nan, "no first-order autocorrelation",
-            f"statistic only: exact p-value computed for T <= {DW_EXACT_MAX_T}"
-            if exact_dw else "statistic only (exact p-value not requested)")
+        with _Section(f"Breusch-Godfrey({p})", notes):
+            lm, lmp, f, fp = smd.acorr_breusch_godfrey(sm_res, nlags=p, result_object=False)
+            add(f"Breusch-Godfrey LM({p})", lm, p, lmp,
+                f"no autocorrelation of order 1..{p}",
+                "T R^2 ~ chi-square(p), pre-sample residuals set to 0 (statsmodels)")
+            add(f"Breusch-Godfrey F({p})", f, p, fp, f"no autocorrelation of order 1..{p}",
+                "F form of the same regression (statsmodels)")
+    with _Section("Durbin-Watson", notes):
+        dw = float(durbin_watson(e))
+        if exact_dw and t_obs <= DW_EXACT_MAX_T:
+            p_dw = durbin_watson_exact(fit, dw)
+            add("Durbin-Watson", dw, np.nan, p_dw, "no first-order autocorrelation",
+                "exact P(d <= observed) under normal errors, Imhof inversion; valid without "
+                "lagged responses")
+        else:
+            add("Durbin-Watson", dw, np.nan, np.nan, "no first-order autocorrelation",
+                f"statistic only: exact p-value computed for T <= {DW_EXACT_MAX_T}"
+                if exact_dw else "statistic only (exact p-value not requested)")
     z_het = fit.X if fit.has_intercept else np.column_stack([np.ones(t_obs), fit.X])
     if z_het.shape[1] > 1:
-        lm, lmp, _, _ = smd.het_breuschpagan(e, z_het, robust=True)
-        add("Breusch-Pagan (Koenker)", lm, z_het.shape[1] - 1, lmp,
-            "error variance unrelated to the regressors",
-            "studentised, T R^2 of e^2 on X (Koenker 1981; statsmodels robust=True)")
-        lm, lmp, _, _ = smd.het_breuschpagan(e, z_het, robust=False)
-        add("Breusch-Pagan (original)", lm, z_het.shape[1] - 1, lmp,
-            "error variance unrelated to the regressors",
-            "ESS/2 of e^2/mean(e^2) on X (Breusch & Pagan 1979; statsmodels robust=False)")
-        try:
-            lm, lmp, _, _ = smd.het_white(e, z_het)
-            white_df = _white_df(z_het)
-            add("White (with cross terms)", lm, white_df, lmp,
-                "homoskedastic errors", "e^2 on levels, squares and cross products (statsmodels)")
-        except (ValueError, np.linalg.LinAlgError, AssertionError):
-            notes.append("White's test with cross terms is not available for this design")
-        lm, df, p = _white_no_cross(e, z_het)
-        add("White (no cross terms)", lm, df, p, "homoskedastic errors",
-            "e^2 on levels and squares; statsmodels' interaction_terms=False drops the levels")
+        with _Section("Breusch-Pagan", notes):
+            lm, lmp, _, _ = smd.het_breuschpagan(e, z_het, robust=True)
+            add("Breusch-Pagan (Koenker)", lm, z_het.shape[1] - 1, lmp,
+                "error variance unrelated to the regressors",
+                "studentised, T R^2 of e^2 on X (Koenker 1981; statsmodels robust=True)")
+            lm, lmp, _, _ = smd.het_breuschpagan(e, z_het, robust=False)
+            add("Breusch-Pagan (original)", lm, z_het.shape[1] - 1, lmp,
+                "error variance unrelated to the regressors",
+                "ESS/2 of e^2/mean(e^2) on X (Breusch & Pagan 1979; statsmodels robust=False)")
+        with _Section("White (with cross terms)", notes):
+            try:
+                lm, lmp, _, _ = smd.het_white(e, z_het)
+                white_df = _white_df(z_het)
+                add("White (with cross terms)", lm, white_df, lmp, "homoskedastic errors",
+                    "e^2 on levels, squares and cross products (statsmodels)")
+            except AssertionError:
+                notes.append("White's test with cross terms is not available for this design")
+        with _Section("White (no cross terms)", notes):
+            lm, df, p = _white_no_cross(e, z_het)
+            add("White (no cross terms)", lm, df, p, "homoskedastic errors",
+                "e^2 on levels and squares; statsmodels' interaction_terms=False drops the "
+                "levels")
     for q in sorted({1, min(4, top)} if arch_lags is None else set(np.atleast_1d(arch_lags))):
-        lm, p, _, _ = smd.het_arch(e, nlags=int(q), result_object=False)
-        add(f"ARCH-LM({q})", lm, q, p, "no autoregressive conditional heteroskedasticity",
-            "(T-q) R^2 of e^2 on q own lags (Engle 1982; statsmodels het_arch)")
-    tests = pd.DataFrame(rows)
+        with _Section(f"ARCH-LM({q})", notes):
+            lm, p, _, _ = smd.het_arch(e, nlags=int(q), result_object=False)
+            add(f"ARCH-LM({q})", lm, q, p, "no autoregressive conditional heteroskedasticity",
+                "(T-q) R^2 of e^2 on q own lags (Engle 1982; statsmodels het_arch)")
+    tests = pd.DataFrame(rows, columns=["test", "statistic", "df", "p_value", "null",
+                                        "convention"])
 
     nl = min(max(top, 12), t_obs - 1)
-    acf_e, conf_e = acf(e, nlags=nl, alpha=0.05, fft=True, result_object=False)
-    acf_e2, conf_e2 = acf(e**2, nlags=nl, alpha=0.05, fft=True,
-                           result_object=False)
-    acf_df = pd.DataFrame({"resid": acf_e[1:], "resid_sq": acf_e2[1:],
-                           "resid_band": conf_e[1:, 1] - acf_e[1:],
-                           "resid_sq_band": conf_e2[1:, 1] - acf_e2[1:]},
-                          index=pd.RangeIndex(1, nl + 1, name="lag"))
+    lag_index = pd.RangeIndex(1, nl + 1, name="lag")
+    acf_df = pd.DataFrame(np.nan, index=lag_index,
+                          columns=["resid", "resid_sq", "resid_band", "resid_sq_band"])
     nlp = min(nl, t_obs // 2 - 1)
-    pacf_df = pd.DataFrame({"resid": pacf(e, nlags=nlp)[1:], "resid_sq": pacf(e**2, nlags=nlp)[1:]},
-                           index=pd.RangeIndex(1, nlp + 1, name="lag"))
+    pacf_df = pd.DataFrame(np.nan, index=pd.RangeIndex(1, nlp + 1, name="lag"),
+                           columns=["resid", "resid_sq"])
+    with _Section("ACF/PACF", notes), np.errstate(all="ignore"):
+        acf_e, conf_e = acf(e, nlags=nl, alpha=0.05, fft=True, result_object=False)
+        acf_e2, conf_e2 = acf(e**2, nlags=nl, alpha=0.05, fft=True, result_object=False)
+        acf_df = pd.DataFrame({"resid": acf_e[1:], "resid_sq": acf_e2[1:],
+                               "resid_band": conf_e[1:, 1] - acf_e[1:],
+                               "resid_sq_band": conf_e2[1:, 1] - acf_e2[1:]}, index=lag_index)
+        pacf_df = pd.DataFrame({"resid": pacf(e, nlags=nlp)[1:],
+                                "resid_sq": pacf(e**2, nlags=nlp)[1:]},
+                               index=pd.RangeIndex(1, nlp + 1, name="lag"))
     bands = {"acf": "95% band by Bartlett's formula (widens with the lag)",
              "pacf": f"95% band +-1.96/sqrt(T) = {1.96 / np.sqrt(t_obs):.3f}",
              "pacf_value": 1.96 / np.sqrt(t_obs)}
     u = fit.raw_scores
-    score_acf = pd.DataFrame({t: acf(u[:, i], nlags=nl, fft=True, result_object=False)[1:] if np.ptp(u[:, i]) > 0
-                              else np.full(nl, np.nan) for i, t in enumerate(fit.terms)},
-                             index=pd.RangeIndex(1, nl + 1, name="lag"))
+    with np.errstate(all="ignore"):
+        score_acf = pd.DataFrame(
+            {t: acf(u[:, i], nlags=nl, fft=True, result_object=False)[1:]
+             if np.ptp(u[:, i]) > 0 else np.full(nl, np.nan) for i, t in enumerate(fit.terms)},
+            index=lag_index)
     from .bandwidth import select_bandwidth
     andrews = select_bandwidth(fit, "bartlett", "andrews")
     persistence = pd.DataFrame({"rho1": score_acf.iloc[0]})
@@ -233,7 +273,7 @@ def _reading(tests, acf_df, persistence, andrews, fit) -> list[str]:
     else:
         out.append("No significant residual autocorrelation at 5% (Ljung-Box): little evidence "
                    "that HAC is needed for the residuals themselves.")
-    slopes = persistence.drop(index="intercept", errors="ignore")
+    slopes = persistence.drop(index="intercept", errors="ignore").dropna()
     if len(slopes):
         worst = slopes.rho1.abs().idxmax()
         out.append(f"The moment contribution x_t e_t of '{worst}' has first-order "

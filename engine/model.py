@@ -58,7 +58,8 @@ class OLSFit:
     @single_blas_thread
     def _solve(self):
         X, y = self.X, self.y
-        norms = np.sqrt(np.einsum("ij,ij->j", X, X))
+        # scale columns by their largest absolute value (never underflows, unlike a 2-norm)
+        norms = np.abs(X).max(axis=0)
         xs = X / norms
         q, r, piv = sla.qr(xs, mode="economic", pivoting=True, check_finite=False,
                            overwrite_a=True)
@@ -68,7 +69,14 @@ class OLSFit:
         if rank < self.k:
             raise SpecificationError(_collinearity_message(r, piv, rank, self.terms))
         beta = np.empty(self.k)
-        beta[piv] = sla.solve_triangular(r, q.T @ y) / norms[piv]
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+            beta[piv] = sla.solve_triangular(r, q.T @ y) / norms[piv]
+        if not np.isfinite(beta).all():
+            bad = [self.terms[i] for i in np.flatnonzero(~np.isfinite(beta))]
+            raise SpecificationError(
+                "the coefficients cannot be represented in floating point (overflow) for "
+                + ", ".join(f"'{b}'" for b in bad) + "; rescale those columns (e.g. to "
+                "thousands or percent) and fit again")
         # one step of iterative refinement on the residual system
         step = np.empty(self.k)
         step[piv] = sla.solve_triangular(r, q.T @ (y - X @ beta)) / norms[piv]
@@ -301,6 +309,10 @@ def fit_ols(data, response: str, regressors=None, intercept: bool = True,
     if spread[0] == 0:
         raise SpecificationError(f"response '{response}' is constant ({values[0, 0]!r}): "
                                  "nothing to explain")
+    zero = [j for j in range(len(regs)) if spread[j + 1] == 0 and values[0, j + 1] == 0]
+    if zero:
+        raise SpecificationError(f"regressor '{regs[zero[0]]}' is all zeros in the sample; "
+                                 "remove it")
     constant = [j for j in range(len(regs)) if spread[j + 1] == 0]
     if constant and (intercept or len(constant) > 1):
         j = constant[-1] if not intercept else constant[0]
