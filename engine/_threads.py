@@ -8,6 +8,9 @@ small k (they spin between calls and compete with the main thread): measured, a 
 from __future__ import annotations
 
 import functools
+import os
+
+_CPUS = os.cpu_count() or 1
 
 try:
     from threadpoolctl import ThreadpoolController
@@ -33,5 +36,4 @@ def blas_threads(n: int | None = None):
     import contextlib
     if _CONTROLLER is None:  # pragma: no cover
         return contextlib.nullcontext()
-    import os
-    return _CONTROLLER.limit(limits=n or os.cpu_count() or 1, user_api="blas")
+    return _CONTROLLER.limit(limits=n or _CPUS, user_api="blas")

@@ -21,6 +21,7 @@ from .errors import EstimationError, SpecificationError
 from ._threads import single_blas_thread
 
 REFERENCES = ("auto", "normal", "t", "fixed-b")
+TABLE_COLUMNS = pd.Index(["estimate", "std_error", "t_stat", "p_value", "ci_low", "ci_high"])
 
 
 @dataclass
@@ -249,10 +250,10 @@ def infer(fit, est, level: float = 0.95, reference: str = "auto") -> Inference:
     kern = est.params.get("kernel")
     cv = critical_value(ref, level, df, kern, b_over_t)
     pv = p_values(ref, tstat, df, kern, b_over_t)
-    table = pd.DataFrame({"estimate": beta, "std_error": se, "t_stat": tstat, "p_value": pv,
-                          "ci_low": beta - cv * se, "ci_high": beta + cv * se},
-                         index=pd.Index(fit.terms, name="term"))
+    table = pd.DataFrame(np.column_stack([beta, se, tstat, pv, beta - cv * se, beta + cv * se]),
+                         index=fit.term_index, columns=TABLE_COLUMNS)
     return Inference(estimator=est, long_run=lr, params=fit.params,
-                     cov=pd.DataFrame(cov, index=fit.terms, columns=fit.terms), level=level,
+                     cov=pd.DataFrame(cov, index=fit.term_index, columns=fit.term_index),
+                     level=level,
                      reference=ref, df=df, critical_value=cv, table=table, nobs=fit.nobs,
                      k=fit.k, notes=notes, _fit=fit)

@@ -97,9 +97,14 @@ class OLSFit:
         self.leverage = np.einsum("ij,ij->i", q, q)
 
     # ------------------------------------------------------------------ summaries
+    @cached_property
+    def term_index(self) -> pd.Index:
+        """The terms as a pandas Index, built once (string Index construction is costly)."""
+        return pd.Index(self.terms, name="term")
+
     @property
     def params(self) -> pd.Series:
-        return pd.Series(self.beta, index=self.terms, name="estimate")
+        return pd.Series(self.beta, index=self.term_index, name="estimate")
 
     @property
     def residuals(self) -> pd.Series:

@@ -229,7 +229,7 @@ def _qs_far(b, theta, j0, block, n_blk, hmat, p):
     r = np.arange(block, dtype=float)
     phase = theta[:, None] * r[None, :]
     trig = np.vstack([np.cos(phase), np.sin(phase)])                 # (2 n_b, block)
-    with blas_threads():                                              # one large product
+    with blas_threads():              # one large, memory-bound product: both cores help
         inner = (trig @ hmat).reshape(2, len(b), n_blk, 2 * p)
     inner = inner[0] + 1j * inner[1]                                  # sum_r e^{i r theta} h
     start = j0 + block * np.arange(n_blk, dtype=float)

@@ -101,14 +101,20 @@ before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
 t0 = time.perf_counter()
 fit = engine.fit_ols(df, "y", [f"x{i}" for i in range(1, 10)])
 t_fit = time.perf_counter() - t0
-fit.moments.ensure(100)
-t_cache100 = time.perf_counter() - t0
-fit.moments.ensure(fit.nobs - 1)
-t_all = time.perf_counter() - t0
+t1 = time.perf_counter()
+fit.moments.ensure(100)                    # what finite kernels up to b = 101 need
+t_cache100 = time.perf_counter() - t1
+from engine.moments import MomentCache
+t2 = time.perf_counter()
+every = MomentCache(fit.scores)            # what an infinite-support kernel needs, from scratch
+every.ensure(fit.nobs - 1)
+t_all = time.perf_counter() - t2
+fit.__dict__["moments"] = every
+del df
 res = fit.infer(engine.estimator("kernel", kernel="quadratic_spectral", bandwidth=20.0))
 peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
-print(json.dumps({"fit_s": t_fit, "fit_cache_100_lags_s": t_cache100,
-                  "fit_cache_all_lags_s": t_all, "peak_rss_gib": peak / 2**20,
+print(json.dumps({"fit_s": t_fit, "fit_cache_100_lags_s": t_fit + t_cache100,
+                  "fit_cache_all_lags_s": t_fit + t_all, "peak_rss_gib": peak / 2**20,
                   "data_rss_gib": before / 2**20}))
 """
 
