@@ -19,6 +19,7 @@ from dash import ALL, Input, Output, Patch, State, ctx, html, no_update
 
 import engine
 from engine.compare import compare
+from engine.model import index_label
 from engine.export import load_settings, render, settings_json
 from engine.sweep import default_bandwidths, significance_flip
 
@@ -243,7 +244,7 @@ def register(app):  # noqa: C901 - one place that wires every callback
             i0, i1 = int(window[0]), int(min(window[1], len(frame) - 1))
             if i0 > 0 or i1 < len(frame) - 1:
                 sample = (frame.index[i0], frame.index[i1])
-            text = f"{_label(frame.index[i0])} to {_label(frame.index[i1])}"
+            text = f"{index_label(frame.index[i0])} to {index_label(frame.index[i1])}"
         if horizon in (None, "") and ctx.triggered_id == "response":
             horizon = table.horizons.get(response)
         h = int(horizon) if horizon not in (None, "") else None
@@ -548,12 +549,6 @@ def register(app):  # noqa: C901 - one place that wires every callback
                 s.get("estimator", "kernel"), s.get("rule", "fixed"),
                 s.get("bandwidth", 13), s.get("reference", "auto"), s.get("level", 0.95),
                 s.get("chart_mode", "t"), new_key)
-
-
-def _label(value) -> str:
-    if isinstance(value, pd.Timestamp):
-        return value.date().isoformat() if value == value.normalize() else str(value)
-    return str(value)
 
 
 def export_figure(fig: go.Figure, fmt: str) -> bytes:

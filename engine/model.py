@@ -206,7 +206,7 @@ def _collinearity_message(r, piv, rank, terms) -> str:
             + f". Drop one of them (e.g. '{dropped[0]}') and fit again.")
 
 
-def _label(value):
+def index_label(value):
     """Dates without a midnight time part, other labels as they are."""
     if isinstance(value, pd.Timestamp) and value == value.normalize():
         return value.date().isoformat()
@@ -331,7 +331,7 @@ def fit_ols(data, response: str, regressors=None, intercept: bool = True,
     X[:, int(intercept):] = values[:, 1:]
     y = np.ascontiguousarray(values[:, 0])
     info.rows_used = t_obs
-    info.first, info.last = (_label(index[0]), _label(index[-1]))
+    info.first, info.last = (index_label(index[0]), index_label(index[-1]))
     if horizon is None:
         horizon = horizons.get(response)
     elif isinstance(horizon, bool) or not isinstance(horizon, (int, np.integer)) or horizon < 1:
