@@ -322,10 +322,16 @@ def register(app):  # noqa: C901 - one place that wires every callback
         flip_line = ""
         kern = est.params.get("kernel") if est.spec.has_bandwidth else None
         if kern:
-            sw = sweep_for(fit, slider_top(fit.nobs), est.params.get("prewhiten", False))
+            # the flip does not depend on the slider: computed once per setting, not per move
+            pre = bool(est.params.get("prewhiten", False))
             ref = "fixed-b" if res.reference == "fixed-b" else "normal"
-            flip = significance_flip(fit, focus, kern, level, ref, sweep_result=sw)
-            flip_line = flip.sentence()
+            flips = app_cache(fit).setdefault("flips", {})
+            key = (pre, focus, kern, level, ref)
+            if key not in flips:
+                sw = sweep_for(fit, slider_top(fit.nobs), pre)
+                flips[key] = significance_flip(fit, focus, kern, level, ref,
+                                               sweep_result=sw).sentence()
+            flip_line = flips[key]
         verdict = ("rejects β = 0" if rejects else "does not reject β = 0") \
             if rejects is not None else "no usable standard error"
         headline = [

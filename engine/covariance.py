@@ -95,9 +95,6 @@ class Estimator:
     def long_run(self, fit) -> longrun.LongRun:
         return self.spec.compute(fit, **self.params)
 
-    def with_params(self, **changes) -> "Estimator":
-        return estimator(self.name, **{**self.params, **changes})
-
     def __repr__(self):
         return f"estimator({self.name!r}, " + ", ".join(f"{k}={v!r}" for k, v in
                                                         self.params.items()) + ")"
