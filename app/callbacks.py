@@ -17,11 +17,11 @@ import pandas as pd
 import plotly.graph_objects as go
 from dash import ALL, Input, Output, Patch, State, ctx, html, no_update
 
-import engine
-from engine.compare import compare
-from engine.model import index_label
-from engine.export import load_settings, render, settings_json
-from engine.sweep import default_bandwidths, significance_flip
+from .. import engine
+from ..engine.compare import compare
+from ..engine.model import index_label
+from ..engine.export import load_settings, render, settings_json
+from ..engine.sweep import default_bandwidths, significance_flip
 
 from . import figures as F
 from .layout import estimator_controls
@@ -149,7 +149,7 @@ def register(app):  # noqa: C901 - one place that wires every callback
 
     def _on_upload(contents, filename, session):
         if ctx.triggered_id == "load-demo":
-            from lagwise_assets import demo_file
+            from .._files import demo_file
             path = demo_file()
             key, table = dataset_from_bytes(session, path.read_bytes(), path.name)
             return key, _ok(f"loaded the demo data ({len(table.frame)} rows, simulated)")
@@ -413,7 +413,7 @@ def register(app):  # noqa: C901 - one place that wires every callback
         cache = app_cache(fit)
         try:
             if "diag" not in cache:
-                from engine.diagnostics import diagnose
+                from ..engine.diagnostics import diagnose
                 with warnings.catch_warnings():
                     warnings.simplefilter("ignore")
                     cache["diag"] = diagnose(fit)

@@ -68,9 +68,9 @@ def _bandwidth_arg(text):
 
 
 def cmd_table(args) -> int:
-    import engine
-    from engine.compare import compare
-    from engine.export import render
+    from .. import engine
+    from ..engine.compare import compare
+    from ..engine.export import render
 
     table = engine.load_table(args.file)
     for spec in args.transform or []:
@@ -87,10 +87,10 @@ def cmd_table(args) -> int:
     comp = compare(fit, level=args.level, reference=args.reference, kernel=args.kernel,
                    bandwidth=bandwidth)
     extra = []
-    from engine.sweep import flip_summary
+    from ..engine.sweep import flip_summary
     extra = flip_summary(fit, args.kernel or "bartlett", level=args.level)
     try:
-        from engine.diagnostics import diagnose
+        from ..engine.diagnostics import diagnose
         report = diagnose(fit)
         extra = list(extra) + ["", "Residual diagnostics"] + report.lines()
     except ImportError:
@@ -111,7 +111,7 @@ def cmd_table(args) -> int:
 
 
 def cmd_serve(args) -> int:
-    from app.main import serve
+    from .main import serve
     return serve(args.file, host=args.host, port=args.port, debug=args.debug,
                  settings=args.settings)
 
@@ -152,7 +152,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv=None) -> int:
-    import engine
+    from .. import engine
     args = build_parser().parse_args(argv)
     try:
         return args.func(args)

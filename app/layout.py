@@ -4,8 +4,8 @@ from __future__ import annotations
 
 from dash import dash_table, dcc, html
 
-from engine import BANDWIDTH_RULES, ESTIMATORS, KERNELS, TRANSFORMS
-from engine.covariance import Param
+from ..engine import BANDWIDTH_RULES, ESTIMATORS, KERNELS, TRANSFORMS
+from ..engine.covariance import Param
 
 from .state import MAX_UPLOAD_BYTES
 

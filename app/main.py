@@ -7,7 +7,7 @@ from pathlib import Path
 
 from dash import Dash
 
-from lagwise_assets import assets_dir, demo_file
+from .._files import assets_dir, demo_file
 
 from . import callbacks
 from .layout import build_layout
@@ -49,10 +49,10 @@ def serve(file=None, host: str = "127.0.0.1", port: int = 8050, debug: bool = Fa
           settings=None) -> int:
     settings_record = None
     if settings:
-        from engine.export import load_settings
+        from ..engine.export import load_settings
         settings_record = load_settings(Path(settings).read_text())
     if file:
-        import engine
+        from .. import engine
         engine.load_table(file)            # fail early with a clear message
     app = create_app(file, settings_record)
     if host not in ("127.0.0.1", "localhost", "::1"):

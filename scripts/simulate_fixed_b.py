@@ -20,9 +20,7 @@ from pathlib import Path
 import numpy as np
 import scipy.fft as sfft
 
-import sys
-sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
-from engine.kernels import get_kernel  # noqa: E402
+from lagwise.engine.kernels import get_kernel
 
 KERNELS = ["bartlett", "parzen", "quadratic_spectral"]
 B_GRID = [0.005, 0.01, 0.02, 0.03, 0.04, 0.05, 0.06, 0.08, 0.10, 0.12, 0.14, 0.16, 0.18, 0.20,

@@ -53,7 +53,7 @@ def _serve(app):
 
 @pytest.fixture(scope="session")
 def live_server():
-    from app import create_app
+    from lagwise.app import create_app
     srv, t = _serve(create_app())
     yield f"http://127.0.0.1:{srv.server_port}"
     srv.shutdown()

@@ -15,17 +15,17 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import engine
-from app import figures as F
-from app.callbacks import make_estimator, param_values, report_html
-from app.state import Store, key_for, owned
-from engine.compare import compare
-from lagwise_assets import assets_dir, demo_file
+import lagwise
+from lagwise.app import figures as F
+from lagwise.app.callbacks import make_estimator, param_values, report_html
+from lagwise.app.state import Store, key_for, owned
+from lagwise.engine.compare import compare
+from lagwise._files import assets_dir, demo_file
 
 
 @pytest.fixture(scope="module")
 def fit():
-    return engine.fit_ols(engine.load_table(demo_file()), "exret_12m",
+    return lagwise.fit_ols(lagwise.load_table(demo_file()), "exret_12m",
                           ["rate_capacity", "credit_spread"], horizon=12)
 
 
@@ -80,7 +80,7 @@ def test_interval_figure_and_comparison_records(fit):
 
 
 def test_coefficient_records_are_the_engine_numbers(fit):
-    res = fit.infer(engine.estimator("kernel", kernel="parzen", bandwidth=9))
+    res = fit.infer(lagwise.estimator("kernel", kernel="parzen", bandwidth=9))
     recs = F.coefficient_records(res)
     assert [r["term"] for r in recs] == fit.terms
     assert recs[1]["std_error"] == f"{res.table.std_error.iloc[1]:.4g}"
@@ -98,7 +98,7 @@ def test_estimator_from_controls():
     assert est.params["bandwidth"] == "andrews"
     vid = [{"type": "est-param", "name": "max_lag"}, {"type": "est-param", "name": "criterion"}]
     assert param_values("var", ["auto", "aic"], vid) == {"max_lag": None, "criterion": "aic"}
-    with pytest.raises(engine.SpecificationError):
+    with pytest.raises(lagwise.SpecificationError):
         make_estimator("ewc", ["many"], [{"type": "est-param", "name": "terms"}], "fixed", 3)
 
 
@@ -114,7 +114,7 @@ def test_store_is_bounded_and_session_scoped():
 
 
 def test_report_html_is_self_contained(fit):
-    res = fit.infer(engine.estimator("hc1"))
+    res = fit.infer(lagwise.estimator("hc1"))
     fig = F.residual_figure(fit)
     html = report_html(fit, [fig], [F.coefficient_records(res), [], []], res.describe())
     assert html.startswith("<!doctype html>") and "<table" in html and "HC1" in html
@@ -131,10 +131,8 @@ def test_serve_from_another_directory_finds_css_and_demo(tmp_path):
     """The installed console script (CI installs the package non-editable) started outside the
     checkout serves the page, its CSS and the bundled demo data; bound to 127.0.0.1."""
     script = shutil.which("lagwise", path=str(Path(sys.executable).parent))
-    cmd = [script] if script else [sys.executable, "-m", "app.cli"]
+    cmd = [script] if script else [sys.executable, "-m", "lagwise.app.cli"]
     env = dict(os.environ)
-    if not script:
-        env["PYTHONPATH"] = str(Path(__file__).resolve().parent.parent)
     port = _free_port()
     proc = subprocess.Popen(cmd + ["serve", "--port", str(port)], cwd=tmp_path, env=env,
                             stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
@@ -161,9 +159,9 @@ def test_serve_from_another_directory_finds_css_and_demo(tmp_path):
 
 
 def test_create_app_with_settings_file(tmp_path):
-    from app.cli import build_parser
-    from app.main import create_app
-    from engine.export import load_settings, settings_json
+    from lagwise.app.cli import build_parser
+    from lagwise.app.main import create_app
+    from lagwise.engine.export import load_settings, settings_json
     record = {"response": "exret_1m", "regressors": ["credit_spread"], "estimator": "ewc",
               "params": {"terms": 12}, "rule": "fixed", "level": 0.9}
     path = tmp_path / "s.json"
@@ -187,8 +185,8 @@ def test_differs_style_shades_exactly_the_differing_rows(fit):
 
 
 def test_store_counts_a_fits_caches(fit):
-    from app.state import _size
-    fresh = engine.fit_ols(engine.load_table(demo_file()), "exret_1m", ["rate_capacity"])
+    from lagwise.app.state import _size
+    fresh = lagwise.fit_ols(lagwise.load_table(demo_file()), "exret_1m", ["rate_capacity"])
     before = _size(fresh)
     fresh.moments.ensure(fresh.nobs - 1)
     assert _size(fresh) >= before + fresh.moments._packed.nbytes

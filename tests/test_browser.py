@@ -8,9 +8,9 @@ from pathlib import Path
 import pytest
 from playwright.sync_api import Page, expect
 
-import engine
-from app.figures import fmt
-from lagwise_assets import demo_file
+import lagwise
+from lagwise.app.figures import fmt
+from lagwise._files import demo_file
 
 pytestmark = pytest.mark.browser
 DEMO = demo_file()
@@ -31,8 +31,8 @@ def se_cell(page: Page, term_index: int):
 
 
 def engine_se(response, regs, term, **est):
-    fit = engine.fit_ols(engine.load_table(DEMO), response, regs)
-    return fmt(fit.infer(engine.estimator("kernel", **est)).table.loc[term, "std_error"])
+    fit = lagwise.fit_ols(lagwise.load_table(DEMO), response, regs)
+    return fmt(fit.infer(lagwise.estimator("kernel", **est)).table.loc[term, "std_error"])
 
 
 def open_app(page: Page, url: str):
@@ -76,8 +76,8 @@ def test_upload_model_slider_rule(page: Page, live_server):
         ".layout.shapes[0].x0 === 15")
     # switch the bandwidth rule to Andrews: the slider jumps to where the rule landed
     choose(page, "bw-rule", "Andrews (1991)")
-    fit = engine.fit_ols(engine.load_table(DEMO), "exret_36m", ["rate_capacity"])
-    b = engine.select_bandwidth(fit, "bartlett", "andrews").b
+    fit = lagwise.fit_ols(lagwise.load_table(DEMO), "exret_36m", ["rate_capacity"])
+    b = lagwise.select_bandwidth(fit, "bartlett", "andrews").b
     expect(thumb).to_have_attribute("aria-valuenow", str(int(round(b))), timeout=20_000)
     expect(se_cell(page, 1)).to_have_text(
         engine_se("exret_36m", ["rate_capacity"], "rate_capacity", kernel="bartlett",
@@ -173,8 +173,8 @@ def test_settings_save_and_load(page: Page, live_server, tmp_path):
     expect(page.locator("#bw-slider [role=slider]")).to_have_attribute("aria-valuenow", "30")
     expect(page.locator("#coef-caption")).to_contain_text("Parzen, b = 30", timeout=20_000)
     expect(page.locator("#coef-table td[data-dash-column='interval']").nth(1)).to_be_visible()
-    fit = engine.fit_ols(engine.load_table(DEMO), "exret_12m", ["rate_capacity", "credit_spread"])
-    res = fit.infer(engine.estimator("kernel", kernel="parzen", bandwidth=30.0), level=0.99)
+    fit = lagwise.fit_ols(lagwise.load_table(DEMO), "exret_12m", ["rate_capacity", "credit_spread"])
+    res = fit.infer(lagwise.estimator("kernel", kernel="parzen", bandwidth=30.0), level=0.99)
     lo = fmt(res.table.loc["rate_capacity", "ci_low"])
     expect(page.locator("#coef-table td[data-dash-column='interval']").nth(1)).to_contain_text(lo)
     # a file that is not a settings record gives a message, not a crash
@@ -185,7 +185,7 @@ def test_settings_save_and_load(page: Page, live_server, tmp_path):
 
 
 def test_oversized_file_gets_a_message(page: Page, live_server):
-    from app.state import MAX_UPLOAD_BYTES
+    from lagwise.app.state import MAX_UPLOAD_BYTES
     open_app(page, live_server)
     big = b"y,x\n" + b"1.0,2.0\n" * (MAX_UPLOAD_BYTES // 8 + 10)
     upload(page, {"name": "huge.csv", "mimeType": "text/csv", "buffer": big})
@@ -210,8 +210,8 @@ def test_settings_replay_transforms(page: Page, live_server, tmp_path):
     expect(page.locator("#response")).to_contain_text("fsum12(exret_1m)", timeout=20_000)
     expect(page.locator("#coef-table td[data-dash-column='term']")).to_have_text(
         ["intercept", "rate_capacity"], timeout=20_000)
-    table, y = engine.load_table(DEMO).with_transform("fsum", "exret_1m", 12)
-    fit = engine.fit_ols(table, y, ["rate_capacity"])
-    se = fit.infer(engine.estimator("kernel", kernel="bartlett", bandwidth=12.0)).table
+    table, y = lagwise.load_table(DEMO).with_transform("fsum", "exret_1m", 12)
+    fit = lagwise.fit_ols(table, y, ["rate_capacity"])
+    se = fit.infer(lagwise.estimator("kernel", kernel="bartlett", bandwidth=12.0)).table
     expect(se_cell(page, 1)).to_have_text(fmt(se.loc["rate_capacity", "std_error"]),
                                           timeout=20_000)

@@ -7,10 +7,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import engine
-from app.cli import main
-from engine.export import to_csv, to_latex, to_markdown, render
-from lagwise_assets import demo_file
+import lagwise
+from lagwise.app.cli import main
+from lagwise.engine.export import to_csv, to_latex, to_markdown, render
+from lagwise._files import demo_file
 
 DEMO = str(demo_file())
 
@@ -22,7 +22,7 @@ def test_table_command_prints_comparison(capsys):
     assert rc == 0
     assert "== rate_capacity" in out and "HC3" in out and "Quadratic Spectral" in out
     # the numbers printed are the engine's numbers
-    fit = engine.fit_ols(engine.load_table(DEMO), "exret_12m", ["rate_capacity", "credit_spread"])
+    fit = lagwise.fit_ols(lagwise.load_table(DEMO), "exret_12m", ["rate_capacity", "credit_spread"])
     se = fit.infer("hc1").table.loc["rate_capacity", "std_error"]
     assert f"{se:.4g}" in out
     # overlapping response: truncated with L = h - 1 = 11 lags and Bartlett with L = h = 12
@@ -51,7 +51,7 @@ def test_table_command_transform_and_errors(capsys):
 
 
 def test_console_script_runs_as_module():
-    res = subprocess.run([sys.executable, "-m", "app.cli", "table", DEMO, "--response",
+    res = subprocess.run([sys.executable, "-m", "lagwise.app.cli", "table", DEMO, "--response",
                           "exret_1m", "--regressors", "credit_spread"],
                          capture_output=True, text=True, timeout=120)
     assert res.returncode == 0, res.stderr

@@ -6,12 +6,12 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import engine
-from engine import DataError, SpecificationError
+import lagwise
+from lagwise import DataError, SpecificationError
 
 
 def load(text, **kw):
-    return engine.load_table(text.encode(), name="t.csv", **kw)
+    return lagwise.load_table(text.encode(), name="t.csv", **kw)
 
 
 def test_semicolon_and_decimal_comma():
@@ -56,7 +56,7 @@ def test_parquet_roundtrip(tmp_path):
     df = pd.DataFrame({"y": [1.0, 2.0, 4.0], "x": [1, 2, 3], "tag": ["a", "b", "c"]})
     path = tmp_path / "d.parquet"
     df.to_parquet(path)
-    t = engine.load_table(path)
+    t = lagwise.load_table(path)
     assert t.report.file_format == "parquet"
     np.testing.assert_allclose(t.frame["y"], df["y"])
     assert "tag" in t.report.non_numeric
@@ -74,17 +74,17 @@ def test_parquet_roundtrip(tmp_path):
 ])
 def test_malformed_files_raise_data_error(raw, needle):
     with pytest.raises(DataError, match=needle):
-        engine.load_table(raw, name="bad")
+        lagwise.load_table(raw, name="bad")
 
 
 def test_huge_file_rejected():
     with pytest.raises(DataError, match="limit"):
-        engine.load_table(b"y\n" + b"1\n" * 1000, max_bytes=100)
+        lagwise.load_table(b"y\n" + b"1\n" * 1000, max_bytes=100)
 
 
 def test_missing_path():
     with pytest.raises(DataError, match="no such file"):
-        engine.load_table("/nonexistent/file.csv")
+        lagwise.load_table("/nonexistent/file.csv")
 
 
 def test_transforms_values_and_names():
@@ -93,15 +93,15 @@ def test_transforms_values_and_names():
     assert name == "fsum2(y)" and t2.horizons[name] == 2
     np.testing.assert_allclose(t2.frame[name].to_numpy()[:3], [6, 12, 24])
     assert t2.frame[name].isna().sum() == 2
-    _, lag = engine.transform(t.frame, "lag", "y", 1)[:2]
+    _, lag = lagwise.transform(t.frame, "lag", "y", 1)[:2]
     np.testing.assert_allclose(lag.to_numpy()[1:], [1, 2, 4, 8])
-    _, lead = engine.transform(t.frame, "lead", "y", 2)[:2]
+    _, lead = lagwise.transform(t.frame, "lead", "y", 2)[:2]
     np.testing.assert_allclose(lead.to_numpy()[:3], [4, 8, 16])
-    _, d = engine.transform(t.frame, "diff", "y")[:2]
+    _, d = lagwise.transform(t.frame, "diff", "y")[:2]
     np.testing.assert_allclose(d.to_numpy()[1:], [1, 2, 4, 8])
-    _, dl = engine.transform(t.frame, "dlog", "y")[:2]
+    _, dl = lagwise.transform(t.frame, "dlog", "y")[:2]
     np.testing.assert_allclose(dl.to_numpy()[1:], np.log(2))
-    _, lg = engine.transform(t.frame, "log", "y")[:2]
+    _, lg = lagwise.transform(t.frame, "log", "y")[:2]
     np.testing.assert_allclose(lg.to_numpy(), np.log([1, 2, 4, 8, 16]))
 
 
@@ -129,51 +129,51 @@ def table():
                         "const": 5.0, "label": ["a"] * n, "empty": [np.nan] * n})
     buf = io.StringIO()
     csv.to_csv(buf, index=False)
-    return engine.load_table(buf.getvalue().encode(), name="m.csv")
+    return lagwise.load_table(buf.getvalue().encode(), name="m.csv")
 
 
 def test_collinear_regressors_named(table):
     with pytest.raises(SpecificationError) as err:
-        engine.fit_ols(table, "y", ["x1", "x2", "x3"])
+        lagwise.fit_ols(table, "y", ["x1", "x2", "x3"])
     msg = str(err.value)
     assert "collinear" in msg and "'x3'" in msg and "'x1'" in msg and "'x2'" in msg
 
 
 def test_constant_regressor_named(table):
     with pytest.raises(SpecificationError, match="'const' is constant"):
-        engine.fit_ols(table, "y", ["x1", "const"])
+        lagwise.fit_ols(table, "y", ["x1", "const"])
 
 
 def test_non_numeric_column_named(table):
     with pytest.raises(DataError, match="'label' is not numeric.*'a'"):
-        engine.fit_ols(table, "y", ["label"])
+        lagwise.fit_ols(table, "y", ["label"])
 
 
 def test_all_missing_column_named(table):
     with pytest.raises(DataError, match="'empty' has no values"):
-        engine.fit_ols(table, "y", ["x1", "empty"])
+        lagwise.fit_ols(table, "y", ["x1", "empty"])
 
 
 def test_unknown_column_named(table):
     with pytest.raises(SpecificationError, match="no column named 'nope'"):
-        engine.fit_ols(table, "y", ["nope"])
+        lagwise.fit_ols(table, "y", ["nope"])
 
 
 def test_more_coefficients_than_rows():
     df = pd.DataFrame({"y": [1.0, 2.0, 3.0], "a": [1.0, 0.0, 2.0], "b": [0.0, 1.0, 5.0]})
     with pytest.raises(SpecificationError, match="3 coefficients but only 3 usable rows"):
-        engine.fit_ols(df, "y", ["a", "b"])
+        lagwise.fit_ols(df, "y", ["a", "b"])
 
 
 def test_constant_response(table):
     with pytest.raises(SpecificationError, match="response 'const' is constant"):
-        engine.fit_ols(table, "const", ["x1"])
+        lagwise.fit_ols(table, "const", ["x1"])
 
 
 def test_missing_rows_dropped_and_counted():
     df = pd.DataFrame({"y": [1.0, 2.0, np.nan, 4.0, 5.0, 3.0, 1.0],
                        "x": [np.nan, 1.0, 2.0, 3.0, 1.0, 2.0, 5.0]})
-    fit = engine.fit_ols(df, "y", ["x"])
+    fit = lagwise.fit_ols(df, "y", ["x"])
     assert fit.nobs == 5 and fit.sample.dropped_missing == 2
     assert fit.sample.dropped_interior == 1
     assert any("treated as consecutive" in n for n in fit.sample.notes)
@@ -182,42 +182,42 @@ def test_missing_rows_dropped_and_counted():
 def test_infinite_values_rejected():
     df = pd.DataFrame({"y": [1.0, 2.0, 3.0, 4.0], "x": [1.0, np.inf, 2.0, 0.0]})
     with pytest.raises(DataError, match="'x' contains infinite"):
-        engine.fit_ols(df, "y", ["x"])
+        lagwise.fit_ols(df, "y", ["x"])
 
 
 def test_sample_window():
     t = load("month,y,x\n" + "\n".join(f"2020-{m:02d}-01,{m * 1.5 + (m % 3)},{m}" for m in
                                         range(1, 13)) + "\n")
-    fit = engine.fit_ols(t, "y", ["x"], sample=("2020-03-01", "2020-10-01"))
+    fit = lagwise.fit_ols(t, "y", ["x"], sample=("2020-03-01", "2020-10-01"))
     assert fit.nobs == 8 and fit.sample.dropped_window == 4
     assert fit.sample.first == "2020-03-01"
 
 
 def test_bad_estimator_settings_are_typed():
     with pytest.raises(SpecificationError, match="unknown estimator 'hc9'"):
-        engine.estimator("hc9")
+        lagwise.estimator("hc9")
     with pytest.raises(SpecificationError, match="kernel='cosine'"):
-        engine.estimator("kernel", kernel="cosine")
+        lagwise.estimator("kernel", kernel="cosine")
     with pytest.raises(SpecificationError, match="bandwidth must be a positive number"):
-        engine.estimator("kernel", bandwidth=-2)
+        lagwise.estimator("kernel", bandwidth=-2)
     with pytest.raises(SpecificationError, match="unknown bandwidth rule 'magic'"):
-        engine.estimator("kernel", bandwidth="magic")
+        lagwise.estimator("kernel", bandwidth="magic")
     with pytest.raises(SpecificationError, match="no parameter 'lag'"):
-        engine.estimator("kernel", lag=3)
+        lagwise.estimator("kernel", lag=3)
     with pytest.raises(SpecificationError, match="lags must be a whole number"):
-        engine.estimator("kernel", lags=-1)
+        lagwise.estimator("kernel", lags=-1)
     with pytest.raises(SpecificationError, match="takes no parameters"):
-        engine.estimator("hc0", bandwidth=3)
+        lagwise.estimator("hc0", bandwidth=3)
 
 
 def test_leverage_one_flagged_not_nan():
     df = pd.DataFrame({"y": [1.0, 2.0, 1.5, 3.0, 2.5, 9.0],
                        "x": [1.0, 2.0, 3.0, 4.0, 5.0, 6.0],
                        "d": [0, 0, 0, 0, 0, 1.0]})
-    fit = engine.fit_ols(df, "y", ["x", "d"])
-    with pytest.raises(engine.EstimationError, match="leverage 1.*row"):
+    fit = lagwise.fit_ols(df, "y", ["x", "d"])
+    with pytest.raises(lagwise.EstimationError, match="leverage 1.*row"):
         fit.infer("hc3")
-    from engine.compare import compare
+    from lagwise.engine.compare import compare
     comp = compare(fit)
     hc3 = comp[comp.estimator == "HC3"]
     assert hc3.note.str.contains("leverage 1").all()

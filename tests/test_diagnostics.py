@@ -9,14 +9,14 @@ import statsmodels.api as sm
 from statsmodels.stats import diagnostic as smd
 from statsmodels.stats.stattools import durbin_watson
 
-import engine
-from engine.diagnostics import diagnose, durbin_watson_exact
+import lagwise
+from lagwise.engine.diagnostics import diagnose, durbin_watson_exact
 from tests.helpers import ar1, regression_frame
 
 
 @pytest.fixture(scope="module")
 def fit():
-    return engine.fit_ols(regression_frame(seed=31, n=160, k=2, rho_e=0.3), "y", ["x1", "x2"])
+    return lagwise.fit_ols(regression_frame(seed=31, n=160, k=2, rho_e=0.3), "y", ["x1", "x2"])
 
 
 @pytest.fixture(scope="module")
@@ -87,7 +87,7 @@ def test_durbin_watson_exact_p_value_against_monte_carlo():
     P(d <= d_obs) has s.e. <= 0.0036; tolerance 0.012."""
     rng = np.random.default_rng(4)
     df = regression_frame(seed=9, n=40, k=2, rho_e=0.4, het=False)
-    fit = engine.fit_ols(df, "y", ["x1", "x2"])
+    fit = lagwise.fit_ols(df, "y", ["x1", "x2"])
     d_obs = float(np.sum(np.diff(fit.resid) ** 2) / (fit.resid @ fit.resid))
     exact = durbin_watson_exact(fit, d_obs)
     q, _ = np.linalg.qr(fit.X)
@@ -118,7 +118,7 @@ def test_size_under_iid_homoskedastic_errors():
     1.3 points; the bounds allow for finite-sample size distortion)."""
     def make(rng):
         x = rng.standard_normal(200)
-        return engine.fit_ols(pd.DataFrame({"y": 1 + 0.5 * x + rng.standard_normal(200),
+        return lagwise.fit_ols(pd.DataFrame({"y": 1 + 0.5 * x + rng.standard_normal(200),
                                             "x": x}), "y", ["x"])
     rates = _rates(make, 300, ALL, 101)
     print("\nDIAG size", rates)
@@ -130,13 +130,13 @@ def test_size_under_iid_homoskedastic_errors():
 def test_power_against_ar1_and_heteroskedastic_errors():
     def make_ar(rng):
         x = rng.standard_normal(500)
-        return engine.fit_ols(pd.DataFrame({"y": x + ar1(rng, 500, 0.5), "x": x}), "y", ["x"])
+        return lagwise.fit_ols(pd.DataFrame({"y": x + ar1(rng, 500, 0.5), "x": x}), "y", ["x"])
 
     def make_het(rng):
         # variance proportional to x^2 with x > 0, so the variance also moves with x itself
         # (Breusch-Pagan regresses e^2 on the levels)
         x = rng.uniform(0.5, 3.0, 500)
-        return engine.fit_ols(pd.DataFrame({"y": x + np.abs(x) * rng.standard_normal(500),
+        return lagwise.fit_ols(pd.DataFrame({"y": x + np.abs(x) * rng.standard_normal(500),
                                             "x": x}), "y", ["x"])
     ac = _rates(make_ar, 40, ["Ljung-Box Q(4)", "Box-Pierce Q(4)", "Breusch-Godfrey LM(4)"], 7)
     het = _rates(make_het, 40, ["Breusch-Pagan (Koenker)", "White (with cross terms)",
@@ -147,11 +147,11 @@ def test_power_against_ar1_and_heteroskedastic_errors():
 
 def test_edge_cases():
     x = np.arange(1.0, 21.0)
-    perfect = engine.fit_ols(pd.DataFrame({"y": 2 * x + 1, "x": x}), "y", ["x"])
-    with pytest.raises(engine.EstimationError, match="perfectly"):
+    perfect = lagwise.fit_ols(pd.DataFrame({"y": 2 * x + 1, "x": x}), "y", ["x"])
+    with pytest.raises(lagwise.EstimationError, match="perfectly"):
         diagnose(perfect)
     rng = np.random.default_rng(0)
-    short = engine.fit_ols(pd.DataFrame({"y": rng.standard_normal(15), "x": x[:15]}), "y", ["x"])
+    short = lagwise.fit_ols(pd.DataFrame({"y": rng.standard_normal(15), "x": x[:15]}), "y", ["x"])
     rep = diagnose(short, lags=[1, 12])
     assert any("capped" in n for n in rep.notes)
     assert rep.tests.test.str.contains("Ljung-Box Q\\(3\\)").any()

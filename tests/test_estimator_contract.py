@@ -5,8 +5,8 @@ for estimators with a bandwidth, clear errors for bad parameters, complete metad
 import numpy as np
 import pytest
 
-import engine
-from engine.covariance import ESTIMATORS
+import lagwise
+from lagwise.engine.covariance import ESTIMATORS
 from tests.helpers import regression_frame
 
 SPECS = list(ESTIMATORS.values())
@@ -19,10 +19,10 @@ def df():
 
 def configs(spec):
     """Default configuration plus every choice of each choice parameter."""
-    out = [engine.estimator(spec.name)]
+    out = [lagwise.estimator(spec.name)]
     for p in spec.params:
         if p.kind == "choice":
-            out += [engine.estimator(spec.name, **{p.name: c}) for c in p.choices]
+            out += [lagwise.estimator(spec.name, **{p.name: c}) for c in p.choices]
     return out
 
 
@@ -36,7 +36,7 @@ def test_metadata_complete(spec):
 
 @pytest.mark.parametrize("spec", SPECS, ids=lambda s: s.name)
 def test_psd_where_claimed(spec, df):
-    fit = engine.fit_ols(df, "y", ["x1", "x2", "x3"])
+    fit = lagwise.fit_ols(df, "y", ["x1", "x2", "x3"])
     for est in configs(spec):
         res = fit.infer(est)
         if est.psd:
@@ -47,9 +47,9 @@ def test_psd_where_claimed(spec, df):
 @pytest.mark.parametrize("spec", SPECS, ids=lambda s: s.name)
 def test_scale_and_permutation(spec, df):
     regs = ["x1", "x2", "x3"]
-    base = engine.fit_ols(df, "y", regs)
-    scaled = engine.fit_ols(df.assign(y=-3.0 * df.y), "y", regs)
-    permuted = engine.fit_ols(df, "y", ["x3", "x1", "x2"])
+    base = lagwise.fit_ols(df, "y", regs)
+    scaled = lagwise.fit_ols(df.assign(y=-3.0 * df.y), "y", regs)
+    permuted = lagwise.fit_ols(df, "y", ["x3", "x1", "x2"])
     for est in configs(spec):
         a = base.infer(est).table
         np.testing.assert_allclose(scaled.infer(est).table.std_error, 3.0 * a.std_error,
@@ -60,22 +60,22 @@ def test_scale_and_permutation(spec, df):
 
 @pytest.mark.parametrize("spec", [s for s in SPECS if s.has_bandwidth], ids=lambda s: s.name)
 def test_sweep_equals_infer(spec, df):
-    fit = engine.fit_ols(df, "y", ["x1", "x2", "x3"])
+    fit = lagwise.fit_ols(df, "y", ["x1", "x2", "x3"])
     bws = [1.0, 3.5, 12.0]
-    for kernel in engine.KERNELS:
+    for kernel in lagwise.KERNELS:
         sw = fit.sweep(kernels=[kernel], bandwidths=bws)
         for i, b in enumerate(bws):
-            res = fit.infer(engine.estimator(spec.name, kernel=kernel, bandwidth=b))
+            res = fit.infer(lagwise.estimator(spec.name, kernel=kernel, bandwidth=b))
             np.testing.assert_allclose(sw.std_error[0, i], res.table.std_error, rtol=1e-9)
 
 
 @pytest.mark.parametrize("spec", SPECS, ids=lambda s: s.name)
 def test_bad_parameters_raise_clear_errors(spec):
-    with pytest.raises(engine.SpecificationError, match="no parameter 'nonsense'"):
-        engine.estimator(spec.name, nonsense=1)
+    with pytest.raises(lagwise.SpecificationError, match="no parameter 'nonsense'"):
+        lagwise.estimator(spec.name, nonsense=1)
     for p in spec.params:
         bad = {"choice": "no-such-choice", "bool": "yes", "int": "three", "float": "x",
                "bandwidth": -1.0, "int_or_rule": "three"}[p.kind]
-        with pytest.raises(engine.SpecificationError, match=p.name if p.kind != "bandwidth"
+        with pytest.raises(lagwise.SpecificationError, match=p.name if p.kind != "bandwidth"
                            else "bandwidth"):
-            engine.estimator(spec.name, **{p.name: bad})
+            lagwise.estimator(spec.name, **{p.name: bad})

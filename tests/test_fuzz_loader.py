@@ -6,7 +6,7 @@ import string
 import numpy as np
 from hypothesis import HealthCheck, given, settings, strategies as st
 
-import engine
+import lagwise
 
 cell = st.one_of(st.floats(allow_nan=True, allow_infinity=True).map(str),
                  st.integers(-10**6, 10**6).map(str),
@@ -29,8 +29,8 @@ def csv_text(draw):
 @given(text=csv_text())
 def test_loader_only_raises_data_error_on_text(text):
     try:
-        table = engine.load_table(text.encode(), name="fuzz.csv")
-    except engine.DataError:
+        table = lagwise.load_table(text.encode(), name="fuzz.csv")
+    except lagwise.DataError:
         return
     assert len(table.frame.columns) >= 1
     assert all(np.issubdtype(t, np.floating) for t in table.frame.dtypes)
@@ -40,6 +40,6 @@ def test_loader_only_raises_data_error_on_text(text):
 @given(raw=st.binary(max_size=300))
 def test_loader_only_raises_data_error_on_bytes(raw):
     try:
-        engine.load_table(raw, name="fuzz.bin")
-    except engine.DataError:
+        lagwise.load_table(raw, name="fuzz.bin")
+    except lagwise.DataError:
         pass

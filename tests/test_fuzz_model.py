@@ -5,7 +5,7 @@ import numpy as np
 import pandas as pd
 from hypothesis import HealthCheck, given, settings, strategies as st
 
-import engine
+import lagwise
 
 values = st.one_of(st.floats(-1e6, 1e6, allow_nan=False), st.sampled_from([0.0, 1.0, np.nan]))
 
@@ -17,15 +17,15 @@ def test_family_returns_results_or_typed_errors(n, k, data, intercept):
     cols = {f"c{i}": data.draw(st.lists(values, min_size=n, max_size=n)) for i in range(k + 1)}
     frame = pd.DataFrame(cols)
     try:
-        fit = engine.fit_ols(frame, "c0", [f"c{i}" for i in range(1, k + 1)],
+        fit = lagwise.fit_ols(frame, "c0", [f"c{i}" for i in range(1, k + 1)],
                              intercept=intercept)
-    except engine.LagwiseError:
+    except lagwise.LagwiseError:
         return
-    comp = engine.compare(fit)
+    comp = lagwise.compare(fit)
     assert set(comp.term) == set(fit.terms)
-    sw = fit.sweep(kernels=list(engine.KERNELS), bandwidths=[1.0, 2.5, float(n)])
+    sw = fit.sweep(kernels=list(lagwise.KERNELS), bandwidths=[1.0, 2.5, float(n)])
     assert sw.std_error.shape == (5, 3, fit.k)
     try:
-        engine.diagnose(fit)
-    except engine.LagwiseError:
+        lagwise.diagnose(fit)
+    except lagwise.LagwiseError:
         pass

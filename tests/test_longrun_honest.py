@@ -8,10 +8,10 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-import engine
-from engine.bandwidth import andrews_ar1, select_bandwidth
-from engine.fixedb import (fixed_b_critical_value, fixed_b_p_value, kv_bartlett_cubic, table)
-from engine.sweep import significance_flip
+import lagwise
+from lagwise.engine.bandwidth import andrews_ar1, select_bandwidth
+from lagwise.engine.fixedb import (fixed_b_critical_value, fixed_b_p_value, kv_bartlett_cubic, table)
+from lagwise.engine.sweep import significance_flip
 from tests.helpers import ar1, regression_frame
 
 
@@ -24,7 +24,7 @@ def test_andrews_plug_in_matches_closed_form_for_one_ar1_score(kernel):
     b = c_k (alpha(q) T)^(1/(2q+1)), c_k = (q k_q^2 / int k^2)^(1/(2q+1))."""
     rng = np.random.default_rng(5)
     v = ar1(rng, 800, 0.6)[:, None]
-    k = engine.get_kernel(kernel)
+    k = lagwise.get_kernel(kernel)
     b, rho, capped = andrews_ar1(v, k, np.ones(1))
     r = float(v[1:, 0] @ v[:-1, 0] / (v[:-1, 0] @ v[:-1, 0]))      # OLS AR(1), derived here
     assert rho[0] == pytest.approx(r, rel=1e-12) and not capped
@@ -41,7 +41,7 @@ def test_andrews_constants_match_published_values():
     expect = {"bartlett": 1.1447, "parzen": 2.6614, "tukey_hanning": 1.7462,
               "quadratic_spectral": 1.3221}
     for name, c in expect.items():
-        k = engine.get_kernel(name)
+        k = lagwise.get_kernel(name)
         assert k.andrews_constant == pytest.approx(c, abs=5e-5), name
         upper = 1.0 if k.finite_support else np.inf
         integral = 2 * quad(lambda x: float(k.function(np.array([x]))[0]) ** 2, 0, upper,
@@ -50,28 +50,28 @@ def test_andrews_constants_match_published_values():
 
 
 def test_rules_of_thumb_and_explanations():
-    fit = engine.fit_ols(regression_frame(seed=1, n=500), "y", ["x1", "x2"])
+    fit = lagwise.fit_ols(regression_frame(seed=1, n=500), "y", ["x1", "x2"])
     # common practice: floor(4 (500/100)^(2/9)) = 5 lags -> b = 6 (REFERENCES table: 5 at T=500)
     rot = select_bandwidth(fit, "bartlett", "rule-of-thumb")
     assert rot.b == 6.0 and "5 lags" in rot.explanation and "common practice" in rot.explanation
     assert select_bandwidth(fit, "bartlett", "textbook").b == pytest.approx(0.75 * 500 ** (1 / 3))
     assert select_bandwidth(fit, "bartlett", "llsw").b == pytest.approx(1.3 * 500**0.5)
-    res = fit.infer(engine.estimator("kernel", kernel="parzen", bandwidth="andrews"))
+    res = fit.infer(lagwise.estimator("kernel", kernel="parzen", bandwidth="andrews"))
     assert "Andrews (1991)" in res.long_run.rule and res.bandwidth > 1
 
 
 def test_andrews_caps_rho_and_flags_it():
     rng = np.random.default_rng(2)
     y = ar1(rng, 400, 0.999)               # intercept-only: its score is the series itself
-    fit = engine.fit_ols(pd.DataFrame({"y": y}), "y", [])
+    fit = lagwise.fit_ols(pd.DataFrame({"y": y}), "y", [])
     choice = select_bandwidth(fit, "bartlett", "andrews")
     assert "rho_capped" in choice.flags and "capped at 0.97" in choice.explanation
 
 
 def test_newey_west_rule_not_defined_for_truncated():
-    fit = engine.fit_ols(regression_frame(seed=1, n=100), "y", ["x1"])
-    with pytest.raises(engine.SpecificationError, match="Newey-West"):
-        fit.infer(engine.estimator("kernel", kernel="truncated", bandwidth="newey-west"))
+    fit = lagwise.fit_ols(regression_frame(seed=1, n=100), "y", ["x1"])
+    with pytest.raises(lagwise.SpecificationError, match="Newey-West"):
+        fit.infer(lagwise.estimator("kernel", kernel="truncated", bandwidth="newey-west"))
 
 
 # ----------------------------------------------------------------- prewhitening
@@ -81,8 +81,8 @@ def test_prewhitening_recovers_known_long_run_variance():
     T = 20,000: sampling error of the prewhitened estimate is a few percent; tolerance 10%."""
     rng = np.random.default_rng(8)
     e = ar1(rng, 20_000, 0.7)
-    fit = engine.fit_ols(pd.DataFrame({"y": 2.0 + e}), "y", [])
-    est = engine.estimator("kernel", kernel="quadratic_spectral", bandwidth="andrews",
+    fit = lagwise.fit_ols(pd.DataFrame({"y": 2.0 + e}), "y", [])
+    est = lagwise.estimator("kernel", kernel="quadratic_spectral", bandwidth="andrews",
                            prewhiten=True)
     lr = est.long_run(fit)
     s = fit.long_run_original_basis(lr.S)[0, 0]
@@ -98,8 +98,8 @@ def test_prewhitening_two_scores():
     n = 40_000
     x = ar1(rng, n, 0.8, np.sqrt(1 - 0.64))
     e = ar1(rng, n, 0.6, np.sqrt(1 - 0.36))
-    fit = engine.fit_ols(pd.DataFrame({"y": 1 + x + e, "x": x}), "y", ["x"])
-    lr = engine.estimator("kernel", kernel="bartlett", bandwidth="andrews",
+    fit = lagwise.fit_ols(pd.DataFrame({"y": 1 + x + e, "x": x}), "y", ["x"])
+    lr = lagwise.estimator("kernel", kernel="bartlett", bandwidth="andrews",
                           prewhiten=True).long_run(fit)
     s = fit.long_run_original_basis(lr.S)
     assert s[1, 1] == pytest.approx((1 + 0.48) / (1 - 0.48), rel=0.12)
@@ -109,8 +109,8 @@ def test_prewhitening_two_scores():
 def test_prewhitening_cap_engages_and_is_flagged():
     rng = np.random.default_rng(3)
     e = ar1(rng, 600, 0.995)
-    fit = engine.fit_ols(pd.DataFrame({"y": e}), "y", [])
-    res = fit.infer(engine.estimator("kernel", kernel="bartlett", bandwidth=5,
+    fit = lagwise.fit_ols(pd.DataFrame({"y": e}), "y", [])
+    res = fit.infer(lagwise.estimator("kernel", kernel="bartlett", bandwidth=5,
                                      prewhiten=True))
     assert "prewhitening_capped" in res.flags
     assert any("capped at 0.97" in n for n in res.notes)
@@ -123,8 +123,8 @@ def test_var_fixed_order_matches_statsmodels_var():
     """statsmodels VAR(2) without trend on the same scores: S = (I - A1 - A2)^-1 Sigma_mle (...)'.
     statsmodels' long_run_effects() is (I - sum A)^-1 and sigma_u_mle divides by T - p."""
     from statsmodels.tsa.api import VAR
-    fit = engine.fit_ols(regression_frame(seed=4, n=400, k=2, rho_e=0.6), "y", ["x1", "x2"])
-    lr = engine.estimator("var", max_lag=2, criterion="fixed").long_run(fit)
+    fit = lagwise.fit_ols(regression_frame(seed=4, n=400, k=2, rho_e=0.6), "y", ["x1", "x2"])
+    lr = lagwise.estimator("var", max_lag=2, criterion="fixed").long_run(fit)
     ours = fit.long_run_original_basis(lr.S)
     res = VAR(fit.raw_scores).fit(2, trend="n")
     lre = res.long_run_effects()
@@ -135,8 +135,8 @@ def test_var_fixed_order_matches_statsmodels_var():
 def test_var_bic_selects_order_and_flags_nonstationary():
     rng = np.random.default_rng(6)
     e = ar1(rng, 2000, 0.5)
-    fit = engine.fit_ols(pd.DataFrame({"y": e}), "y", [])
-    lr = engine.estimator("var", criterion="bic").long_run(fit)
+    fit = lagwise.fit_ols(pd.DataFrame({"y": e}), "y", [])
+    lr = lagwise.estimator("var", criterion="bic").long_run(fit)
     assert "intercept 1" in lr.rule                       # AR(1) data: BIC picks order 1
     s = fit.long_run_original_basis(lr.S)[0, 0]
     assert s == pytest.approx(1 / 0.25, rel=0.15)
@@ -144,9 +144,9 @@ def test_var_bic_selects_order_and_flags_nonstationary():
     explosive[0] = 1.0
     for t in range(1, 300):
         explosive[t] = 1.03 * explosive[t - 1] + rng.standard_normal()
-    fit2 = engine.fit_ols(pd.DataFrame({"y": explosive}), "y", [])
-    with pytest.raises(engine.EstimationError, match="non-stationary|root"):
-        fit2.infer(engine.estimator("var", max_lag=1, criterion="fixed"))
+    fit2 = lagwise.fit_ols(pd.DataFrame({"y": explosive}), "y", [])
+    with pytest.raises(lagwise.EstimationError, match="non-stationary|root"):
+        fit2.infer(lagwise.estimator("var", max_lag=1, criterion="fixed"))
 
 
 # ----------------------------------------------------------------- EWC
@@ -158,10 +158,10 @@ def test_ewc_t_statistic_is_exactly_student_t_b():
     critical value would reject about 10% of the time."""
     rng = np.random.default_rng(12)
     big_b, reps, n = 6, 4000, 64
-    est = engine.estimator("ewc", terms=big_b)
+    est = lagwise.estimator("ewc", terms=big_b)
     tvals = np.empty(reps)
     for r in range(reps):
-        fit = engine.fit_ols(pd.DataFrame({"y": rng.standard_normal(n)}), "y", [])
+        fit = lagwise.fit_ols(pd.DataFrame({"y": rng.standard_normal(n)}), "y", [])
         res = fit.infer(est)
         tvals[r] = res.table.t_stat.iloc[0]
         if r == 0:
@@ -172,19 +172,19 @@ def test_ewc_t_statistic_is_exactly_student_t_b():
 
 
 def test_ewc_wald_uses_hotelling_f():
-    fit = engine.fit_ols(regression_frame(seed=2, n=300), "y", ["x1", "x2"])
-    res = fit.infer(engine.estimator("ewc", terms=10))
+    fit = lagwise.fit_ols(regression_frame(seed=2, n=300), "y", ["x1", "x2"])
+    res = fit.infer(lagwise.estimator("ewc", terms=10))
     w = res.wald(["x1", "x2"])
     assert w.f_df == (2, 9)
     assert w.f_statistic == pytest.approx((10 - 2 + 1) / (10 * 2) * w.statistic)
     assert w.p_value == pytest.approx(stats.f.sf(w.f_statistic, 2, 9))
-    with pytest.raises(engine.SpecificationError, match="B >= m"):
-        fit.infer(engine.estimator("ewc", terms=1)).wald(["x1", "x2"])
+    with pytest.raises(lagwise.SpecificationError, match="B >= m"):
+        fit.infer(lagwise.estimator("ewc", terms=1)).wald(["x1", "x2"])
 
 
 def test_ewc_llsw_rule():
-    fit = engine.fit_ols(regression_frame(seed=2, n=300), "y", ["x1"])
-    res = fit.infer(engine.estimator("ewc"))
+    fit = lagwise.fit_ols(regression_frame(seed=2, n=300), "y", ["x1"])
+    res = fit.infer(lagwise.estimator("ewc"))
     assert res.df == np.floor(0.4 * 300 ** (2 / 3))
 
 
@@ -214,7 +214,7 @@ def test_fixed_b_limits_and_monotonicity():
     # p-value at the critical value is the nominal size
     cv = fixed_b_critical_value("bartlett", 0.2, 0.95)
     assert fixed_b_p_value("bartlett", 0.2, cv**2) == pytest.approx(0.05, abs=1e-3)
-    with pytest.raises(engine.SpecificationError, match="b/T"):
+    with pytest.raises(lagwise.SpecificationError, match="b/T"):
         fixed_b_critical_value("bartlett", 1.5)
 
 
@@ -226,7 +226,7 @@ def test_shipped_tables_against_fresh_simulation(kernel, b):
     own Monte Carlo error and the T = 400 vs T = 1000 difference (0.01)."""
     rng = np.random.default_rng(777)
     reps, n = 3000, 400
-    k = engine.get_kernel(kernel)
+    k = lagwise.get_kernel(kernel)
     w = k.weights([b * n], n)[0]
     cv = fixed_b_critical_value(kernel, b, 0.95)
     e = rng.standard_normal((reps, n))
@@ -242,8 +242,8 @@ def test_shipped_tables_against_fresh_simulation(kernel, b):
 
 
 def test_infer_with_fixed_b_reference():
-    fit = engine.fit_ols(regression_frame(seed=5, n=200), "y", ["x1", "x2"])
-    est = engine.estimator("kernel", kernel="bartlett", bandwidth=20)
+    fit = lagwise.fit_ols(regression_frame(seed=5, n=200), "y", ["x1", "x2"])
+    est = lagwise.estimator("kernel", kernel="bartlett", bandwidth=20)
     normal = fit.infer(est, reference="normal")
     fb = fit.infer(est, reference="fixed-b")
     assert fb.critical_value == pytest.approx(fixed_b_critical_value("bartlett", 0.1, 0.95))
@@ -252,18 +252,18 @@ def test_infer_with_fixed_b_reference():
     np.testing.assert_allclose(fb.table.std_error, normal.table.std_error)
     w = fb.wald(["x1", "x2"])
     assert 0 <= w.p_value <= 1
-    with pytest.raises(engine.SpecificationError, match="fixed-b"):
-        fit.infer(engine.estimator("kernel", kernel="truncated", bandwidth=3),
+    with pytest.raises(lagwise.SpecificationError, match="fixed-b"):
+        fit.infer(lagwise.estimator("kernel", kernel="truncated", bandwidth=3),
                   reference="fixed-b")
 
 
 # ----------------------------------------------------------------- overlapping, flips, CLI
 
 def test_overlapping_response_offers_the_right_family():
-    from engine.compare import compare
-    table = engine.load_table(str(__import__("lagwise_assets").demo_file()))
+    from lagwise.engine.compare import compare
+    table = lagwise.load_table(str(lagwise.demo_file()))
     table, y = table.with_transform("fsum", "exret_1m", 12)
-    fit = engine.fit_ols(table, y, ["rate_capacity"])
+    fit = lagwise.fit_ols(table, y, ["rate_capacity"])
     assert fit.horizon == 12
     comp = compare(fit)
     rows = comp[comp.term == "rate_capacity"]
@@ -277,12 +277,12 @@ def test_overlapping_response_offers_the_right_family():
 
 
 def test_significance_flip_agrees_with_infer():
-    table = engine.load_table(str(__import__("lagwise_assets").demo_file()))
-    fit = engine.fit_ols(table, "exret_12m", ["rate_capacity", "credit_spread"])
+    table = lagwise.load_table(str(lagwise.demo_file()))
+    fit = lagwise.fit_ols(table, "exret_12m", ["rate_capacity", "credit_spread"])
     flip = significance_flip(fit, "rate_capacity", "bartlett", 0.95, "normal")
     assert flip.rejects_at_start is True and flip.flip_bandwidth is not None
-    before = fit.infer(engine.estimator("kernel", kernel="bartlett", bandwidth=flip.holds_up_to))
-    after = fit.infer(engine.estimator("kernel", kernel="bartlett",
+    before = fit.infer(lagwise.estimator("kernel", kernel="bartlett", bandwidth=flip.holds_up_to))
+    after = fit.infer(lagwise.estimator("kernel", kernel="bartlett",
                                        bandwidth=flip.flip_bandwidth))
     assert before.table.loc["rate_capacity", "p_value"] < 0.05
     assert after.table.loc["rate_capacity", "p_value"] >= 0.05
@@ -290,8 +290,8 @@ def test_significance_flip_agrees_with_infer():
 
 
 def test_cli_lists_new_estimators_and_flip(capsys):
-    from app.cli import main
-    from lagwise_assets import demo_file
+    from lagwise.app.cli import main
+    from lagwise._files import demo_file
     rc = main(["table", str(demo_file()), "--response", "exret_12m", "--regressors",
                "rate_capacity", "--horizon", "12"])
     out = capsys.readouterr().out
@@ -302,19 +302,19 @@ def test_cli_lists_new_estimators_and_flip(capsys):
 
 @pytest.mark.parametrize("kernel", ["bartlett", "parzen", "quadratic_spectral", "truncated"])
 def test_prewhitened_sweep_equals_infer(kernel):
-    fit = engine.fit_ols(regression_frame(seed=14, n=300, k=2, rho_e=0.7), "y", ["x1", "x2"])
+    fit = lagwise.fit_ols(regression_frame(seed=14, n=300, k=2, rho_e=0.7), "y", ["x1", "x2"])
     bws = [1.0, 4.5, 20.0]
     sw = fit.sweep(kernels=[kernel], bandwidths=bws, prewhiten=True)
     for i, b in enumerate(bws):
-        res = fit.infer(engine.estimator("kernel", kernel=kernel, bandwidth=b, prewhiten=True))
+        res = fit.infer(lagwise.estimator("kernel", kernel=kernel, bandwidth=b, prewhiten=True))
         np.testing.assert_allclose(sw.std_error[0, i], res.table.std_error, rtol=1e-9)
     plain = fit.sweep(kernels=[kernel], bandwidths=bws)
     assert not np.allclose(plain.std_error, sw.std_error)
 
 
 def test_comparison_under_fixed_b_keeps_other_laws():
-    from engine.compare import compare
-    fit = engine.fit_ols(regression_frame(seed=5, n=200), "y", ["x1"])
+    from lagwise.engine.compare import compare
+    fit = lagwise.fit_ols(regression_frame(seed=5, n=200), "y", ["x1"])
     comp = compare(fit, reference="fixed-b")
     rows = comp[comp.term == "x1"].set_index("estimator")
     assert np.isfinite(rows.loc["HC0", "std_error"])

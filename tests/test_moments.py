@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from engine.moments import MomentCache
+from lagwise.engine.moments import MomentCache
 
 
 def direct(u, j):
@@ -54,8 +54,8 @@ def test_weighted_sum_is_weighted_lags():
 def test_fast_quadratic_spectral_sums_equal_direct_weights(monkeypatch, limit):
     """The factorised trigonometric evaluation over every lag equals the direct weighted sum
     (k(j/b) evaluated at each of the T lags) to rounding, cached or rebuilt in column chunks."""
-    import engine
-    import engine.moments as moments
+    import lagwise
+    import lagwise.engine.moments as moments
     if limit:
         monkeypatch.setattr(moments, "FAR_CACHE_LIMIT", limit)
     rng = np.random.default_rng(3)
@@ -63,7 +63,7 @@ def test_fast_quadratic_spectral_sums_equal_direct_weights(monkeypatch, limit):
     u = rng.standard_normal((t, 3))
     u[:, 1] = np.convolve(u[:, 1], np.ones(25) / 5, "same")
     cache = MomentCache(u)
-    qs = engine.get_kernel("quadratic_spectral")
+    qs = lagwise.get_kernel("quadratic_spectral")
     b = np.array([0.7, 1.0, 3.3, 12.0, 57.0, 240.0])
     direct = qs.weights(b, t) @ cache.packed(t - 1)
     np.testing.assert_allclose(cache.kernel_sums(qs, b), direct, rtol=1e-11, atol=1e-14)

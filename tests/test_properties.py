@@ -5,7 +5,7 @@ import pandas as pd
 import pytest
 from hypothesis import given, settings, strategies as st, HealthCheck
 
-import engine
+import lagwise
 from tests.helpers import ar1
 
 KERNELS = ["bartlett", "parzen", "quadratic_spectral", "tukey_hanning", "truncated"]
@@ -28,8 +28,8 @@ common = settings(max_examples=30, deadline=None, suppress_health_check=[HealthC
 @given(**data_args, b=st.floats(0.5, 60.0),
        kernel=st.sampled_from(["bartlett", "parzen", "quadratic_spectral"]))
 def test_psd_kernels_give_psd_covariance(seed, n, k, rho, b, kernel):
-    fit = engine.fit_ols(frame(seed, n, k, rho), "y", [f"x{i}" for i in range(k)])
-    res = fit.infer(engine.estimator("kernel", kernel=kernel, bandwidth=b))
+    fit = lagwise.fit_ols(frame(seed, n, k, rho), "y", [f"x{i}" for i in range(k)])
+    res = fit.infer(lagwise.estimator("kernel", kernel=kernel, bandwidth=b))
     s = res.long_run.S
     assert np.linalg.eigvalsh(s).min() >= -1e-10 * np.abs(s).max()
     cov = res.cov.to_numpy()
@@ -40,13 +40,13 @@ def test_psd_kernels_give_psd_covariance(seed, n, k, rho, b, kernel):
 @given(**data_args, kernel=st.sampled_from(KERNELS), small=st.booleans(),
        bws=st.lists(st.floats(0.5, 80.0), min_size=1, max_size=6))
 def test_sweep_equals_one_at_a_time_infer(seed, n, k, rho, kernel, small, bws):
-    fit = engine.fit_ols(frame(seed, n, k, rho), "y", [f"x{i}" for i in range(k)])
+    fit = lagwise.fit_ols(frame(seed, n, k, rho), "y", [f"x{i}" for i in range(k)])
     sw = fit.sweep(kernels=[kernel], bandwidths=bws, small_sample=small)
     for i, b in enumerate(bws):
-        est = engine.estimator("kernel", kernel=kernel, bandwidth=b, small_sample=small)
+        est = lagwise.estimator("kernel", kernel=kernel, bandwidth=b, small_sample=small)
         if np.isnan(sw.std_error[0, i]).all():
             # a collapsed S (truncated kernel, b >= T) is refused, never reported as noise
-            with pytest.raises(engine.EstimationError, match="is zero"):
+            with pytest.raises(lagwise.EstimationError, match="is zero"):
                 fit.infer(est)
             continue
         res = fit.infer(est)
@@ -68,9 +68,9 @@ ESTIMATOR_CHOICES = st.sampled_from([
 def test_scaling_response_scales_estimates_and_errors(seed, n, k, rho, c, choice):
     df = frame(seed, n, k, rho)
     regs = [f"x{i}" for i in range(k)]
-    base = engine.fit_ols(df, "y", regs)
-    scaled = engine.fit_ols(df.assign(y=df.y * c), "y", regs)
-    est = engine.estimator(choice[0], **choice[1])
+    base = lagwise.fit_ols(df, "y", regs)
+    scaled = lagwise.fit_ols(df.assign(y=df.y * c), "y", regs)
+    est = lagwise.estimator(choice[0], **choice[1])
     a, b = base.infer(est).table, scaled.infer(est).table
     np.testing.assert_allclose(b.estimate, a.estimate * c, rtol=1e-8, atol=1e-10 * abs(c))
     np.testing.assert_allclose(b.std_error, a.std_error * abs(c), rtol=1e-7)
@@ -82,8 +82,8 @@ def test_permuting_regressors_permutes_results(seed, n, k, rho, perm_seed, choic
     df = frame(seed, n, k, rho)
     regs = [f"x{i}" for i in range(k)]
     shuffled = list(np.random.default_rng(perm_seed).permutation(regs))
-    est = engine.estimator(choice[0], **choice[1])
-    a = engine.fit_ols(df, "y", regs).infer(est).table
-    b = engine.fit_ols(df, "y", shuffled).infer(est).table
+    est = lagwise.estimator(choice[0], **choice[1])
+    a = lagwise.fit_ols(df, "y", regs).infer(est).table
+    b = lagwise.fit_ols(df, "y", shuffled).infer(est).table
     np.testing.assert_allclose(b.loc[a.index, "std_error"], a.std_error, rtol=1e-7)
     np.testing.assert_allclose(b.loc[a.index, "estimate"], a.estimate, rtol=1e-7, atol=1e-10)

@@ -9,17 +9,17 @@ import numpy as np
 import pytest
 from arch.covariance import kernel as ak
 
-import engine
+import lagwise
 from tests.helpers import regression_frame
 
 
 @pytest.fixture(scope="module")
 def fit():
-    return engine.fit_ols(regression_frame(seed=3, n=400, k=2), "y", ["x1", "x2"])
+    return lagwise.fit_ols(regression_frame(seed=3, n=400, k=2), "y", ["x1", "x2"])
 
 
 def ours_long_run(fit, kernel, b):
-    est = engine.estimator("kernel", kernel=kernel, bandwidth=b, repair=False)
+    est = lagwise.estimator("kernel", kernel=kernel, bandwidth=b, repair=False)
     return fit.long_run_original_basis(est.long_run(fit).S)
 
 
@@ -49,6 +49,6 @@ def test_newey_west_1994_bandwidth_matches_arch(name, cls):
     for t in range(1, 500):
         x[t] = 0.6 * x[t - 1] + rng.standard_normal()
     theirs = cls(x, center=True).bandwidth
-    from engine.bandwidth import newey_west_1994
-    ours = newey_west_1994(x[:, None], engine.get_kernel(name), np.ones(1))
+    from lagwise.engine.bandwidth import newey_west_1994
+    ours = newey_west_1994(x[:, None], lagwise.get_kernel(name), np.ones(1))
     assert ours == pytest.approx(theirs, rel=1e-10)

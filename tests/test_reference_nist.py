@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from statsmodels.datasets import longley
 
-import engine
+import lagwise
 
 CERTIFIED = {  # term: (beta, standard error), NIST certified values
     "intercept": (-3482258.63459582, 890420.383607373),
@@ -24,7 +24,7 @@ CERTIFIED = {  # term: (beta, standard error), NIST certified values
 @pytest.fixture(scope="module")
 def fit():
     data = longley.load_pandas().data
-    return engine.fit_ols(data, "TOTEMP", ["GNPDEFL", "GNP", "UNEMP", "ARMED", "POP", "YEAR"])
+    return lagwise.fit_ols(data, "TOTEMP", ["GNPDEFL", "GNP", "UNEMP", "ARMED", "POP", "YEAR"])
 
 
 def test_longley_coefficients_match_nist(fit):
@@ -33,7 +33,7 @@ def test_longley_coefficients_match_nist(fit):
 
 
 def test_longley_standard_errors_match_nist(fit):
-    table = fit.infer(engine.estimator("classical")).table
+    table = fit.infer(lagwise.estimator("classical")).table
     for term, (_, se) in CERTIFIED.items():
         assert table.loc[term, "std_error"] == pytest.approx(se, rel=1e-9), term
 

@@ -10,7 +10,7 @@ import pytest
 import statsmodels.api as sm
 from statsmodels.stats import sandwich_covariance as sw
 
-import engine
+import lagwise
 from tests.helpers import regression_frame
 
 
@@ -21,7 +21,7 @@ def data():
 
 @pytest.fixture(scope="module")
 def fit(data):
-    return engine.fit_ols(data, "y", ["x1", "x2", "x3"])
+    return lagwise.fit_ols(data, "y", ["x1", "x2", "x3"])
 
 
 @pytest.fixture(scope="module")
@@ -53,7 +53,7 @@ def test_hc_matches_statsmodels(fit, sm_fit, kind):
 @pytest.mark.parametrize("lags", [0, 1, 4, 12, 40])
 @pytest.mark.parametrize("small_sample", [False, True])
 def test_bartlett_matches_statsmodels(fit, sm_fit, lags, small_sample):
-    est = engine.estimator("kernel", kernel="bartlett", bandwidth=lags + 1.0,
+    est = lagwise.estimator("kernel", kernel="bartlett", bandwidth=lags + 1.0,
                            small_sample=small_sample)
     ours = fit.infer(est, reference="normal")
     theirs = sm_fit.get_robustcov_results("HAC", maxlags=lags, use_correction=small_sample,
@@ -65,7 +65,7 @@ def test_bartlett_matches_statsmodels(fit, sm_fit, lags, small_sample):
 
 @pytest.mark.parametrize("lags", [1, 5, 11])
 def test_truncated_matches_statsmodels_uniform(fit, sm_fit, lags):
-    est = engine.estimator("kernel", kernel="truncated", lags=lags, repair=False)
+    est = lagwise.estimator("kernel", kernel="truncated", lags=lags, repair=False)
     ours = fit.infer(est).cov.to_numpy()
     theirs = sw.cov_hac_simple(sm_fit, nlags=lags, weights_func=sw.weights_uniform,
                                use_correction=False)

@@ -13,7 +13,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import engine
+import lagwise
 from tests.helpers import ar1
 
 pytestmark = pytest.mark.slow
@@ -22,14 +22,14 @@ pytestmark = pytest.mark.slow
 def test_ewc_and_fixed_b_have_better_size_than_textbook_newey_west():
     rng = np.random.default_rng(2026)
     reps, n = 1500, 200
-    nw = engine.estimator("kernel", kernel="bartlett", bandwidth="rule-of-thumb")
-    ewc = engine.estimator("ewc")
-    fb = engine.estimator("kernel", kernel="bartlett", bandwidth="llsw")
+    nw = lagwise.estimator("kernel", kernel="bartlett", bandwidth="rule-of-thumb")
+    ewc = lagwise.estimator("ewc")
+    fb = lagwise.estimator("kernel", kernel="bartlett", bandwidth="llsw")
     rejections = np.zeros(3)
     for _ in range(reps):
         x = ar1(rng, n, 0.5)
         y = ar1(rng, n, 0.5)                       # slope is zero
-        fit = engine.fit_ols(pd.DataFrame({"y": y, "x": x}), "y", ["x"])
+        fit = lagwise.fit_ols(pd.DataFrame({"y": y, "x": x}), "y", ["x"])
         p = [fit.infer(nw, reference="normal").table.loc["x", "p_value"],
              fit.infer(ewc).table.loc["x", "p_value"],
              fit.infer(fb, reference="fixed-b").table.loc["x", "p_value"]]

@@ -12,7 +12,7 @@ import time
 import numpy as np
 import pytest
 
-import engine
+import lagwise
 
 pytestmark = pytest.mark.bench
 KERNELS = ["bartlett", "parzen", "quadratic_spectral", "tukey_hanning", "truncated"]
@@ -55,22 +55,22 @@ def test_sweep_against_statsmodels_loop():
                          for L in lags])
 
     def ours_bartlett():
-        fit = engine.fit_ols(df, "y", regs)
+        fit = lagwise.fit_ols(df, "y", regs)
         return fit.sweep(kernels=["bartlett"], bandwidths=lags + 1.0)
 
     def ours_all():
-        fit = engine.fit_ols(df, "y", regs)
+        fit = lagwise.fit_ols(df, "y", regs)
         return fit.sweep(kernels=KERNELS, bandwidths=lags + 1.0)
 
     t_base, base_se = best_of(baseline, repeat=1)
     t_i, sw = best_of(ours_bartlett, repeat=5)
     t_ii, _ = best_of(ours_all, repeat=3)
     diff = np.max(np.abs(sw.std_error[0] / base_se - 1))
-    fit = engine.fit_ols(df, "y", regs)
+    fit = lagwise.fit_ols(df, "y", regs)
     fit.moments.ensure(n - 1)
     infer_ms = {}
     for kern in KERNELS:
-        est = engine.estimator("kernel", kernel=kern, bandwidth=12.0)
+        est = lagwise.estimator("kernel", kernel=kern, bandwidth=12.0)
         fit.infer(est)
         reps = 50
         t0 = time.perf_counter()
@@ -92,26 +92,26 @@ import json, resource, sys, time
 import numpy as np
 sys.path.insert(0, ".")
 from tests.bench.test_bench_engine import make_data
-import engine
+import lagwise
 X, y = make_data(1_000_000, 10, seed=1)
 import pandas as pd
 df = pd.DataFrame(X[:, 1:], columns=[f"x{i}" for i in range(1, 10)]).assign(y=y)
 del X, y
 before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
 t0 = time.perf_counter()
-fit = engine.fit_ols(df, "y", [f"x{i}" for i in range(1, 10)])
+fit = lagwise.fit_ols(df, "y", [f"x{i}" for i in range(1, 10)])
 t_fit = time.perf_counter() - t0
 t1 = time.perf_counter()
 fit.moments.ensure(100)                    # what finite kernels up to b = 101 need
 t_cache100 = time.perf_counter() - t1
-from engine.moments import MomentCache
+from lagwise.engine.moments import MomentCache
 t2 = time.perf_counter()
 every = MomentCache(fit.scores)            # what an infinite-support kernel needs, from scratch
 every.ensure(fit.nobs - 1)
 t_all = time.perf_counter() - t2
 fit.__dict__["moments"] = every
 del df
-res = fit.infer(engine.estimator("kernel", kernel="quadratic_spectral", bandwidth=20.0))
+res = fit.infer(lagwise.estimator("kernel", kernel="quadratic_spectral", bandwidth=20.0))
 peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
 print(json.dumps({"fit_s": t_fit, "fit_cache_100_lags_s": t_fit + t_cache100,
                   "fit_cache_all_lags_s": t_fit + t_all, "peak_rss_gib": peak / 2**20,
