@@ -12,14 +12,14 @@ import numpy as np
 
 def _fmt(x, spec=".4g"):
     if x is None or (isinstance(x, float) and not math.isfinite(x)):
-        return "."
+        return "n/a"
     return format(x, spec)
 
 
 def _p(x):
     if x is None or not math.isfinite(x):
-        return "."
-    return "<=0.001" if x <= 0.001 else f"{x:.3f}"
+        return "n/a"
+    return "<0.001" if x < 0.001 else f"{x:.3f}"
 
 
 def render_text(fit, comp, level: float, extra_lines=()) -> str:
@@ -43,7 +43,7 @@ def render_text(fit, comp, level: float, extra_lines=()) -> str:
                 lines.append(f"  {r.estimator:<{width}}not available: {r.note}")
                 continue
             ci = f"[{_fmt(r.ci_low)}, {_fmt(r.ci_high)}]"
-            verdict = "rejected" if r.rejects else ("kept" if r.rejects is False else ".")
+            verdict = {True: "rejected", False: "not rejected"}.get(r.rejects, "n/a")
             lines.append(f"  {r.estimator:<{width}}{_fmt(r.bandwidth, '.3g'):>8}"
                          f"{_fmt(r.lags, '.0f'):>6}{_fmt(r.std_error):>11}{_fmt(r.t_stat, '.3f'):>9}"
                          f"{_p(r.p_value):>8}   {ci:<26}{verdict}")
@@ -78,7 +78,8 @@ def cmd_table(args) -> int:
         col, _, p = rest.partition(":")
         table, name = table.with_transform(kind, col, int(p) if p else 1)
         print(f"added column {name}", file=sys.stderr)
-    regs = [r.strip() for r in (args.regressors or "").split(",") if r.strip()]
+    from ..engine.model import as_list
+    regs = as_list(args.regressors)
     fit = engine.fit_ols(table, args.response, regs, intercept=not args.no_intercept,
                          horizon=args.horizon)
     bandwidth = args.bandwidth
@@ -113,7 +114,7 @@ def cmd_table(args) -> int:
 def cmd_serve(args) -> int:
     from .main import serve
     return serve(args.file, host=args.host, port=args.port, debug=args.debug,
-                 settings=args.settings)
+                 settings=args.settings, allowed_hosts=args.allow_host or ())
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -126,8 +127,9 @@ def build_parser() -> argparse.ArgumentParser:
     t.add_argument("--regressors", default="", help="comma-separated regressor columns")
     t.add_argument("--no-intercept", action="store_true", help="leave out the constant term")
     t.add_argument("--transform", action="append", metavar="KIND:COLUMN[:P]",
-                   help="add a transformed column first, e.g. fsum:exret_1m:12 or lag:x:1 "
-                        "(kinds: lag, lead, diff, log, dlog, fsum); repeatable")
+                   help="add a transformed column first, e.g. sum-next:exret_1m:12 or lag:x:1 "
+                        "(kinds: lag, lead, difference, log, log-difference, sum-next); "
+                        "repeatable")
     t.add_argument("--horizon", type=int, default=None,
                    help="periods h summed by an overlapping response (errors MA(h-1))")
     t.add_argument("--kernel", default=None, help="restrict kernel rows to one kernel")
@@ -143,7 +145,11 @@ def build_parser() -> argparse.ArgumentParser:
     t.set_defaults(func=cmd_table)
     s = sub.add_parser("serve", help="open the dashboard in the browser (local only)")
     s.add_argument("file", nargs="?", default=None, help="data file (default: the demo data)")
-    s.add_argument("--host", default="127.0.0.1")
+    s.add_argument("--host", default="127.0.0.1",
+                   help="address to listen on (default 127.0.0.1: this computer only)")
+    s.add_argument("--allow-host", action="append", metavar="NAME",
+                   help="another host name the server answers for (e.g. the machine's name "
+                        "when --host 0.0.0.0); repeatable")
     s.add_argument("--port", type=int, default=8050)
     s.add_argument("--debug", action="store_true", help="Dash debug mode (development only)")
     s.add_argument("--settings", default=None, help="a saved settings JSON to start from")

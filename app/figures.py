@@ -16,11 +16,8 @@ PAPER = "#ffffff"
 GRID = "#e7e4dc"
 ACCENT = "#0e6e64"
 WARN = "#b4541a"
-KERNEL_COLORS = {"bartlett": "#0e6e64", "parzen": "#3d5a98", "quadratic_spectral": "#8a4f9e",
-                 "tukey_hanning": "#b4541a", "truncated": "#7a8a3a"}
 FONT = "Liberation Sans, Helvetica Neue, Arial, sans-serif"
-KERNEL_SHORT = {"bartlett": "Bartlett", "parzen": "Parzen", "quadratic_spectral": "QS",
-                "tukey_hanning": "Tukey-Hanning", "truncated": "Truncated"}
+from ..engine.kernels import PALETTE  # noqa: E402 - the engine's palette for unnamed curves
 
 
 def _base(fig: go.Figure, title: str, height: int = 360) -> go.Figure:
@@ -47,90 +44,141 @@ def empty_figure(message: str, height: int = 300) -> go.Figure:
     return _base(fig, "", height)
 
 
+def _finite_range(values: np.ndarray, keep: np.ndarray):
+    """A y range holding the informative points (keep) with a margin, or None."""
+    v = values[keep & np.isfinite(values)]
+    if v.size < 2:
+        return None
+    lo, hi = np.percentile(v, [1, 99]) if v.size > 20 else (v.min(), v.max())
+    span = max(hi - lo, 1e-12)
+    return [lo - 0.15 * span, hi + 0.15 * span]
+
+
 def sensitivity_figure(sweep, term: str, mode: str = "t", level: float = 0.95,
-                       reference: str = "normal", current_b: float | None = None,
-                       current_kernel: str | None = None, marks=None) -> go.Figure:
-    """t statistic (mode "t"), standard error ("se") or interval ("ci") against bandwidth, one
-    line per kernel; critical values (a curve under fixed-b); automatic bandwidths marked; the
-    current bandwidth as the first layout shape (so a slider move only patches its x)."""
+                       reference: str = "normal", current: float | None = None,
+                       current_curve: int | None = 0, marks=None,
+                       reference_lines=None) -> go.Figure:
+    """t statistic (mode "t"), standard error ("se") or interval ("ci") of `term` along the
+    sweep's tuning axis, one line per curve; critical values under `reference` (a curve where
+    they vary along the axis); automatic choices marked; the current value as the first layout
+    shape (a slider move only patches its x). Points where S was repaired or is not PSD are
+    drawn hollow, unavailable ones leave a gap, and the y axis keeps to the ordinary points.
+    reference_lines: [(label, value)] horizontal lines (e.g. an estimator without an axis)."""
+    from ..engine.kernels import KERNELS
+    from ..engine.sweep import STATUS_TEXT
     j = sweep.terms.index(term)
-    b = sweep.bandwidths
-    cv = sweep.critical_values(level, "normal" if reference == "auto" else reference)
+    x = sweep.values
+    cv = sweep.critical_values(level, reference)
     fig = go.Figure()
-    x_cur = float(current_b) if current_b is not None else float(b[0])
+    x_cur = float(current) if current is not None else float(x[0])
     fig.add_shape(type="line", x0=x_cur, x1=x_cur, y0=0, y1=1, yref="paper",
                   line={"color": INK, "width": 1.5, "dash": "dot"}, name="current")
-    for i, kern in enumerate(sweep.kernels):
-        color = KERNEL_COLORS.get(kern, ACCENT)
-        width = 3 if kern == current_kernel else 1.6
-        name = KERNEL_SHORT.get(kern, kern)
-        if mode == "se":
-            y = sweep.std_error[i, :, j]
-        elif mode == "ci":
-            y = None
-        else:
-            y = sweep.t_stat[i, :, j]
+    shown = []
+    for c, label in enumerate(sweep.labels):
+        kern = KERNELS.get(sweep.estimators[c].params.get("kernel", ""))
+        color = kern.color if kern else PALETTE[c % len(PALETTE)]
+        short = kern.short if kern else label
+        width = 3 if c == current_curve else 1.6
+        se = sweep.std_error[c, :, j]
+        est = sweep.estimate[c, :, j]
+        odd = sweep.status[c] != ""
         if mode == "ci":
-            half = cv[i] * sweep.std_error[i, :, j]
-            est = sweep.estimate[j]
-            if kern == current_kernel or (current_kernel not in sweep.kernels and i == 0):
-                fig.add_trace(go.Scatter(x=np.r_[b, b[::-1]], y=np.r_[est + half, (est - half)[::-1]],
-                                         fill="toself", fillcolor="rgba(14,110,100,0.12)",
-                                         line={"width": 0}, name=f"{name} interval",
+            half = cv[c] * se
+            y, y2 = est + half, est - half
+            if c == current_curve:
+                fig.add_trace(go.Scatter(x=np.r_[x, x[::-1]], y=np.r_[y, y2[::-1]],
+                                         fill="toself", fillcolor="rgba(29,39,51,0.08)",
+                                         line={"width": 0}, name=f"{short} interval",
                                          hoverinfo="skip"))
-            fig.add_trace(go.Scatter(x=b, y=est + half, mode="lines", name=f"{name} upper",
+            fig.add_trace(go.Scatter(x=x, y=y, mode="lines", name=f"{short} upper",
                                      line={"color": color, "width": width}))
-            fig.add_trace(go.Scatter(x=b, y=est - half, mode="lines", name=f"{name} lower",
+            fig.add_trace(go.Scatter(x=x, y=y2, mode="lines", name=f"{short} lower",
                                      line={"color": color, "width": width, "dash": "dash"},
                                      showlegend=False))
+            shown.append((np.r_[y, y2], np.r_[~odd, ~odd]))
         else:
-            fig.add_trace(go.Scatter(x=b, y=y, mode="lines", name=name,
+            y = se if mode == "se" else sweep.t_stat[c, :, j]
+            fig.add_trace(go.Scatter(x=x, y=np.where(odd, np.nan, y), mode="lines", name=short,
                                      line={"color": color, "width": width},
-                                     hovertemplate=f"{name}<br>b=%{{x}}<br>%{{y:.3f}}"
-                                                   "<extra></extra>"))
-        if mode == "t" and reference == "fixed-b" and np.isfinite(cv[i]).any():
+                                     hovertemplate=f"{short}<br>{sweep.axis.symbol}=%{{x}}<br>"
+                                                   "%{y:.3f}<extra></extra>"))
+            shown.append((y, ~odd))
+            if odd.any():
+                why = [STATUS_TEXT.get(s, "") + (f": {r}" if r else "")
+                       for s, r in zip(sweep.status[c][odd], sweep.reasons[c][odd])]
+                fig.add_trace(go.Scatter(
+                    x=x[odd], y=np.where(np.isfinite(y[odd]), y[odd], np.nan), mode="markers",
+                    name=f"{short}: flagged points", customdata=why,
+                    marker={"symbol": "circle-open", "size": 7, "color": color},
+                    hovertemplate=f"{short}<br>{sweep.axis.symbol}=%{{x}}<br>%{{y:.3f}}<br>"
+                                  "%{customdata}<extra></extra>"))
+        varies = np.nanmax(cv[c]) - np.nanmin(cv[c]) > 1e-9 if np.isfinite(cv[c]).any() else False
+        if mode == "t" and varies:
             for sign in (1, -1):
-                fig.add_trace(go.Scatter(x=b, y=sign * cv[i], mode="lines",
+                fig.add_trace(go.Scatter(x=x, y=sign * cv[c], mode="lines",
                                          line={"color": color, "width": 1, "dash": "dash"},
-                                         name=f"fixed-b critical value ({name})",
+                                         name=f"critical value ({short})",
                                          showlegend=sign == 1, hoverinfo="skip"))
-    if mode == "t" and reference != "fixed-b":
-        c = float(cv[0, 0])
-        for sign in (1, -1):
-            fig.add_hline(y=sign * c, line={"color": WARN, "width": 1.2, "dash": "dash"})
-        fig.add_annotation(x=1, xref="paper", y=c, text=f"±{c:.2f} ({reference} critical value)",
-                           showarrow=False, xanchor="right", yanchor="bottom",
-                           font={"size": 11, "color": WARN})
+    if mode == "t" and np.isfinite(cv).any():
+        flat = [np.nanmax(cv[c]) - np.nanmin(cv[c]) <= 1e-9 for c in range(len(cv))
+                if np.isfinite(cv[c]).any()]
+        if all(flat):
+            value = float(cv[np.isfinite(cv)][0])
+            for sign in (1, -1):
+                fig.add_hline(y=sign * value, line={"color": MUTED, "width": 1.2, "dash": "dash"})
+            fig.add_annotation(x=1, xref="paper", y=value, showarrow=False, xanchor="right",
+                               yanchor="bottom", text=f"±{value:.2f} ({reference} critical value)",
+                               font={"size": 11, "color": MUTED})
     if mode == "ci":
-        fig.add_hline(y=0, line={"color": WARN, "width": 1.2})
-    for kern, rule, bw in (marks or []):
-        if kern not in sweep.kernels or not (b[0] <= bw <= b[-1]):
-            continue
-        i = sweep.kernels.index(kern)
-        series = sweep.std_error[i, :, j] if mode == "se" else sweep.t_stat[i, :, j]
-        if mode == "ci":
-            series = sweep.estimate[j] + cv[i] * sweep.std_error[i, :, j]
-        yv = float(np.interp(bw, b, series))
-        label = {"andrews": "Andrews", "newey-west": "NW94", "rule-of-thumb": "rule of thumb"}\
-            .get(rule, rule)
-        fig.add_trace(go.Scatter(x=[bw], y=[yv], mode="markers+text", text=[label],
-                                 textposition="top center",
-                                 name=f"{rule} ({KERNEL_SHORT.get(kern, kern)})",
-                                 marker={"symbol": "diamond", "size": 10,
-                                         "color": KERNEL_COLORS.get(kern, ACCENT),
-                                         "line": {"color": INK, "width": 1}},
-                                 textfont={"size": 10, "color": MUTED}, showlegend=False))
+        fig.add_hline(y=0, line={"color": MUTED, "width": 1.2})
+    for label, value in reference_lines or []:
+        fig.add_hline(y=value, line={"color": INK, "width": 1, "dash": "dot"})
+        fig.add_annotation(x=0, xref="paper", y=value, showarrow=False, xanchor="left",
+                           yanchor="bottom", text=label, font={"size": 11, "color": INK})
+    _add_marks(fig, sweep, j, mode, cv, marks)
+    if shown:
+        ys = np.concatenate([a for a, _ in shown])
+        keep = np.concatenate([k for _, k in shown])
+        rng = _finite_range(ys, keep)
+        if rng is not None:
+            fig.update_yaxes(range=rng)
     ylab = {"t": f"t statistic of {term}", "se": f"standard error of {term}",
             "ci": f"{level:.0%} interval for {term}"}[mode]
-    fig.update_xaxes(title_text="bandwidth b (lags used = ceil(b) - 1 for finite kernels)")
+    fig.update_xaxes(title_text=sweep.axis.title + (
+        " (lags used = ceil(b) - 1 for finite kernels)" if sweep.axis.symbol == "b" else ""))
     fig.update_yaxes(title_text=ylab)
-    return _base(fig, f"How {term} depends on the bandwidth", 400)
+    return _base(fig, f"How {term} depends on the {sweep.axis.title.split(' ')[0]}"
+                 if sweep.axis.symbol != "b" else f"How {term} depends on the bandwidth", 400)
+
+
+def _add_marks(fig, sweep, j, mode, cv, marks):
+    """Markers where automatic rules land: marks = [(curve index, title, value)]."""
+    x = sweep.values
+    for n, (c, title, value) in enumerate(marks or []):
+        if value is None or not (x[0] <= value <= x[-1]):
+            continue
+        if mode == "se":
+            series = sweep.std_error[c, :, j]
+        elif mode == "ci":
+            series = sweep.estimate[c, :, j] + cv[c] * sweep.std_error[c, :, j]
+        else:
+            series = sweep.t_stat[c, :, j]
+        ok = np.isfinite(series)
+        if ok.sum() < 1:
+            continue
+        yv = float(np.interp(value, x[ok], series[ok]))
+        fig.add_trace(go.Scatter(x=[value], y=[yv], mode="markers+text", text=[title],
+                                 textposition="top center" if n % 2 == 0 else "bottom center",
+                                 name=title, hovertemplate=f"{title}: %{{x:.3g}}<extra></extra>",
+                                 marker={"symbol": "diamond", "size": 10, "color": PAPER,
+                                         "line": {"color": INK, "width": 1.5}},
+                                 textfont={"size": 10, "color": MUTED}, showlegend=False))
 
 
 def interval_figure(comp: pd.DataFrame, term: str, level: float) -> go.Figure:
     rows = comp[(comp.term == term) & comp.std_error.notna()].iloc[::-1]
     fig = go.Figure()
-    colors = [ACCENT if r else WARN for r in rows.rejects]
+    colors = [INK if r else MUTED for r in rows.rejects]
     fig.add_trace(go.Scatter(
         x=rows.estimate, y=rows.estimator, mode="markers",
         marker={"color": colors, "size": 8},
@@ -139,7 +187,8 @@ def interval_figure(comp: pd.DataFrame, term: str, level: float) -> go.Figure:
         hovertemplate="%{y}<br>[%{customdata[0]:.4g}, %{customdata[1]:.4g}]<extra></extra>",
         customdata=np.c_[rows.ci_low, rows.ci_high], showlegend=False))
     fig.add_vline(x=0, line={"color": INK, "width": 1})
-    fig.update_xaxes(title_text=f"{level:.0%} interval for {term} (green: excludes 0)")
+    fig.update_xaxes(title_text=f"{level:.0%} interval for {term} (dark: excludes 0, grey: "
+                     "includes 0)")
     return _base(fig, f"Interval for {term} across estimators", max(300, 26 * len(rows) + 90))
 
 
@@ -211,8 +260,8 @@ def fitted_scatter_figure(fit) -> go.Figure:
 
 def score_acf_figure(report) -> go.Figure:
     fig = go.Figure()
-    palette = list(KERNEL_COLORS.values())
-    for i, term in enumerate(report.score_acf.columns):
+    palette = list(PALETTE)
+    for i, term in enumerate(report.score_acf.columns):  # one line per moment
         fig.add_trace(go.Scatter(x=report.score_acf.index, y=report.score_acf[term],
                                  mode="lines+markers", name=term,
                                  line={"color": palette[i % len(palette)], "width": 1.5},
@@ -221,92 +270,3 @@ def score_acf_figure(report) -> go.Figure:
     fig.update_xaxes(title_text="lag")
     fig.update_yaxes(title_text="autocorrelation of x_t e_t")
     return _base(fig, "What HAC corrects for: autocorrelation of each moment contribution", 280)
-
-
-# --------------------------------------------------------------------------- tables
-
-def fmt(x, digits=4):
-    if x is None or (isinstance(x, float) and not math.isfinite(x)):
-        return ""
-    if isinstance(x, (bool, np.bool_)):
-        return "yes" if x else "no"
-    if isinstance(x, (int, np.integer)):
-        return str(int(x))
-    return f"{x:.{digits}g}"
-
-
-def fmt_p(p):
-    if p is None or not math.isfinite(p):
-        return ""
-    return "≤0.001" if p <= 0.001 else f"{p:.3f}"
-
-
-def coefficient_records(result) -> list[dict]:
-    t = result.table
-    return [{"term": term, "estimate": fmt(r.estimate), "std_error": fmt(r.std_error),
-             "t_stat": fmt(r.t_stat, 3), "p_value": fmt_p(r.p_value),
-             "interval": f"[{fmt(r.ci_low)}, {fmt(r.ci_high)}]"}
-            for term, r in t.iterrows()]
-
-
-COEF_COLUMNS = [{"name": "term", "id": "term"}, {"name": "estimate", "id": "estimate"},
-                {"name": "std. error", "id": "std_error"}, {"name": "t", "id": "t_stat"},
-                {"name": "p", "id": "p_value"}, {"name": "interval", "id": "interval"}]
-
-
-def short_reference(text: str) -> str:
-    """'Student t with 417 df' -> 't(417)', 'standard normal (large-sample)' -> 'normal'."""
-    if not isinstance(text, str) or not text:
-        return ""
-    if text.startswith("standard normal"):
-        return "normal"
-    if text.startswith("Student t with"):
-        df = text.split("with ")[1].split(" ")[0]
-        return f"t({df})" + (" EWC" if "EWC" in text else "")
-    if text.startswith("fixed-b"):
-        return "fixed-b"
-    return text
-
-
-def comparison_records(comp: pd.DataFrame, term: str, current_rejects: bool | None) -> list[dict]:
-    rows = comp[comp.term == term]
-    out = []
-    for _, r in rows.iterrows():
-        ok = np.isfinite(r.std_error)
-        verdict = ("rejects 0" if r.rejects else "keeps 0") if ok else "not available"
-        out.append({"estimator": r.estimator, "b": fmt(r.bandwidth, 3) if ok else "",
-                    "lags": fmt(r.lags) if ok and np.isfinite(r.lags) else "",
-                    "std_error": fmt(r.std_error), "t_stat": fmt(r.t_stat, 3),
-                    "p_value": fmt_p(r.p_value), "verdict": verdict,
-                    "reference": short_reference(r.reference) if ok else "",
-                    "differs": bool(ok and current_rejects is not None
-                                    and bool(r.rejects) != current_rejects),
-                    "note": "; ".join(x for x in (r.get("why"), r.note)
-                                      if isinstance(x, str) and x)})
-    return out
-
-
-def differs_style(records: list[dict]) -> list[dict]:
-    """DataTable styling that shades the rows whose conclusion differs from the current one."""
-    rows = [i for i, r in enumerate(records) if r.get("differs")]
-    if not rows:
-        return []
-    return [{"if": {"row_index": rows}, "backgroundColor": "#fbeee4", "color": "#7a3410"}]
-
-
-COMPARE_COLUMNS = [{"name": "estimator", "id": "estimator"}, {"name": "b", "id": "b"},
-                   {"name": "lags", "id": "lags"}, {"name": "std. error", "id": "std_error"},
-                   {"name": "t", "id": "t_stat"}, {"name": "p", "id": "p_value"},
-                   {"name": "conclusion", "id": "verdict"}, {"name": "law", "id": "reference"}]
-
-
-def diagnostics_records(report) -> list[dict]:
-    return [{"test": r.test, "statistic": fmt(r.statistic),
-             "df": "" if pd.isna(r.df) else fmt(r.df), "p_value": fmt_p(r.p_value),
-             "null": r.null, "convention": r.convention} for _, r in report.tests.iterrows()]
-
-
-DIAG_COLUMNS = [{"name": "test", "id": "test"}, {"name": "statistic", "id": "statistic"},
-                {"name": "df", "id": "df"}, {"name": "p", "id": "p_value"},
-                {"name": "null hypothesis", "id": "null"}, {"name": "convention",
-                                                            "id": "convention"}]

@@ -1,58 +1,47 @@
-"""Page structure only. Controls for estimator parameters are generated from the registry."""
+"""Page structure only. Estimator controls, the tuning slider and its rules are generated from
+the engine's family registry."""
 
 from __future__ import annotations
 
-from dash import dash_table, dcc, html
+import dash_ag_grid as dag
+from dash import dcc, html
 
-from ..engine import BANDWIDTH_RULES, ESTIMATORS, KERNELS, TRANSFORMS
+from ..engine import FAMILIES, KERNELS, TRANSFORMS
 from ..engine.covariance import Param
-
+from ..engine.laws import REQUESTS
 from .state import MAX_UPLOAD_BYTES
+from . import views
 
 REFERENCE_OPTIONS = [
-    {"label": "auto (the estimator's own law)", "value": "auto"},
-    {"label": "normal (large sample)", "value": "normal"},
-    {"label": "Student t, T - k df", "value": "t"},
-    {"label": "fixed-b (Kiefer-Vogelsang)", "value": "fixed-b"},
-]
-RULE_OPTIONS = [{"label": "fixed (slider)", "value": "fixed"}] + [
-    {"label": {"rule-of-thumb": "rule of thumb", "textbook": "0.75 T^(1/3)",
-               "llsw": "1.3 T^(1/2) (LLSW)", "andrews": "Andrews (1991)",
-               "newey-west": "Newey-West (1994)"}[k], "value": k} for k in BANDWIDTH_RULES]
-TABLE_STYLE = dict(
-    style_as_list_view=True, style_table={"overflowX": "auto"},
-    style_header={"fontWeight": "600", "backgroundColor": "#f1efe8", "color": "#1d2733",
-                  "border": "none", "fontSize": "12px"},
-    style_cell={"fontFamily": "Liberation Sans, Helvetica Neue, Arial, sans-serif",
-                "fontSize": "13px", "padding": "5px 8px",
-                "textAlign": "right", "border": "none", "borderBottom": "1px solid #ece9e1",
-                "whiteSpace": "normal", "height": "auto"},
-    style_cell_conditional=[{"if": {"column_id": c}, "textAlign": "left"}
-                            for c in ("term", "estimator", "test", "null", "convention",
-                                      "verdict", "reference", "column")],
-)
+    {"label": {"auto": "auto (the estimator's own law)", "normal": "normal (large sample)",
+               "t": "Student t", "fixed-b": "fixed-b (Kiefer-Vogelsang)"}[k], "value": k,
+     "title": text} for k, text in REQUESTS.items()]
+DEFAULT_FAMILY = "kernel"
+DEFAULT_RULE = "andrews"
 HELP = {
     "upload": f"CSV (comma, semicolon, tab or pipe; decimal commas and thousands separators "
               f"are recognised) or Parquet, up to {MAX_UPLOAD_BYTES // 2**20} MB. A date column is "
-              "used as the time index. Nothing leaves this computer.",
-    "slider": "The real bandwidth b: lag j gets weight k(j/b). Kernels that vanish beyond "
-              "|x| = 1 use ceil(b) - 1 lags, so Newey-West with L lags is b = L + 1. Quadratic "
-              "Spectral uses every lag.",
-    "rule": "How b is chosen. Rules of thumb are common practice, not optimal; Andrews and "
-            "Newey-West plug-ins estimate the autocorrelation of the scores. With a rule chosen "
-            "the slider shows where it landed; moving the slider switches to a fixed b.",
+              "used as the time index.",
+    "rule": "How the value is chosen. Rules of thumb are common practice, not optimal; the "
+            "Andrews and Newey-West plug-ins aim at the mean squared error of the variance "
+            "estimate, not at the size of the test. With a rule chosen the slider shows where "
+            "it landed; moving the slider switches to a value set by hand.",
     "reference": "Normal critical values are a large-sample approximation and are too small "
                  "when b/T is not small; fixed-b values account for the bandwidth; EWC's t(B) "
                  "law is exact for Gaussian location models. 'auto' uses the law each "
                  "estimator's theory gives.",
     "level": "Confidence level for intervals; tests are two-sided at 1 - level.",
     "transform": "Adds a column: lag/lead p, first difference, log, log difference, or the "
-                 "forward sum of the next h values (an overlapping h-period response, whose "
-                 "errors are MA(h-1)).",
+                 "sum of the next h values (an overlapping h-period response, whose errors are "
+                 "MA(h-1)).",
     "window": "Sample window over the time index (both ends included).",
     "headline": "All numbers assume a correctly specified linear model and stationary data; "
-                "the p-value is only as good as the reference law and bandwidth behind it.",
+                "the p-value is only as good as the reference law and bandwidth behind it. "
+                "Choose the estimator before looking at the results, and report the range "
+                "the sensitivity chart shows.",
 }
+CHART_FORMATS = ("png", "svg", "pdf")
+TABLE_FORMATS = ("csv", "markdown", "latex")
 
 
 def card(title: str, body, export=None, help_text: str | None = None, card_id=None, cls=""):
@@ -67,16 +56,17 @@ def card(title: str, body, export=None, help_text: str | None = None, card_id=No
                                                                   else {}))
 
 
-def export_menu(target: str, formats) -> html.Div:
-    return html.Div([html.Span("export", className="lw-export-label")] + [
+def export_menu(target: str, formats, copy: bool = False) -> html.Div:
+    items = [html.Span("export", className="lw-export-label")] + [
         html.Button(fmt.upper() if fmt != "markdown" else "MD",
                     id={"type": "export", "target": target, "fmt": fmt}, n_clicks=0,
                     className="lw-export-btn", title=f"download as {fmt}")
-        for fmt in formats], className="lw-export")
-
-
-CHART_FORMATS = ("png", "svg", "pdf")
-TABLE_FORMATS = ("csv", "markdown", "latex")
+        for fmt in formats]
+    if copy:
+        items.append(dcc.Clipboard(id={"type": "copy", "target": target},
+                                   title="copy the table (tab-separated) to the clipboard",
+                                   className="lw-export-btn lw-copy"))
+    return html.Div(items, className="lw-export")
 
 
 def graph(gid: str, height: int = 360):
@@ -88,42 +78,63 @@ def graph(gid: str, height: int = 360):
         type="dot", color="#0e6e64")
 
 
-def param_control(spec_name: str, p: Param, value=None):
+def grid(gid: str, columns: list[dict], height: str | None = None, **grid_options):
+    """An AG Grid table: sortable, resizable columns, selectable text, rows in DOM order."""
+    options = {"ensureDomOrder": True, "enableCellTextSelection": True, "tooltipShowDelay": 150,
+               "suppressCellFocus": True, **grid_options}
+    if height is None:
+        options["domLayout"] = "autoHeight"
+    return dag.AgGrid(id=gid, columnDefs=columns, rowData=[], columnSize="sizeToFit",
+                      defaultColDef={"sortable": True, "resizable": True, "minWidth": 60},
+                      dashGridOptions=options, className="ag-theme-quartz lw-grid-table",
+                      style={"height": height} if height else {"width": "100%"},
+                      getRowStyle=views.DIFFERS_STYLE)
+
+
+def param_control(p: Param, value=None):
     """One control for an estimator parameter, chosen by the parameter's kind."""
     pid = {"type": "est-param", "name": p.name}
     value = p.default if value is None else value
-    if p.kind == "choice":
-        labels = {k: v.display_name for k, v in KERNELS.items()} if p.name == "kernel" else {}
+    if p.kind in ("choice", "kernel"):
+        labels = {k: v.label for k, v in KERNELS.items()} if p.kind == "kernel" else {}
         ctrl = dcc.Dropdown(id=pid, options=[{"label": labels.get(c, str(c)), "value": c}
-                                             for c in p.choices], value=value, clearable=False)
+                                             for c in p.options], value=value, clearable=False)
     elif p.kind == "bool":
-        ctrl = dcc.Checklist(id=pid, options=[{"label": " " + p.name.replace("_", " "),
-                                               "value": "on"}],
+        ctrl = dcc.Checklist(id=pid, options=[{"label": " " + (p.title or p.name), "value": "on"}],
                              value=["on"] if value else [], className="lw-check")
     elif p.kind in ("int", "int_or_rule"):
-        opts = [{"label": "auto", "value": "auto"}] if p.kind == "int" else \
+        opts = [{"label": "automatic", "value": "auto"}] if p.kind == "int" else \
             [{"label": c, "value": c} for c in p.choices]
         lo = int(p.minimum or 0)
-        opts += [{"label": str(i), "value": i} for i in
-                 ([*range(lo, 13)] if p.kind == "int" else [2, 4, 6, 8, 10, 12, 16, 20, 24, 32,
-                                                            48, 64])]
+        opts += [{"label": str(i), "value": i} for i in range(lo, 25)]
         ctrl = dcc.Dropdown(id=pid, options=opts, value="auto" if value is None else value,
                             clearable=False)
     else:
         ctrl = dcc.Input(id=pid, type="number", value=value, debounce=True)
-    label = p.name.replace("_", " ") if p.kind != "bool" else None
+    label = (p.title or p.name.replace("_", " ")) if p.kind != "bool" else None
     return html.Div([html.Label(label, className="lw-label") if label else None, ctrl,
                      html.P(p.help, className="lw-help")], className="lw-field")
 
 
 def estimator_controls(name: str, values: dict | None = None):
-    spec = ESTIMATORS[name]
+    """Controls of a family's parameters, except those its tuning axis sets."""
+    family = FAMILIES[name]
     values = values or {}
-    return [param_control(name, p, values.get(p.name)) for p in spec.params
-            if p.kind != "bandwidth"] + [html.P(spec.assumptions, className="lw-help lw-assume")]
+    skip = family.axis.controlled if family.axis else set()
+    return [param_control(p, values.get(p.name)) for p in family.params
+            if p.name not in skip and p.kind != "bandwidth"] \
+        + [html.P(family.assumptions, className="lw-help lw-assume")]
 
 
-def sidebar(initial_horizon=None):
+def rule_options(name: str) -> list[dict]:
+    family = FAMILIES[name]
+    if family.axis is None:
+        return [{"label": "no tuning value", "value": "fixed"}]
+    return [{"label": f"set by hand ({family.axis.symbol} on the slider)", "value": "fixed"}] + [
+        {"label": title, "value": key} for key, (title, _) in family.axis.rules.items()]
+
+
+def sidebar(initial_horizon=None, where: str = "this computer"):
     return html.Aside([
         html.H2("Data & model", className="lw-side-title"),
         html.Div(dcc.Upload(id="upload", children=html.Div([
@@ -131,14 +142,15 @@ def sidebar(initial_horizon=None):
             className="lw-upload", max_size=MAX_UPLOAD_BYTES, multiple=False),
             **{"data-max-bytes": str(MAX_UPLOAD_BYTES)}),
         html.Div(id="upload-limit-note", className="lw-message", role="alert"),
-        html.P(HELP["upload"], className="lw-help"),
+        html.P(HELP["upload"] + f" The file goes to the Lagwise server on {where}.",
+               className="lw-help", id="upload-help"),
         html.Button("Use the demo data", id="load-demo", n_clicks=0, className="lw-btn-quiet"),
         dcc.Loading(html.Div(id="upload-message", className="lw-message"), type="dot",
                     color="#0e6e64"),
         html.Ul(id="load-report", className="lw-report"),
         html.Details([html.Summary("Preview and column summary"),
-                      dash_table.DataTable(id="col-summary", page_size=12, **TABLE_STYLE),
-                      dash_table.DataTable(id="preview", page_size=8, **TABLE_STYLE)],
+                      grid("col-summary", views.SUMMARY_COLUMNS),
+                      grid("preview", [], height="260px")],
                      className="lw-details"),
         html.Label("response", className="lw-label"),
         dcc.Dropdown(id="response", clearable=False),
@@ -150,8 +162,10 @@ def sidebar(initial_horizon=None):
             html.Summary("Transforms"),
             html.P(HELP["transform"], className="lw-help"),
             html.Div([
-                dcc.Dropdown(id="tf-kind", options=[{"label": k, "value": k} for k in TRANSFORMS],
-                             value="fsum", clearable=False, className="lw-tf-kind"),
+                dcc.Dropdown(id="tf-kind", options=[{"label": text, "value": k}
+                                                    for k, text in views.TRANSFORM_TITLES.items()
+                                                    if k in TRANSFORMS],
+                             value="sum-next", clearable=False, className="lw-tf-kind"),
                 dcc.Dropdown(id="tf-column", placeholder="column", className="lw-tf-col"),
                 dcc.Input(id="tf-p", type="number", value=12, min=1, step=1,
                           className="lw-tf-p"),
@@ -177,71 +191,76 @@ def sidebar(initial_horizon=None):
     ], className="lw-sidebar")
 
 
+def sensitivity_card():
+    est_options = [{"label": f.title, "value": f.name} for f in FAMILIES.values()]
+    chart = html.Div([
+        graph("sens-graph", 400),
+        html.Div([html.Label("show", className="lw-label"),
+                  dcc.RadioItems(id="chart-mode", options=[
+                      {"label": " t statistic", "value": "t"},
+                      {"label": " standard error", "value": "se"},
+                      {"label": " interval", "value": "ci"}],
+                      value="t", inline=True, className="lw-radio")], className="lw-row"),
+        html.Div(id="flip-text", className="lw-flip"),
+    ], className="lw-chart-col")
+    controls = html.Div([
+        html.Div([
+            html.Label(id="tune-title", children="bandwidth b", className="lw-label"),
+            dcc.Slider(id="tune-slider", min=1, max=60, step=1, value=13, marks=None,
+                       updatemode="drag",
+                       tooltip={"placement": "bottom", "always_visible": False}),
+            html.Div(id="tune-text", className="lw-bw-text"),
+            html.P(id="tune-help", className="lw-help")], className="lw-slider-box"),
+        html.Div([
+            html.Div([html.Label("estimator", className="lw-label"),
+                      dcc.Dropdown(id="est-name", options=est_options, value=DEFAULT_FAMILY,
+                                   clearable=False)], className="lw-field"),
+            html.Div([html.Label("value chosen by", className="lw-label"),
+                      dcc.Dropdown(id="tune-rule", options=rule_options(DEFAULT_FAMILY),
+                                   value=DEFAULT_RULE, clearable=False),
+                      html.P(HELP["rule"], className="lw-help")], className="lw-field"),
+        ], className="lw-grid"),
+        html.Div(estimator_controls(DEFAULT_FAMILY), id="est-params", className="lw-grid"),
+        html.Div([
+            html.Div([html.Label("reference law", className="lw-label"),
+                      dcc.Dropdown(id="reference", options=REFERENCE_OPTIONS,
+                                   value="auto", clearable=False),
+                      html.P(HELP["reference"], className="lw-help")],
+                     className="lw-field"),
+            html.Div([html.Label("confidence level", className="lw-label"),
+                      dcc.Dropdown(id="level", options=[
+                          {"label": f"{x:.0%}", "value": x} for x in (0.9, 0.95, 0.99)],
+                          value=0.95, clearable=False),
+                      html.P(HELP["level"], className="lw-help")], className="lw-field"),
+        ], className="lw-grid"),
+    ], className="lw-control-col")
+    return card("Sensitivity", [html.Div([chart, controls], className="lw-sens")],
+                export=export_menu("sens-graph", CHART_FORMATS))
+
+
 def main_area():
-    est_options = [{"label": s.display_name, "value": s.name} for s in ESTIMATORS.values()]
     return html.Main([
         html.Section([
             html.Div([html.Label("coefficient in focus", className="lw-label"),
                       dcc.Dropdown(id="focus", clearable=False, className="lw-focus")],
                      className="lw-headline-pick"),
-            html.Div(id="headline", className="lw-headline-text"),
+            html.Div(id="headline", className="lw-headline-text", **{"aria-live": "polite"}),
             html.P(HELP["headline"], className="lw-help")],
             className="lw-card lw-headline", id="headline-card"),
-        card("Sensitivity", [html.Div([
-            html.Div([
-                graph("sens-graph", 400),
-                html.Div([html.Label("show", className="lw-label"),
-                          dcc.RadioItems(id="chart-mode", options=[
-                              {"label": " t statistic", "value": "t"},
-                              {"label": " standard error", "value": "se"},
-                              {"label": " interval", "value": "ci"}],
-                              value="t", inline=True, className="lw-radio")], className="lw-row"),
-                html.Div(id="flip-text", className="lw-flip"),
-            ], className="lw-chart-col"),
-            html.Div([
-                html.Div([
-                    html.Label("bandwidth b", className="lw-label"),
-                    dcc.Slider(id="bw-slider", min=1, max=60, step=1, value=13,
-                               marks=None, updatemode="drag",
-                               tooltip={"placement": "bottom", "always_visible": False}),
-                    html.Div(id="bw-text", className="lw-bw-text"),
-                    html.P(HELP["slider"], className="lw-help")], className="lw-slider-box"),
-                html.Div([
-                    html.Div([html.Label("estimator", className="lw-label"),
-                              dcc.Dropdown(id="est-name", options=est_options, value="kernel",
-                                           clearable=False)], className="lw-field"),
-                    html.Div([html.Label("bandwidth rule", className="lw-label"),
-                              dcc.Dropdown(id="bw-rule", options=RULE_OPTIONS, value="fixed",
-                                           clearable=False),
-                              html.P(HELP["rule"], className="lw-help")], className="lw-field"),
-                ], className="lw-grid"),
-                html.Div(id="est-params", className="lw-grid"),
-                html.Div([
-                    html.Div([html.Label("reference law", className="lw-label"),
-                              dcc.Dropdown(id="reference", options=REFERENCE_OPTIONS,
-                                           value="auto", clearable=False),
-                              html.P(HELP["reference"], className="lw-help")],
-                             className="lw-field"),
-                    html.Div([html.Label("confidence level", className="lw-label"),
-                              dcc.Dropdown(id="level", options=[
-                                  {"label": f"{x:.0%}", "value": x} for x in (0.9, 0.95, 0.99)],
-                                  value=0.95, clearable=False),
-                              html.P(HELP["level"], className="lw-help")], className="lw-field"),
-                ], className="lw-grid"),
-            ], className="lw-control-col"),
-        ], className="lw-sens")], export=export_menu("sens-graph", CHART_FORMATS)),
+        sensitivity_card(),
         html.Div([
             card("Coefficients", [html.Div(id="coef-caption", className="lw-caption"),
-                                  dash_table.DataTable(id="coef-table", **TABLE_STYLE),
+                                  grid("coef-table", views.COEF_COLUMNS),
                                   html.Ul(id="coef-notes", className="lw-notes")],
-                 export=export_menu("coef-table", TABLE_FORMATS)),
+                 export=export_menu("coef-table", TABLE_FORMATS, copy=True)),
             card("Every estimator, coefficient in focus", [
                 html.P("Shaded rows reach a different conclusion from the current choice; "
-                       "hover an estimator for its notes.", className="lw-help"),
-                dcc.Loading(dash_table.DataTable(id="compare-table", tooltip_duration=None,
-                                                 **TABLE_STYLE),
+                       "hover an estimator for its notes. A different conclusion is not an "
+                       "error of either estimator: it shows how much the answer depends on "
+                       "the choice.", className="lw-help"),
+                dcc.Loading(grid("compare-table", views.COMPARE_COLUMNS),
                             type="dot", color="#0e6e64")],
-                 export=export_menu("compare-table", TABLE_FORMATS)),
+                 export=export_menu("compare-table", TABLE_FORMATS, copy=True)),
         ], className="lw-results"),
         card("Interval across estimators", [graph("interval-graph", 420)],
              export=export_menu("interval-graph", CHART_FORMATS)),
@@ -258,28 +277,29 @@ def main_area():
             card("Moment contributions", [graph("score-graph", 280)],
                  export=export_menu("score-graph", CHART_FORMATS)),
         ], className="lw-diag-grid"),
-        card("Diagnostic tests", [dash_table.DataTable(id="diag-table", page_size=30,
-                                                       **TABLE_STYLE)],
-             export=export_menu("diag-table", TABLE_FORMATS)),
+        card("Diagnostic tests", [grid("diag-table", views.DIAG_COLUMNS)],
+             export=export_menu("diag-table", TABLE_FORMATS, copy=True)),
         html.Div([html.Button("download an HTML report of this view", id="export-report",
                               n_clicks=0, className="lw-btn")], className="lw-report-row"),
     ], className="lw-main")
 
 
-def build_layout(session: str, initial: dict):
+def build_layout(session: str, initial: dict, where: str = "this computer", badge: str = ""):
+    spec = initial.get("spec") or {}
     return html.Div([
         dcc.Store(id="session", data=session),
         dcc.Store(id="dataset-key", data=initial.get("dataset_key")),
         dcc.Store(id="fit-key"),
+        dcc.Store(id="compare-shown"),
         dcc.Store(id="pending-settings", data=initial.get("settings")),
-        dcc.Store(id="initial-spec", data=initial.get("spec")),
+        dcc.Store(id="initial-spec", data=spec),
         dcc.Download(id="download"),
         html.Header([
             html.Div([html.Span("Lagwise", className="lw-brand"),
                       html.Span("does the t-statistic survive the lag choice?",
                                 className="lw-tagline")]),
-            html.Span("local session · 127.0.0.1", className="lw-badge")],
+            html.Span(badge, className="lw-badge", id="badge")],
             className="lw-header"),
-        html.Div([sidebar((initial.get("spec") or {}).get("horizon")), main_area()],
-                 className="lw-body"),
+        html.Div(initial.get("message") or "", id="page-message", className="lw-message"),
+        html.Div([sidebar(spec.get("horizon"), where), main_area()], className="lw-body"),
     ], className="lw-page")

@@ -1,4 +1,9 @@
-"""create_app() and the `lagwise serve` entry point (127.0.0.1, debug off unless asked)."""
+"""create_app() and the `lagwise serve` entry point (127.0.0.1, debug off unless asked).
+
+Safe by default: the server answers only requests whose Host header names the address it was
+started on (loopback names by default: a page elsewhere cannot drive it by DNS rebinding), sends
+a content security policy the app itself passes, no MIME sniffing and no framing by other
+origins, bounds request bodies, and issues every session id itself."""
 
 from __future__ import annotations
 
@@ -6,56 +11,118 @@ import logging
 from pathlib import Path
 
 from dash import Dash
+from flask import Response, request
 
 from .._files import assets_dir, demo_file
-
 from . import callbacks
 from .layout import build_layout
-from .state import MAX_UPLOAD_BYTES, new_session_id
+from .state import MAX_UPLOAD_BYTES, STORE, CapacityError
 
 DEMO_SPEC = {"response": "exret_12m", "regressors": ["rate_capacity", "credit_spread"],
              "horizon": 12}
+LOOPBACK = ("127.0.0.1", "localhost", "::1", "[::1]")
 
 
-def create_app(data_path: str | Path | None = None, settings: dict | None = None) -> Dash:
+def _host_names(host: str, extra=()) -> set[str]:
+    names = {host, *extra}
+    if host in LOOPBACK or host in ("", None):
+        names |= set(LOOPBACK)
+    return {n.strip("[]").lower() for n in names if n}
+
+
+def _request_host() -> str:
+    raw = (request.host or "").lower()
+    if raw.startswith("["):                       # [::1]:8050
+        return raw[1:raw.find("]")] if "]" in raw else raw
+    return raw.rsplit(":", 1)[0] if raw.count(":") == 1 else raw
+
+
+def create_app(data_path: str | Path | None = None, settings: dict | None = None,
+               host: str = "127.0.0.1", allowed_hosts=()) -> Dash:
     """The Dash app. data_path: a file opened for every new page (default: the demo data);
-    settings: a settings record applied when the page loads."""
+    settings: a validated settings record applied when the page loads; host: the address the
+    server listens on (it decides which Host headers are answered and what the page says about
+    where files go); allowed_hosts: more names to answer to."""
     path = Path(data_path) if data_path else demo_file()
     raw = path.read_bytes()
     name = path.name
     spec = dict(DEMO_SPEC) if data_path is None else None
     if settings and settings.get("response"):
-        spec = {"response": settings["response"], "regressors": settings.get("regressors", [])}
+        spec = {"response": settings["response"], "regressors": settings.get("regressors", []),
+                "horizon": settings.get("horizon")}
     app = Dash(__name__, assets_folder=str(assets_dir()), title="Lagwise",
                update_title=None, suppress_callback_exceptions=True)
     # bound request bodies (an upload arrives base64-encoded, about 4/3 of the file)
     app.server.config["MAX_CONTENT_LENGTH"] = int(MAX_UPLOAD_BYTES * 1.4) + 1_000_000
+    local = host in LOOPBACK
+    where = "this computer" if local else f"{host} (other machines can reach it)"
+    badge = f"local session · {host}" if local else f"served on {host} · reachable by others"
 
     def layout():
-        session = new_session_id()
+        try:
+            session = STORE.open_session()
+        except CapacityError as exc:
+            return build_layout("", {"message": str(exc)}, where, badge)
         key = None
         try:
             key, _ = callbacks.dataset_from_bytes(session, raw, name)
         except Exception as exc:  # noqa: BLE001 - shown on the page, never a traceback
             logging.getLogger("lagwise").warning("could not load %s: %s", name, exc)
-        return build_layout(session, {"dataset_key": key, "spec": spec, "settings": settings})
+        return build_layout(session, {"dataset_key": key, "spec": spec, "settings": settings},
+                            where, badge)
 
     app.layout = layout
     callbacks.register(app)
+    _protect(app, _host_names(host, allowed_hosts))
     return app
 
 
+def _protect(app: Dash, hosts: set[str]) -> None:
+    server = app.server
+
+    @server.before_request
+    def _check_host():
+        if _request_host() not in hosts:
+            return Response("unknown host: this Lagwise server answers only for "
+                            + ", ".join(sorted(hosts)) + "\n", status=421,
+                            mimetype="text/plain")
+        return None
+
+    @server.after_request
+    def _headers(response):
+        response.headers.setdefault("Content-Security-Policy", _csp(app))
+        response.headers.setdefault("X-Content-Type-Options", "nosniff")
+        response.headers.setdefault("X-Frame-Options", "DENY")
+        response.headers.setdefault("Referrer-Policy", "no-referrer")
+        response.headers.setdefault("Cross-Origin-Opener-Policy", "same-origin")
+        return response
+
+
+def _csp(app: Dash) -> str:
+    cached = app.server.config.get("LAGWISE_CSP")
+    if cached is None:
+        hashes = " ".join(app.csp_hashes())
+        cached = ("default-src 'self'; "
+                  f"script-src 'self' {hashes}; "
+                  "style-src 'self' 'unsafe-inline'; img-src 'self' data: blob:; "
+                  "font-src 'self' data:; connect-src 'self'; worker-src 'self' blob:; "
+                  "object-src 'none'; base-uri 'self'; form-action 'self'; "
+                  "frame-ancestors 'none'")
+        app.server.config["LAGWISE_CSP"] = cached
+    return cached
+
+
 def serve(file=None, host: str = "127.0.0.1", port: int = 8050, debug: bool = False,
-          settings=None) -> int:
+          settings=None, allowed_hosts=()) -> int:
     settings_record = None
     if settings:
         from ..engine.export import load_settings
-        settings_record = load_settings(Path(settings).read_text())
+        settings_record = load_settings(Path(settings).read_bytes())
     if file:
         from .. import engine
         engine.load_table(file)            # fail early with a clear message
-    app = create_app(file, settings_record)
-    if host not in ("127.0.0.1", "localhost", "::1"):
+    app = create_app(file, settings_record, host=host, allowed_hosts=allowed_hosts)
+    if host not in LOOPBACK:
         print(f"warning: serving on {host}: anyone who can reach this address can use the app")
     print(f"Lagwise on http://{host}:{port}/  (Ctrl+C to stop)")
     if not debug:

@@ -1,8 +1,13 @@
-"""Server-side store of datasets, fits and derived results, bounded in entries and bytes.
+"""The server-side store: per-session budgets inside a global byte cap.
 
-The browser holds only keys and small settings. Keys combine a per-page session id (a random
-token minted when the page is served) with a content hash, so two browser sessions never reach
-each other's data even when they upload the same file.
+The browser holds only a session id and keys; tables, fits, sweeps and every other derived
+result stay here. Session ids are issued by the server when a page is served (`open_session`)
+and nothing is stored for an id the server did not issue. Each session has its own byte budget:
+when a session exceeds it, that session's least recently used entries are evicted (and the
+session is told so when it asks for them again); another session's data is never evicted to make
+room. When the global cap would be exceeded, sessions idle for longer than the idle limit are
+closed first; if that is not enough the new entry is refused with a message. Sizes count every
+array an object holds, including a fit's filled caches (`refresh`).
 """
 
 from __future__ import annotations
@@ -11,19 +16,32 @@ import hashlib
 import json
 import secrets
 import threading
+import time
 from collections import OrderedDict
 
-import numpy as np
+from ..engine.caches import nbytes_of
+from ..engine.errors import LagwiseError
 
 #: Upload limit shown on screen and enforced on the server (bytes of the decoded file).
 MAX_UPLOAD_BYTES = 25 * 1024 * 1024
-#: Bound on everything kept server-side (approximate bytes) and on the number of entries.
-MAX_CACHE_BYTES = 1_500 * 1024 * 1024
-MAX_ENTRIES = 64
+#: Everything held server-side, all sessions together.
+MAX_TOTAL_BYTES = 3 * 1024**3
+#: What one session may hold.
+SESSION_BYTES = 900 * 1024**2
+#: Entries per session.
+SESSION_ENTRIES = 48
+#: Sessions at most, and how long an untouched session is kept.
+MAX_SESSIONS = 400
+IDLE_SECONDS = 4 * 3600
 
 
-def new_session_id() -> str:
-    return secrets.token_urlsafe(16)
+class CapacityError(LagwiseError):
+    """The server holds as much as it may; the request is refused instead of evicting another
+    session's data."""
+
+
+class SessionError(LagwiseError):
+    """A session id the server did not issue, or one that has expired."""
 
 
 def content_hash(data: bytes) -> str:
@@ -34,84 +52,152 @@ def spec_hash(obj) -> str:
     return hashlib.sha256(json.dumps(obj, sort_keys=True, default=str).encode()).hexdigest()[:24]
 
 
-def _size(obj) -> int:
-    """Rough memory footprint of a cached object."""
-    if isinstance(obj, np.ndarray):
-        return obj.nbytes
-    frame = getattr(obj, "frame", None)
-    if frame is not None:
-        return int(frame.memory_usage(index=True, deep=False).sum())
-    total = 0
-    attrs = getattr(obj, "__dict__", {})
-    for attr in ("X", "q", "raw_scores", "scores", "_cosine"):
-        arr = attrs.get(attr)
-        if isinstance(arr, np.ndarray):
-            total += arr.nbytes
-    for name in ("moments", "_influence"):
-        cache = attrs.get(name)
-        if cache is not None:
-            if getattr(cache, "_packed", None) is not None:
-                total += cache._packed.nbytes
-            total += sum(v[2].nbytes for v in getattr(cache, "_far", {}).values())
-    return max(total, 1024)
+def size_of(value) -> int:
+    return max(nbytes_of(value), 1024)
+
+
+class _Session:
+    def __init__(self):
+        self.entries: OrderedDict[str, tuple[object, int]] = OrderedDict()
+        self.evicted: set[str] = set()
+        self.touched = time.monotonic()
+
+    @property
+    def nbytes(self) -> int:
+        return sum(size for _, size in self.entries.values())
 
 
 class Store:
-    """A thread-safe LRU map, evicting least-recently-used entries beyond the bounds."""
+    """Thread-safe, session-scoped, bounded."""
 
-    def __init__(self, max_bytes: int = MAX_CACHE_BYTES, max_entries: int = MAX_ENTRIES):
-        self._data: OrderedDict[str, tuple[object, int]] = OrderedDict()
-        self._lock = threading.Lock()
-        self.max_bytes = max_bytes
-        self.max_entries = max_entries
+    def __init__(self, total_bytes: int = MAX_TOTAL_BYTES, session_bytes: int = SESSION_BYTES,
+                 session_entries: int = SESSION_ENTRIES, max_sessions: int = MAX_SESSIONS,
+                 idle_seconds: float = IDLE_SECONDS):
+        self._sessions: dict[str, _Session] = {}
+        self._lock = threading.RLock()
+        self.total_bytes = total_bytes
+        self.session_bytes = session_bytes
+        self.session_entries = session_entries
+        self.max_sessions = max_sessions
+        self.idle_seconds = idle_seconds
 
-    def put(self, key: str, value) -> str:
+    # ------------------------------------------------------------------ sessions
+    def open_session(self) -> str:
         with self._lock:
-            self._data[key] = (value, _size(value))
-            self._data.move_to_end(key)
-            self._evict()
+            self._expire_idle()
+            if len(self._sessions) >= self.max_sessions:
+                raise CapacityError("the server has as many open sessions as it allows; "
+                                    "try again later")
+            sid = secrets.token_urlsafe(18)
+            self._sessions[sid] = _Session()
+            return sid
+
+    def has_session(self, sid) -> bool:
+        return isinstance(sid, str) and sid in self._sessions
+
+    def _session(self, sid) -> _Session:
+        s = self._sessions.get(sid) if isinstance(sid, str) else None
+        if s is None:
+            raise SessionError("this page's session is not known to the server (it expired or "
+                               "the server restarted): reload the page")
+        s.touched = time.monotonic()
+        return s
+
+    def _expire_idle(self):
+        now = time.monotonic()
+        for sid in [k for k, s in self._sessions.items() if now - s.touched > self.idle_seconds]:
+            del self._sessions[sid]
+
+    # ------------------------------------------------------------------ entries
+    @property
+    def nbytes(self) -> int:
+        return sum(s.nbytes for s in self._sessions.values())
+
+    def put(self, sid: str, key: str, value) -> str:
+        size = size_of(value)
+        with self._lock:
+            s = self._session(sid)
+            if size > self.session_bytes:
+                raise CapacityError(f"this result needs {size / 2**20:.0f} MiB, more than a "
+                                    f"session may hold ({self.session_bytes / 2**20:.0f} MiB); "
+                                    "use a shorter sample or fewer columns")
+            # plan: this session's own least recently used entries go first, for its budget
+            # and for the global cap; another session's data is never touched
+            others = self.nbytes - s.nbytes
+            victims, own = [], s.nbytes - (s.entries[key][1] if key in s.entries else 0)
+            for k, (_, sz) in s.entries.items():
+                if k == key:
+                    continue
+                if (own + size <= self.session_bytes and others + own + size <= self.total_bytes
+                        and len(s.entries) - len(victims) - (key in s.entries) < self.session_entries):
+                    break
+                victims.append(k)
+                own -= sz
+            if others + own + size > self.total_bytes:
+                self._expire_idle()
+                others = self.nbytes - s.nbytes
+                if others + own + size > self.total_bytes:
+                    raise CapacityError("the server is holding as much data as it may; close "
+                                        "other sessions or try again later")
+            for k in victims:
+                s.entries.pop(k)
+                s.evicted.add(k)
+            s.entries.pop(key, None)
+            s.entries[key] = (value, size)
+            s.evicted.discard(key)
         return key
 
-    def get(self, key: str | None):
-        if not key:
+    def _trim(self, s: _Session, keep: str):
+        while (len(s.entries) > self.session_entries or s.nbytes > self.session_bytes) \
+                and len(s.entries) > 1:
+            victim = next(k for k in s.entries if k != keep)
+            s.entries.pop(victim)
+            s.evicted.add(victim)
+
+    def get(self, sid, key):
+        """The value, or None. A key this session never stored is None as well."""
+        if not key or not isinstance(key, str):
             return None
         with self._lock:
-            item = self._data.get(key)
+            s = self._sessions.get(sid) if isinstance(sid, str) else None
+            if s is None:
+                return None
+            s.touched = time.monotonic()
+            item = s.entries.get(key)
             if item is None:
                 return None
-            self._data.move_to_end(key)
+            s.entries.move_to_end(key)
             return item[0]
 
-    def refresh_size(self, key: str) -> None:
+    def was_evicted(self, sid, key) -> bool:
+        s = self._sessions.get(sid) if isinstance(sid, str) else None
+        return bool(s and key in s.evicted)
+
+    def refresh(self, sid, key) -> None:
+        """Re-count an entry whose caches have grown (a fit after its first sweep)."""
         with self._lock:
-            if key in self._data:
-                value = self._data[key][0]
-                self._data[key] = (value, _size(value))
-                self._evict()
+            s = self._sessions.get(sid) if isinstance(sid, str) else None
+            if s is None or key not in s.entries:
+                return
+            value = s.entries[key][0]
+            s.entries[key] = (value, size_of(value))
+            self._trim(s, keep=key)
 
-    def _evict(self):
-        total = sum(s for _, s in self._data.values())
-        while self._data and (len(self._data) > self.max_entries or total > self.max_bytes):
-            if len(self._data) == 1:
-                break
-            _, (_, size) = self._data.popitem(last=False)
-            total -= size
+    def keys(self, sid) -> list[str]:
+        s = self._sessions.get(sid) if isinstance(sid, str) else None
+        return list(s.entries) if s else []
 
-    def __len__(self):
-        return len(self._data)
-
-    def keys(self):
-        return list(self._data)
+    def derived(self, sid, key: str, build):
+        """A result derived from stored objects, computed once and kept in this session."""
+        value = self.get(sid, key)
+        if value is None:
+            value = build()
+            self.put(sid, key, value)
+        return value
 
 
 STORE = Store()
 
 
-def key_for(session: str, *parts) -> str:
-    if not session:
-        raise ValueError("missing session id")
-    return session + ":" + ":".join(str(p) for p in parts)
-
-
-def owned(session: str, key: str | None) -> bool:
-    return bool(key) and bool(session) and key.startswith(session + ":")
+def key_for(*parts) -> str:
+    return ":".join(str(p) for p in parts)

@@ -1,6 +1,6 @@
 """Lagwise engine: fit once, then the whole family of covariance estimators from the cache.
 
-Public API (see README.md):
+Public API (re-exported as `lagwise`; see README.md):
 
     table = load_table("file.csv")
     fit = fit_ols(table, response="y", regressors=["x1", "x2"])
@@ -11,9 +11,11 @@ Public API (see README.md):
 
 from .errors import DataError, EstimationError, LagwiseError, SpecificationError
 from .data import LoadReport, Table, load_table, transform, TRANSFORMS
-from .kernels import KERNELS, get_kernel
-from .model import OLSFit, fit_ols, INTERCEPT
-from .covariance import ESTIMATORS, Estimator, EstimatorSpec, estimator, estimators
+from .kernels import KERNELS, Kernel, get_kernel, register_kernel
+from .laws import EWCLaw, FixedB, Law, Normal, StudentT
+from .model import MomentModel, OLSFit, fit_ols, INTERCEPT
+from .covariance import (FAMILIES, Estimator, Family, Param, TuningAxis, estimator, estimators,
+                         register_family)
 from .bandwidth import RULES as BANDWIDTH_RULES, select_bandwidth, BandwidthChoice
 from .inference import Inference, WaldTest, infer
 from .sweep import Flip, SweepResult, significance_flip, sweep
@@ -24,8 +26,11 @@ from .diagnostics import DiagnosticReport, diagnose
 __all__ = [
     "DataError", "EstimationError", "LagwiseError", "SpecificationError",
     "LoadReport", "Table", "load_table", "transform", "TRANSFORMS",
-    "KERNELS", "get_kernel", "OLSFit", "fit_ols", "INTERCEPT",
-    "ESTIMATORS", "Estimator", "EstimatorSpec", "estimator", "estimators",
+    "KERNELS", "Kernel", "get_kernel", "register_kernel",
+    "Law", "Normal", "StudentT", "EWCLaw", "FixedB",
+    "MomentModel", "OLSFit", "fit_ols", "INTERCEPT",
+    "FAMILIES", "Estimator", "Family", "Param", "TuningAxis", "estimator", "estimators",
+    "register_family",
     "BANDWIDTH_RULES", "select_bandwidth", "BandwidthChoice",
     "Inference", "WaldTest", "infer", "SweepResult", "sweep", "Flip", "significance_flip",
     "fixed_b_critical_value", "fixed_b_p_value", "compare", "DiagnosticReport", "diagnose",

@@ -1,7 +1,7 @@
-"""The estimator comparison: every registered estimator's presets for one fit, side by side.
+"""The estimator comparison: every registered family's presets for one model, side by side.
 
-Generated from the registry (engine.covariance.ESTIMATORS): a new estimator with presets
-appears here, in the CLI and in the app without further edits.
+Generated from the registry (engine.covariance.FAMILIES): a new family with presets appears here,
+in the CLI and in the app without further edits.
 """
 
 from __future__ import annotations
@@ -9,64 +9,82 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from .covariance import ESTIMATORS
+from .covariance import FAMILIES
 from .errors import LagwiseError
 from .inference import infer
 
-
-def supports_fixed_b(est) -> bool:
-    from .fixedb import FIXED_B_KERNELS
-    return est.spec.has_bandwidth and est.params.get("kernel") in FIXED_B_KERNELS \
-        and not est.params.get("prewhiten")
+COLUMNS = ["estimator", "family", "term", "estimate", "std_error", "t_stat", "p_value", "ci_low",
+           "ci_high", "bandwidth", "lags", "reference", "law", "rejects", "note", "why", "flags"]
 
 
-def family_presets(fit, kernel=None, bandwidth=None) -> list:
+def family_presets(model, kernel=None, bandwidth=None) -> list:
     out = []
-    for spec in ESTIMATORS.values():
-        if spec.presets is not None:
-            out.extend(spec.presets(fit, kernel, bandwidth))
+    for family in FAMILIES.values():
+        if family.presets is not None and family.applies(model) is None:
+            out.extend(family.presets(model, kernel, bandwidth))
     return out
 
 
-def compare(fit, level: float = 0.95, reference: str = "auto", kernel=None, bandwidth=None,
+def compare(model, level: float = 0.95, reference: str = "auto", kernel=None, bandwidth=None,
             estimators=None) -> pd.DataFrame:
     """One row per (estimator setting, term): std_error, t_stat, p_value, interval, b, lags,
-    reference law, whether the zero null is rejected at 1 - level, and notes. An estimator that
-    cannot be computed on this fit appears with its reason in `note` (never a silent NaN)."""
+    reference law (in words, and as a short label), whether the zero null is rejected at
+    1 - level, notes and flags. An estimator that cannot be computed on this model appears with
+    its reason in `note` (never a silent NaN). Items of `estimators` are estimators or
+    (estimator, law request or None, why) tuples."""
     rows = []
-    for item in (estimators if estimators is not None else family_presets(fit, kernel, bandwidth)):
+    for item in (estimators if estimators is not None else family_presets(model, kernel,
+                                                                           bandwidth)):
         est, ref, why = (item if isinstance(item, tuple) else (item, None, ""))
         wanted = ref or reference
-        if wanted == "fixed-b" and not supports_fixed_b(est):
-            # fixed-b values exist for some kernels only; the others keep their own law
-            wanted = "auto"
-            why = (why + "; " if why else "") + "fixed-b not defined for this estimator: its " \
-                "own reference law is used"
+        label = est.label
         try:
-            res = infer(fit, est, level=level, reference=wanted)
+            try:
+                res = infer(model, est, level=level, reference=wanted)
+            except LagwiseError as exc:
+                if wanted != "fixed-b" or "fixed-b" not in str(exc):
+                    raise
+                # fixed-b values exist for some estimators only; the others keep their own law
+                res = infer(model, est, level=level, reference="auto")
+                why = (why + "; " if why else "") + "fixed-b not defined for this estimator: " \
+                    "its own reference law is used"
         except LagwiseError as exc:
-            for term in fit.terms:
-                rows.append({"estimator": est.label, "family": est.spec.family, "term": term,
-                             "estimate": fit.params[term], "std_error": np.nan,
+            for term in model.terms:
+                rows.append({"estimator": label, "family": est.family.name, "term": term,
+                             "estimate": model.params[term], "std_error": np.nan,
                              "t_stat": np.nan, "p_value": np.nan, "ci_low": np.nan,
                              "ci_high": np.nan, "bandwidth": np.nan, "lags": np.nan,
-                             "reference": "", "rejects": None, "note": str(exc), "why": why})
+                             "reference": "", "law": "", "rejects": None, "note": str(exc),
+                             "why": why, "flags": ""})
             continue
         lr = res.long_run
-        label = est.label if lr.bandwidth is None or not isinstance(
-            est.params.get("bandwidth"), str) else f"{est.label.split(',')[0]}, " \
-            f"{est.params['bandwidth']}"
-        if ref == "fixed-b" and res.reference == "fixed-b":
+        label = res.label
+        short = lags_short_of_horizon(model, lr)
+        if short:
+            why = (why + "; " if why else "") + short
+        if ref == "fixed-b" and res.law.key == "fixed-b":
             label += ", fixed-b"
         for term, row in res.table.iterrows():
-            rows.append({"estimator": label, "family": est.spec.family, "term": term,
+            ok = np.isfinite(row.p_value)
+            rows.append({"estimator": label, "family": est.family.name, "term": term,
                          "estimate": row.estimate, "std_error": row.std_error,
                          "t_stat": row.t_stat, "p_value": row.p_value, "ci_low": row.ci_low,
                          "ci_high": row.ci_high,
                          "bandwidth": np.nan if lr.bandwidth is None else lr.bandwidth,
                          "lags": np.nan if lr.lags is None else lr.lags,
-                         "reference": res.reference_text(),
-                         "rejects": bool(row.p_value < 1 - level) if np.isfinite(row.p_value)
-                         else None,
-                         "note": "; ".join(lr.notes), "why": why})
-    return pd.DataFrame(rows)
+                         "reference": res.law.describe(), "law": res.law.label,
+                         "rejects": bool(row.p_value < 1 - level) if ok else None,
+                         "note": "; ".join(res.notes[len(model.sample.notes):]), "why": why,
+                         "flags": ",".join(sorted(lr.flags))})
+    return pd.DataFrame(rows, columns=COLUMNS)
+
+
+def lags_short_of_horizon(model, lr) -> str | None:
+    """Under an overlapping h-period response the errors are MA(h-1) by construction: a kernel
+    estimate using fewer than h - 1 lags cannot capture that. Returns the warning, or None."""
+    h = getattr(model, "horizon", None)
+    if h and h > 1 and lr.bandwidth is not None and lr.lags is not None and lr.lags < h - 1:
+        return (f"uses {lr.lags} lags, fewer than h - 1 = {h - 1}: the overlapping {h}-period "
+                f"response has MA({h - 1}) errors by construction, which these lags cannot "
+                "fully capture")
+    return None

@@ -1,10 +1,15 @@
-"""The estimator registry and the sandwich V = Q^-1 S Q^-1 / T.
+"""Estimator families: the unit of extension.
 
-Each estimator is registered once, with its display name, published reference, parameters,
-assumptions and whether it is positive semi-definite by construction. The CLI, the comparison
-table, the sweep and the app are generated from this registry: adding an estimator is one
-`register(...)` call plus its tests (tests/test_estimator_contract.py runs the common contract
-over every registered estimator).
+A family is defined once, here or in its own module with `register_family`: its parameters (with
+validation and help text), how it estimates S, whether the estimate is PSD, the label built from
+its parameters, its tuning axis (kernel bandwidth b, EWC's number of cosines B, the VAR order) with
+the grid the sensitivity chart uses, its reference law (and fixed-b law where it has one), its
+sweep along the axis (default: one `infer` per grid point), and the configurations the comparison
+table shows. The app, the CLI, the comparison and the contract tests are generated from this
+registry; no code elsewhere switches on a family's name.
+
+`estimator(name, **params)` configures one: a family name, or a shorthand such as "hc1"
+(= family "hc" with kind "hc1").
 """
 
 from __future__ import annotations
@@ -14,7 +19,8 @@ from typing import Any, Callable
 
 import numpy as np
 
-from . import longrun
+from . import laws, longrun
+from .bandwidth import RULES, check_bandwidth_setting, resolve_bandwidth, rule_title
 from .errors import SpecificationError
 from .kernels import KERNELS, get_kernel
 
@@ -24,279 +30,469 @@ class Param:
     """One estimator parameter: its kind drives validation and the app's control."""
 
     name: str
-    kind: str     # "choice" | "bandwidth" | "bool" | "int" | "float" | "int_or_rule"
+    kind: str     # "choice" | "kernel" | "bandwidth" | "bool" | "int" | "float" | "int_or_rule"
     default: Any
     help: str
     choices: tuple = ()
     minimum: float | None = None
+    title: str = ""                 # label of the control (default: the name in words)
+
+    @property
+    def options(self) -> tuple:
+        """Current choices (a kernel parameter follows the kernel registry)."""
+        return tuple(KERNELS) if self.kind == "kernel" else self.choices
 
 
 @dataclass(frozen=True)
-class EstimatorSpec:
+class TuningAxis:
+    """The parameter a family's sensitivity chart moves along, and its grid."""
+
+    param: str                                  # the parameter it sets
+    symbol: str                                 # "b", "B", "p"
+    title: str                                  # axis title, e.g. "bandwidth b"
+    grid: Callable[[object], np.ndarray]        # model -> default grid of values
+    fixed: dict = field(default_factory=dict)   # parameters set while moving along the axis
+    help: str = ""
+    #: automatic choices of the value: rule key -> (title, parameters it sets)
+    rules: dict = field(default_factory=dict)
+
+    def params_at(self, params: dict, value) -> dict:
+        return {**params, **self.fixed, self.param: value}
+
+    @property
+    def controlled(self) -> set:
+        """Parameters the axis (its slider and rules) sets; not shown as separate controls."""
+        out = {self.param, *self.fixed}
+        for _, changes in self.rules.values():
+            out |= set(changes)
+        return out
+
+
+@dataclass(frozen=True)
+class ModelInfo:
+    """What a reference law needs to know about the model."""
+
+    nobs: int
+    df_resid: float
+
+
+@dataclass(frozen=True)
+class Family:
     name: str
-    display_name: str
-    reference: str
+    title: str                      # display name of the family
+    citation: str
     assumptions: str
     params: tuple[Param, ...]
-    compute: Callable[..., longrun.LongRun]
+    long_run: Callable[..., longrun.LongRun]         # (model, **params) -> LongRun
     psd: Callable[[dict], bool]
-    has_bandwidth: bool = False
-    family: str = "other"
-    #: configurations shown in the comparison table: presets(fit, kernel, bandwidth) -> list
-    presets: Callable[..., list] | None = None
+    label: Callable[[dict, object], str]             # (params, LongRun or None) -> label
+    group: str = "other"
+    axis: TuningAxis | None = None
+    fixed_b: Callable | None = None                  # (params, LongRun, ModelInfo) -> FixedB
+    sweep: Callable | None = None                    # vectorised sweep along the axis
+    presets: Callable[..., list] | None = None       # (model, kernel, bandwidth) -> rows
+    applies: Callable[[object], str | None] = lambda model: None   # why it cannot, or None
+    curve: Callable[[dict], str] | None = None       # params -> name of its sweep curve
+
+    def curve_label(self, params: dict) -> str:
+        """The name of a sweep curve of this family (the axis value is on the x axis)."""
+        return self.title if self.curve is None else self.curve(params)
+
+    def law(self, requested: str, params: dict, lr, info) -> laws.Law:
+        """The reference law for a request, for an estimate `lr` of this family."""
+        fixed_b = None if self.fixed_b is None else (lambda: self.fixed_b(params, lr, info))
+        return laws.resolve(requested, lr.law, fixed_b, info.df_resid)
 
 
-ESTIMATORS: dict[str, EstimatorSpec] = {}
+FAMILIES: dict[str, Family] = {}
+#: shorthands: name -> (family, fixed parameters)
+SHORTHANDS: dict[str, tuple[str, dict]] = {}
 
 
-def register(spec: EstimatorSpec) -> EstimatorSpec:
-    if spec.name in ESTIMATORS:
-        raise ValueError(f"estimator {spec.name!r} registered twice")
-    ESTIMATORS[spec.name] = spec
-    return spec
+def register_family(family: Family, shorthands: dict | None = None) -> Family:
+    if family.name in FAMILIES or family.name in SHORTHANDS:
+        raise ValueError(f"estimator family {family.name!r} registered twice")
+    FAMILIES[family.name] = family
+    for short, fixed in (shorthands or {}).items():
+        SHORTHANDS[short] = (family.name, fixed)
+    return family
 
 
 class Estimator:
-    """A registered estimator with validated parameters; produces S for a fit."""
+    """A family with validated parameters; produces S for a model."""
 
-    def __init__(self, spec: EstimatorSpec, params: dict):
-        self.spec = spec
+    def __init__(self, family: Family, params: dict):
+        self.family = family
         self.params = params
 
     @property
     def name(self) -> str:
-        return self.spec.name
+        return self.family.name
 
     @property
     def psd(self) -> bool:
-        return self.spec.psd(self.params)
+        return self.family.psd(self.params)
 
     @property
     def label(self) -> str:
-        """Short human label, e.g. 'Parzen, b=12' or 'HC1'."""
-        p = self.params
-        if self.name == "ewc":
-            return f"EWC, B: {p['terms']}" if isinstance(p["terms"], str) else f"EWC, B={p['terms']}"
-        if self.name == "var":
-            if p["criterion"] == "fixed":
-                return f"VAR({'auto' if p['max_lag'] is None else p['max_lag']}) fixed"
-            return f"VAR-HAC, {p['criterion'].upper()}" + (
-                "" if p["max_lag"] is None else f", max {p['max_lag']}")
-        if self.spec.has_bandwidth:
-            k = get_kernel(p["kernel"]).display_name
-            bw = p["bandwidth"]
-            bw_txt = f"b={bw:g}" if isinstance(bw, (int, float)) else f"b: {bw}"
-            extra = ""
-            if p.get("prewhiten"):
-                extra += ", prewhitened"
-            return f"{k}, {bw_txt}{extra}"
-        return self.spec.display_name
+        """Plain label from the parameters, e.g. 'Parzen, b = 12' or 'HC1'."""
+        return self.family.label(self.params, None)
 
-    def long_run(self, fit) -> longrun.LongRun:
-        return self.spec.compute(fit, **self.params)
+    def label_for(self, lr) -> str:
+        """Label once the estimate exists (resolved values, e.g. 'EWC, B = 22')."""
+        return self.family.label(self.params, lr)
+
+    def long_run(self, model) -> longrun.LongRun:
+        why = self.family.applies(model)
+        if why:
+            raise SpecificationError(why)
+        return self.family.long_run(model, **self.params)
+
+    def with_params(self, **changes) -> "Estimator":
+        return Estimator(self.family, _validate(self.family, {**self.params, **changes}))
+
+    def at(self, value) -> "Estimator":
+        """The same estimator moved to `value` on its family's tuning axis."""
+        axis = self.family.axis
+        if axis is None:
+            raise SpecificationError(f"{self.family.title} has no tuning parameter to move")
+        return self.with_params(**axis.fixed, **{axis.param: value})
+
+    def rule(self) -> str:
+        """The axis rule these parameters follow, or "fixed" (a value set by hand)."""
+        axis = self.family.axis
+        for key, (_, changes) in (axis.rules if axis else {}).items():
+            if all(self.params.get(k) == v for k, v in changes.items()):
+                return key
+        return "fixed"
+
+    def settings(self) -> dict:
+        """A plain, replayable record: {"estimator": family name, "params": {...}}."""
+        return {"estimator": self.name, "params": dict(self.params)}
+
+    def __eq__(self, other):
+        return isinstance(other, Estimator) and self.name == other.name \
+            and self.params == other.params
+
+    def __hash__(self):
+        return hash((self.name, tuple(sorted((k, str(v)) for k, v in self.params.items()))))
 
     def __repr__(self):
         return f"estimator({self.name!r}, " + ", ".join(f"{k}={v!r}" for k, v in
                                                         self.params.items()) + ")"
 
 
-def _validate(spec: EstimatorSpec, given: dict) -> dict:
-    known = {p.name: p for p in spec.params}
+def _validate(family: Family, given: dict) -> dict:
+    known = {p.name: p for p in family.params}
     unknown = set(given) - set(known)
     if unknown:
-        raise SpecificationError(f"estimator '{spec.name}' has no parameter "
+        raise SpecificationError(f"estimator '{family.name}' has no parameter "
                                  + ", ".join(f"'{u}'" for u in sorted(unknown))
                                  + (f"; its parameters are {', '.join(known)}" if known
                                     else "; it takes no parameters"))
-    out = {}
-    for p in spec.params:
-        value = given.get(p.name, p.default)
-        if p.kind == "choice":
-            if value not in p.choices:
-                raise SpecificationError(f"{spec.name}: {p.name}={value!r} is not one of "
-                                         f"{', '.join(map(str, p.choices))}")
-        elif p.kind == "bool":
-            if not isinstance(value, (bool, np.bool_)):
-                raise SpecificationError(f"{spec.name}: {p.name} must be true or false, "
-                                         f"got {value!r}")
-            value = bool(value)
-        elif p.kind in ("int", "float"):
-            if value is not None:
-                if isinstance(value, bool) or not isinstance(value, (int, float, np.number)) \
-                        or not np.isfinite(value):
-                    raise SpecificationError(f"{spec.name}: {p.name} must be a number, "
+    return {p.name: _check_param(family.name, p, given.get(p.name, p.default))
+            for p in family.params}
+
+
+def _check_param(owner: str, p: Param, value):
+    if p.kind in ("choice", "kernel"):
+        if not isinstance(value, str) or value not in p.options:
+            raise SpecificationError(f"{owner}: {p.name}={value!r} is not one of "
+                                     f"{', '.join(map(str, p.options))}")
+    elif p.kind == "bool":
+        if not isinstance(value, (bool, np.bool_)):
+            raise SpecificationError(f"{owner}: {p.name} must be true or false, got {value!r}")
+        value = bool(value)
+    elif p.kind in ("int", "float"):
+        if value is not None:
+            if isinstance(value, bool) or not isinstance(value, (int, float, np.number)) \
+                    or not np.isfinite(value):
+                raise SpecificationError(f"{owner}: {p.name} must be a number, got {value!r}")
+            if p.kind == "int":
+                if float(value) != int(value):
+                    raise SpecificationError(f"{owner}: {p.name} must be a whole number, "
                                              f"got {value!r}")
-                if p.kind == "int":
-                    if float(value) != int(value):
-                        raise SpecificationError(f"{spec.name}: {p.name} must be a whole number, "
-                                                 f"got {value!r}")
-                    value = int(value)
-                else:
-                    value = float(value)
-                if p.minimum is not None and value < p.minimum:
-                    raise SpecificationError(f"{spec.name}: {p.name} must be at least "
-                                             f"{p.minimum:g}, got {value!r}")
-        elif p.kind == "int_or_rule":
-            if isinstance(value, str):
-                if value not in p.choices:
-                    raise SpecificationError(f"{spec.name}: {p.name}={value!r} is not a whole "
-                                             f"number or one of {', '.join(p.choices)}")
-            elif isinstance(value, bool) or not isinstance(value, (int, np.integer, float)) \
-                    or not float(value).is_integer() or value < (p.minimum or 1):
-                raise SpecificationError(f"{spec.name}: {p.name} must be a whole number >= "
-                                         f"{p.minimum or 1:g} or one of {', '.join(p.choices)}, "
-                                         f"got {value!r}")
-            else:
                 value = int(value)
-        elif p.kind == "bandwidth":
-            from .bandwidth import check_bandwidth_setting
-            value = check_bandwidth_setting(value)
-        out[p.name] = value
-    return out
+            else:
+                value = float(value)
+            if p.minimum is not None and value < p.minimum:
+                raise SpecificationError(f"{owner}: {p.name} must be at least {p.minimum:g}, "
+                                         f"got {value!r}")
+    elif p.kind == "int_or_rule":
+        if isinstance(value, str):
+            if value not in p.choices:
+                raise SpecificationError(f"{owner}: {p.name}={value!r} is not a whole number "
+                                         f"or one of {', '.join(p.choices)}")
+        elif isinstance(value, bool) or not isinstance(value, (int, np.integer, float)) \
+                or not np.isfinite(value) or not float(value).is_integer() \
+                or value < (p.minimum or 1):
+            raise SpecificationError(f"{owner}: {p.name} must be a whole number >= "
+                                     f"{p.minimum or 1:g} or one of {', '.join(p.choices)}, "
+                                     f"got {value!r}")
+        else:
+            value = int(value)
+    elif p.kind == "bandwidth":
+        value = check_bandwidth_setting(value)
+    return value
 
 
 def estimator(name: str, **params) -> Estimator:
-    """Configure a registered estimator, e.g. estimator("kernel", kernel="parzen", bandwidth=8)."""
+    """Configure a registered estimator, e.g. estimator("kernel", kernel="parzen", bandwidth=8).
+
+    A family with a bandwidth also takes lags=L, meaning b = L + 1."""
+    if name in SHORTHANDS:
+        fam_name, fixed = SHORTHANDS[name]
+        clash = set(params) & set(fixed)
+        if clash:
+            raise SpecificationError(f"'{name}' already sets {', '.join(sorted(clash))}")
+        params = {**params, **fixed}
+        name = fam_name
     try:
-        spec = ESTIMATORS[name]
+        family = FAMILIES[name]
     except KeyError:
         raise SpecificationError(f"unknown estimator {name!r}; choose one of "
-                                 f"{', '.join(ESTIMATORS)}") from None
-    if spec.has_bandwidth and "lags" in params:
+                                 f"{', '.join(list(FAMILIES) + list(SHORTHANDS))}") from None
+    if "lags" in params and any(p.kind == "bandwidth" for p in family.params):
         lags = params.pop("lags")
         if "bandwidth" in params:
             raise SpecificationError("give either lags or bandwidth, not both")
         if isinstance(lags, bool) or not isinstance(lags, (int, np.integer)) or lags < 0:
             raise SpecificationError(f"lags must be a whole number >= 0, got {lags!r}")
         params["bandwidth"] = float(lags) + 1.0
-    return Estimator(spec, _validate(spec, params))
+    return Estimator(family, _validate(family, params))
 
 
-def estimators() -> list[EstimatorSpec]:
-    """Every registered estimator specification, in registration order."""
-    return list(ESTIMATORS.values())
+def as_estimator(est) -> Estimator:
+    if isinstance(est, str):
+        return estimator(est)
+    if not isinstance(est, Estimator):
+        raise SpecificationError("pass an estimator made by lagwise.estimator(...)")
+    return est
 
 
-# --------------------------------------------------------------------------- registrations
+def estimators() -> list[Family]:
+    """Every registered estimator family, in registration order."""
+    return list(FAMILIES.values())
 
-_SMALL = Param("small_sample", "bool", False,
-               "multiply S by T/(T-k), a finite-sample inflation; off by default as in most "
-               "software's HAC")
 
-register(EstimatorSpec(
-    name="classical", display_name="Classical (iid)",
-    reference="Ordinary least squares textbook formula s^2 (X'X)^-1",
+# --------------------------------------------------------------------------- shared pieces
+
+SMALL_SAMPLE = Param("small_sample", "bool", False,
+                     "multiply S by T/(T-k), a finite-sample inflation; off by default as in "
+                     "most software's HAC", title="small-sample factor T/(T-k)")
+
+
+def small_sample_label(params) -> str:
+    return ", T/(T-k)" if params.get("small_sample") else ""
+
+
+def bandwidth_grid(model) -> np.ndarray:
+    """Default bandwidths for charts and sweeps: b = 1, 2, ..., up to about T/3 (at most 120,
+    at least 24, never beyond T)."""
+    top = int(min(model.nobs, max(24, min(model.nobs // 3, 120))))
+    return np.arange(1, top + 1, dtype=float)
+
+
+# --------------------------------------------------------------------------- classical, HC
+
+register_family(Family(
+    name="classical", title="Classical (iid)",
+    citation="Ordinary least squares textbook formula s^2 (X'X)^-1",
     assumptions="Errors are uncorrelated over time and have constant variance. Understates "
                 "uncertainty when either fails.",
-    params=(), compute=lambda fit: longrun.classical(fit), psd=lambda p: True, family="iid",
-    presets=lambda fit, kernel, bandwidth: [estimator("classical")]))
+    params=(), long_run=lambda model: longrun.classical(model), psd=lambda p: True,
+    label=lambda p, lr: "Classical (iid)", group="iid",
+    presets=lambda model, kernel, bandwidth: [estimator("classical")]))
 
-for _kind, _ref, _txt in (
-        ("hc0", "White (1980), Econometrica 48(4)",
-         "Errors uncorrelated over time; variance may change with the regressors. Biased "
-         "downward in small samples."),
-        ("hc1", "MacKinnon & White (1985), J. Econometrics 29",
-         "HC0 times T/(T-k): the same assumptions, a simple small-sample inflation."),
-        ("hc2", "MacKinnon & White (1985), J. Econometrics 29",
-         "Weights squared residuals by 1/(1-h_tt); unbiased under homoskedasticity."),
-        ("hc3", "MacKinnon & White (1985); Davidson & MacKinnon (1993) approximation",
-         "Weights by 1/(1-h_tt)^2; conservative, recommended when influential points exist.")):
-    register(EstimatorSpec(
-        name=_kind, display_name=_kind.upper(), reference=_ref, assumptions=_txt, params=(),
-        compute=(lambda kind: (lambda fit: longrun.heteroskedasticity_robust(fit, kind)))(_kind),
-        psd=lambda p: True, family="hc",
-        presets=(lambda kind: (lambda fit, kernel, bandwidth: [estimator(kind)]))(_kind)))
+_HC_TEXT = {
+    "hc0": "White (1980): squared residuals; biased downward in small samples",
+    "hc1": "HC0 times T/(T-k), a simple small-sample inflation (MacKinnon & White 1985)",
+    "hc2": "squared residuals over 1 - h_tt; unbiased under homoskedasticity",
+    "hc3": "squared residuals over (1 - h_tt)^2 (Davidson-MacKinnon form); conservative when "
+           "influential points exist"}
+
+register_family(Family(
+    name="hc", title="Heteroskedasticity-robust (HC)",
+    citation="White (1980), Econometrica 48(4); MacKinnon & White (1985), J. Econometrics 29",
+    assumptions="Errors uncorrelated over time; their variance may change with the regressors. "
+                "Large-sample theory; HC2/HC3 adjust for leverage.",
+    params=(Param("kind", "choice", "hc1", "; ".join(f"{k.upper()}: {v}" for k, v in
+                                                      _HC_TEXT.items()),
+                  choices=("hc0", "hc1", "hc2", "hc3"), title="variant"),),
+    long_run=lambda model, kind: longrun.heteroskedasticity_robust(model, kind),
+    psd=lambda p: True, label=lambda p, lr: p["kind"].upper(), group="hc",
+    presets=lambda model, kernel, bandwidth: [estimator(k) for k in ("hc0", "hc1", "hc2", "hc3")]),
+    shorthands={k: {"kind": k} for k in ("hc0", "hc1", "hc2", "hc3")})
 
 
-def _kernel_compute(fit, *, kernel, bandwidth, small_sample, repair, prewhiten=False):
-    from .bandwidth import resolve_bandwidth
+# --------------------------------------------------------------------------- kernel HAC
+
+def _kernel_long_run(model, *, kernel, bandwidth, small_sample, repair, prewhiten=False):
     k = get_kernel(kernel)
     if prewhiten:
         from .prewhiten import prewhitened_kernel
-        return prewhitened_kernel(fit, k, bandwidth, small_sample=small_sample, repair=repair)
-    b, rule = resolve_bandwidth(fit, k, bandwidth)
-    return longrun.kernel(fit, k, b, small_sample=small_sample, repair=repair, rule=rule)
+        return prewhitened_kernel(model, k, bandwidth, small_sample=small_sample, repair=repair)
+    choice = resolve_bandwidth(model, k, bandwidth)
+    lr = longrun.kernel(model, k, choice.b, small_sample=small_sample, repair=repair,
+                        how=choice.explanation)
+    lr.flags |= choice.flags
+    lr.notes += choice.notes
+    return lr
 
 
-register(EstimatorSpec(
-    name="kernel", display_name="Kernel HAC",
-    reference="Newey & West (1987); Andrews (1991), Econometrica 59(3)",
-    assumptions="Errors may be heteroskedastic and autocorrelated, with autocorrelation that "
-                "dies out within roughly the bandwidth. Large-sample (normal) theory; with a "
-                "large bandwidth relative to T the normal critical values are too small "
-                "(prefer fixed-b).",
-    params=(
-        Param("kernel", "choice", "bartlett", "weight function over lags",
-              choices=tuple(KERNELS)),
-        Param("bandwidth", "bandwidth", "andrews",
-              "real bandwidth b (weights k(j/b)); Newey-West with L lags is Bartlett with "
-              "b = L + 1; or a rule name"),
-        _SMALL,
-        Param("repair", "bool", True,
-              "set negative eigenvalues of S to zero when a kernel that is not PSD by "
-              "construction (truncated, Tukey-Hanning) produces them; flagged when applied"),
-        Param("prewhiten", "bool", False,
-              "Andrews-Monahan VAR(1) prewhitening of the scores before the kernel, then "
-              "recolouring"),
-    ),
-    compute=_kernel_compute, psd=lambda p: get_kernel(p["kernel"]).psd or p["repair"],
-    has_bandwidth=True, family="kernel", presets=lambda fit, kernel, bandwidth:
-    _kernel_presets(fit, kernel, bandwidth)))
+def _kernel_label(p, lr) -> str:
+    k = get_kernel(p["kernel"])
+    text = f"{k.label}, {rule_title(p['bandwidth'])}"
+    if p.get("prewhiten"):
+        text += ", prewhitened"
+    if not k.psd and not p.get("repair", True):
+        text += ", unrepaired"
+    return text + small_sample_label(p)
 
 
-def _kernel_presets(fit, kernel=None, bandwidth=None) -> list:
-    """Each kernel at the requested bandwidth (default: the Andrews plug-in); for an
-    overlapping h-period response also the truncated kernel with L = h - 1, Bartlett with
-    L = h under normal and fixed-b critical values (the errors are MA(h-1)).
-    Items are estimators or (estimator, reference law, why) tuples."""
+def _kernel_curve(p) -> str:
+    k = get_kernel(p["kernel"])
+    return k.label + (", prewhitened" if p.get("prewhiten") else "") \
+        + (", unrepaired" if not k.psd and not p.get("repair", True) else "") \
+        + small_sample_label(p)
+
+
+def _kernel_fixed_b(p, lr, info):
+    if p.get("prewhiten"):
+        raise SpecificationError("fixed-b critical values here assume no prewhitening")
+    return laws.FixedB(p["kernel"], lr.bandwidth / info.nobs)
+
+
+def _kernel_presets(model, kernel=None, bandwidth=None) -> list:
+    """Each kernel at the requested bandwidth (default: the Andrews plug-in); Bartlett with the
+    Newey-West (1994) and rule-of-thumb bandwidths; for an overlapping h-period response also the
+    truncated kernel with L = h - 1 and Bartlett with L = h under normal and fixed-b critical
+    values (the errors are MA(h-1)). Items are estimators or (estimator, law request, why)."""
     names = [kernel] if kernel else list(KERNELS)
     out = [estimator("kernel", kernel=n, bandwidth=bandwidth if bandwidth is not None
                      else "andrews") for n in names]
     if bandwidth is None and not kernel:
         out.append(estimator("kernel", kernel="bartlett", bandwidth="newey-west"))
         out.append(estimator("kernel", kernel="bartlett", bandwidth="rule-of-thumb"))
-    h = getattr(fit, "horizon", None)
+    h = getattr(model, "horizon", None)
     if h and h > 1:
         why = (f"overlapping {h}-period response: the errors are MA({h - 1}), so lags up to "
                f"{h - 1} carry the autocorrelation")
         out.append((estimator("kernel", kernel="truncated", lags=h - 1), None, why))
         out.append((estimator("kernel", kernel="bartlett", lags=h), None, why))
-        if h + 1 <= fit.nobs:
+        if h + 1 <= model.nobs:
             out.append((estimator("kernel", kernel="bartlett", lags=h), "fixed-b",
                         why + "; fixed-b critical values account for b/T"))
     return out
 
 
-register(EstimatorSpec(
-    name="var", display_name="Parametric VAR (VAR-HAC)",
-    reference="den Haan & Levin (1997), Handbook of Statistics 15, ch. 12",
-    assumptions="The scores follow a finite-order stationary VAR; S is its implied spectrum at "
-                "frequency zero. Positive semi-definite; can be far off if the VAR is "
-                "misspecified or close to a unit root (refused when non-stationary).",
-    params=(
-        Param("max_lag", "int", None, "largest VAR order tried (default int(T^(1/3)))",
-              minimum=0),
-        Param("criterion", "choice", "bic", "lag order by BIC or AIC, or 'fixed' to use exactly "
-              "max_lag lags (max_lag=1: the VAR(1) parametric correction)",
-              choices=("bic", "aic", "fixed")),
-        Param("selection", "choice", "equation", "choose the order per equation or jointly",
-              choices=("equation", "joint")),
-    ),
-    compute=lambda fit, **p: longrun.var_parametric(fit, **p), psd=lambda p: True,
-    family="parametric",
-    presets=lambda fit, kernel, bandwidth: [estimator("var"),
-                                            estimator("var", max_lag=1, criterion="fixed")]))
+def _kernel_sweep(model, estimators, values):
+    from .sweep import kernel_curves
+    return kernel_curves(model, estimators, values)
 
-register(EstimatorSpec(
-    name="ewc", display_name="Equal-weighted cosine (EWC)",
-    reference="Lazarus, Lewis, Stock & Watson (2018), JBES 36(4); Mueller (2007)",
+
+register_family(Family(
+    name="kernel", title="Kernel HAC",
+    citation="Newey & West (1987); Andrews (1991), Econometrica 59(3)",
+    assumptions="Errors may be heteroskedastic and autocorrelated, with autocorrelation that "
+                "dies out within roughly the bandwidth. Large-sample (normal) theory; with a "
+                "large bandwidth relative to T the normal critical values are too small "
+                "(prefer fixed-b).",
+    params=(
+        Param("kernel", "kernel", "bartlett", "weight function over lags"),
+        Param("bandwidth", "bandwidth", "andrews",
+              "real bandwidth b (weights k(j/b)); Newey-West with L lags is Bartlett with "
+              "b = L + 1; or a rule name: " + ", ".join(RULES), choices=tuple(RULES)),
+        SMALL_SAMPLE,
+        Param("repair", "bool", True,
+              "set negative eigenvalues of S to zero when a kernel that is not PSD by "
+              "construction (truncated, Tukey-Hanning) produces them; flagged when applied",
+              title="eigenvalue repair"),
+        Param("prewhiten", "bool", False,
+              "Andrews-Monahan VAR(1) prewhitening of the moment contributions before the "
+              "kernel, then recolouring", title="prewhiten"),
+    ),
+    long_run=_kernel_long_run, psd=lambda p: get_kernel(p["kernel"]).psd or p["repair"],
+    label=_kernel_label, group="kernel",
+    axis=TuningAxis("bandwidth", "b", "bandwidth b", bandwidth_grid,
+                    help="lag j gets weight k(j/b); kernels vanishing beyond |x| = 1 use "
+                         "ceil(b) - 1 lags",
+                    rules={k: (v[0], {"bandwidth": k}) for k, v in RULES.items()}),
+    fixed_b=_kernel_fixed_b, sweep=_kernel_sweep, presets=_kernel_presets, curve=_kernel_curve))
+
+
+# --------------------------------------------------------------------------- VAR-HAC
+
+def _var_label(p, lr) -> str:
+    if p["criterion"] == "fixed":
+        order = p["max_order"]
+        return f"VAR({'int(T^(1/3))' if order is None else order}) correction"
+    text = f"VAR-HAC, order by {p['criterion'].upper()}"
+    if p["selection"] == "joint":
+        text += " (joint)"
+    return text + ("" if p["max_order"] is None else f", at most {p['max_order']}")
+
+
+def _var_grid(model) -> np.ndarray:
+    top = min(longrun.var_order_limit(model.nobs, model.m), 12)
+    return np.arange(0, top + 1, dtype=float)
+
+
+register_family(Family(
+    name="var", title="Parametric VAR (VAR-HAC)",
+    citation="den Haan & Levin (1997), Handbook of Statistics 15, ch. 12",
+    assumptions="The moment contributions follow a finite-order stationary VAR; S is its "
+                "implied spectrum at frequency zero. Positive semi-definite; can be far off if "
+                "the VAR is misspecified or close to a unit root (refused when non-stationary).",
+    params=(
+        Param("max_order", "int", None, "largest VAR order tried (default int(T^(1/3)))",
+              minimum=0, title="largest order"),
+        Param("criterion", "choice", "bic", "order by BIC or AIC, or 'fixed' to use exactly "
+              "the largest order (1: the VAR(1) parametric correction)",
+              choices=("bic", "aic", "fixed"), title="order chosen by"),
+        Param("selection", "choice", "equation", "choose the order per equation or jointly",
+              choices=("equation", "joint"), title="order selection"),
+    ),
+    long_run=lambda model, **p: longrun.var_parametric(model, **p), psd=lambda p: True,
+    label=_var_label, group="parametric", curve=lambda p: "VAR of fixed order",
+    axis=TuningAxis("max_order", "p", "VAR order p", _var_grid, fixed={"criterion": "fixed"},
+                    help="a VAR of exactly this order fitted to the moment contributions",
+                    rules={"bic": ("order by BIC", {"criterion": "bic", "max_order": None}),
+                           "aic": ("order by AIC", {"criterion": "aic", "max_order": None})}),
+    presets=lambda model, kernel, bandwidth: [estimator("var"),
+                                              estimator("var", max_order=1, criterion="fixed")]))
+
+
+# --------------------------------------------------------------------------- EWC
+
+def _ewc_label(p, lr) -> str:
+    if lr is not None and lr.law is not None:
+        return f"EWC, B = {lr.law.df:g}" + small_sample_label(p)
+    b = p["cosines"]
+    return ("EWC, B = floor(0.4 T^(2/3))" if isinstance(b, str) else f"EWC, B = {b}") \
+        + small_sample_label(p)
+
+
+def _ewc_grid(model) -> np.ndarray:
+    llsw, _ = longrun.ewc_cosines(model.nobs, "llsw")
+    top = int(min(model.nobs - 1, max(24, 3 * llsw), 120))
+    return np.arange(1, top + 1, dtype=float)
+
+
+register_family(Family(
+    name="ewc", title="Equal-weighted cosine (EWC)",
+    citation="Lazarus, Lewis, Stock & Watson (2018), JBES 36(4); Mueller (2007)",
     assumptions="Autocorrelation may be strong; B low-frequency cosine averages estimate S and "
                 "the t statistic is referred to t(B), F(m, B-m+1) for m restrictions, which keeps "
                 "tests close to their size at the cost of some power. Assumes stationarity.",
     params=(
-        Param("terms", "int_or_rule", "llsw", "number of cosine terms B, or 'llsw' = "
-              "floor(0.4 T^(2/3))", choices=("llsw",), minimum=1),
-        _SMALL,
+        Param("cosines", "int_or_rule", "llsw", "number of cosine terms B, or 'llsw' = "
+              "floor(0.4 T^(2/3))", choices=("llsw",), minimum=1, title="cosine terms B"),
+        SMALL_SAMPLE,
     ),
-    compute=lambda fit, **p: longrun.ewc(fit, **p), psd=lambda p: True, family="ewc",
-    presets=lambda fit, kernel, bandwidth: [estimator("ewc")]))
+    long_run=lambda model, **p: longrun.ewc(model, **p), psd=lambda p: True,
+    label=_ewc_label, group="ewc", curve=lambda p: "EWC" + small_sample_label(p),
+    axis=TuningAxis("cosines", "B", "cosine terms B", _ewc_grid,
+                    help="S averages the first B cosine-weighted sums; the law is t(B)",
+                    rules={"llsw": ("LLSW (2018), floor(0.4 T^(2/3))", {"cosines": "llsw"})}),
+    presets=lambda model, kernel, bandwidth: [estimator("ewc")]))

@@ -94,6 +94,7 @@ class Table:
 
     def with_transform(self, kind: str, column: str, p: int = 1) -> tuple["Table", str]:
         """Return a new Table with one transformed column added, and that column's name."""
+        kind = transform_kind(kind)
         name, values, horizon = transform(self.frame, kind, column, p)
         frame = self.frame.copy()
         frame[name] = values
@@ -107,6 +108,7 @@ class Table:
         """Apply saved transforms [(kind, column, p), ...], skipping columns already present."""
         table = self
         for kind, column, p in steps:
+            column = current_column_name(column)
             if transform_name(kind, column, int(p)) not in table.frame.columns:
                 table, _ = table.with_transform(kind, column, int(p))
         return table
@@ -117,27 +119,51 @@ class Table:
 TRANSFORMS = {
     "lag": "value p periods earlier",
     "lead": "value p periods later",
-    "diff": "first difference x_t - x_{t-1}",
+    "difference": "first difference x_t - x_{t-1}",
     "log": "natural log",
-    "dlog": "log difference log x_t - log x_{t-1}",
-    "fsum": "forward sum of the next h values x_{t+1} + ... + x_{t+h} (overlapping horizon)",
+    "log-difference": "log difference log x_t - log x_{t-1}",
+    "sum-next": "sum of the next h values x_{t+1} + ... + x_{t+h} (an overlapping h-period "
+                "response)",
 }
+#: Transform names used by earlier versions (settings files keep loading).
+OLD_TRANSFORM_NAMES = {"diff": "difference", "dlog": "log-difference", "fsum": "sum-next"}
+_OLD_COLUMN = re.compile(r"^(lag|lead|fsum)(\d+)\((.+)\)$|^(diff|log|dlog)\((.+)\)$")
+
+
+def transform_kind(kind: str) -> str:
+    kind = OLD_TRANSFORM_NAMES.get(kind, kind)
+    if kind not in TRANSFORMS:
+        raise SpecificationError(f"unknown transform {kind!r}; choose one of {', '.join(TRANSFORMS)}")
+    return kind
 
 
 def transform_name(kind: str, column: str, p: int = 1) -> str:
-    if kind in ("lag", "lead", "fsum"):
-        return f"{kind}{p}({column})"
-    return f"{kind}({column})"
+    """The derived column's name, in words: 'x, lag 1', 'y, sum of next 12', 'log x'."""
+    kind = transform_kind(kind)
+    return {"lag": f"{column}, lag {p}", "lead": f"{column}, lead {p}",
+            "difference": f"{column}, difference", "log": f"log {column}",
+            "log-difference": f"{column}, log difference",
+            "sum-next": f"{column}, sum of next {p}"}[kind]
+
+
+def current_column_name(name: str) -> str:
+    """A derived column named the old way ('fsum12(x)', 'lag1(x)', 'dlog(x)') in today's words;
+    other names unchanged."""
+    m = _OLD_COLUMN.match(name) if isinstance(name, str) else None
+    if not m:
+        return name
+    if m.group(1):
+        return transform_name(m.group(1), m.group(3), int(m.group(2)))
+    return transform_name(m.group(4), m.group(5))
 
 
 def transform(frame: pd.DataFrame, kind: str, column: str, p: int = 1):
     """Compute one transform. Returns (name, values, horizon or None)."""
-    if kind not in TRANSFORMS:
-        raise SpecificationError(f"unknown transform {kind!r}; choose one of {', '.join(TRANSFORMS)}")
+    kind = transform_kind(kind)
     if column not in frame.columns:
         raise SpecificationError(f"no numeric column named {column!r} to transform")
-    if kind in ("lag", "lead", "fsum"):
-        if not isinstance(p, (int, np.integer)) or p < 1:
+    if kind in ("lag", "lead", "sum-next"):
+        if isinstance(p, bool) or not isinstance(p, (int, np.integer)) or p < 1:
             raise SpecificationError(f"{kind} needs a whole number of periods >= 1, got {p!r}")
         if p >= len(frame):
             raise SpecificationError(f"{kind} of {p} periods is not shorter than the sample "
@@ -145,25 +171,34 @@ def transform(frame: pd.DataFrame, kind: str, column: str, p: int = 1):
     x = frame[column].astype(float)
     name = transform_name(kind, column, p)
     horizon = None
-    if kind in ("log", "dlog"):
+    if kind in ("log", "log-difference"):
         bad = x[(x <= 0) & x.notna()]
         if len(bad):
-            raise DataError(f"log of column {column!r} needs positive values; row {bad.index[0]!r} "
-                            f"has {bad.iloc[0]!r}")
+            raise DataError(f"log of column {column!r} needs positive values; row "
+                            f"{_plain(bad.index[0])} has {float(bad.iloc[0]):g}")
     if kind == "lag":
         values = x.shift(p)
     elif kind == "lead":
         values = x.shift(-p)
-    elif kind == "diff":
+    elif kind == "difference":
         values = x.diff()
     elif kind == "log":
         values = np.log(x)
-    elif kind == "dlog":
+    elif kind == "log-difference":
         values = np.log(x).diff()
-    else:  # fsum: sum of x_{t+1} .. x_{t+h}
+    else:  # sum of x_{t+1} .. x_{t+h}
         values = x[::-1].rolling(p, min_periods=p).sum()[::-1].shift(-1)
         horizon = int(p)
     return name, values.rename(name), horizon
+
+
+def _plain(value) -> str:
+    """A row label as a user reads it: 3, 2001-03-31, never a library repr."""
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, pd.Timestamp):
+        return value.date().isoformat() if value == value.normalize() else str(value)
+    return str(value)
 
 
 # --------------------------------------------------------------------------- loading

@@ -1,6 +1,6 @@
 """Residual diagnostics: the evidence for or against White, HAC and a larger bandwidth.
 
-statsmodels computes most statistics (its conventions noted beside each); Lagwise adds the exact
+statsmodels computes most statistics (the method of each is stated in words); Lagwise adds the exact
 Durbin-Watson p-value, White's test without cross terms with the levels kept, the moment
 contributions' autocorrelation and a plain-language reading. `diagnose(fit)` returns a
 `DiagnosticReport`; nothing here refits the regression for the covariance estimators.
@@ -151,27 +151,30 @@ def diagnose(fit, lags=None, arch_lags=None, exact_dw: bool = True) -> Diagnosti
     sm_res = sm.OLS(fit.y, fit.X).fit()
     rows = []
 
-    def add(name, stat, df, p, null, convention):
-        rows.append({"test": name, "statistic": float(stat), "df": df, "p_value": float(p),
-                     "null": null, "convention": convention})
+    def add(name, stat, df, p, null, method, df2=np.nan):
+        rows.append({"test": name, "statistic": float(stat), "df": df, "df2": df2,
+                     "p_value": float(p), "null": null, "method": method})
 
     with _Section("Ljung-Box / Box-Pierce", notes):
         lb = smd.acorr_ljungbox(e, lags=lag_list, boxpierce=True, return_df=True)
         for h, r in lb.iterrows():
             add(f"Ljung-Box Q({h})", r.lb_stat, h, r.lb_pvalue,
                 f"no residual autocorrelation up to lag {h}",
-                "chi-square(h); Ljung & Box (1978); statsmodels acorr_ljungbox")
+                "T(T+2) sum of squared autocorrelations / (T-j), chi-square(h) (Ljung & Box 1978)")
         for h, r in lb.iterrows():
             add(f"Box-Pierce Q({h})", r.bp_stat, h, r.bp_pvalue,
-                f"no residual autocorrelation up to lag {h}", "chi-square(h); statsmodels")
+                f"no residual autocorrelation up to lag {h}",
+                "T times the sum of squared autocorrelations, chi-square(h) (Box & Pierce 1970)")
     for p in sorted({1, min(4, top), top}):
         with _Section(f"Breusch-Godfrey({p})", notes):
             lm, lmp, f, fp = smd.acorr_breusch_godfrey(sm_res, nlags=p, result_object=False)
             add(f"Breusch-Godfrey LM({p})", lm, p, lmp,
                 f"no autocorrelation of order 1..{p}",
-                "T R^2 ~ chi-square(p), pre-sample residuals set to 0 (statsmodels)")
+                "T R^2 of e on X and p lagged residuals (pre-sample residuals set to 0), "
+                "chi-square(p)")
             add(f"Breusch-Godfrey F({p})", f, p, fp, f"no autocorrelation of order 1..{p}",
-                "F form of the same regression (statsmodels)")
+                "F test of the p lagged residuals in the same regression",
+                df2=float(t_obs - fit.k - p))
     with _Section("Durbin-Watson", notes):
         dw = float(durbin_watson(e))
         if exact_dw and t_obs <= DW_EXACT_MAX_T:
@@ -189,31 +192,31 @@ def diagnose(fit, lags=None, arch_lags=None, exact_dw: bool = True) -> Diagnosti
             lm, lmp, _, _ = smd.het_breuschpagan(e, z_het, robust=True)
             add("Breusch-Pagan (Koenker)", lm, z_het.shape[1] - 1, lmp,
                 "error variance unrelated to the regressors",
-                "studentised, T R^2 of e^2 on X (Koenker 1981; statsmodels robust=True)")
+                "studentised: T R^2 of e^2 on the regressors (Koenker 1981)")
             lm, lmp, _, _ = smd.het_breuschpagan(e, z_het, robust=False)
             add("Breusch-Pagan (original)", lm, z_het.shape[1] - 1, lmp,
                 "error variance unrelated to the regressors",
-                "ESS/2 of e^2/mean(e^2) on X (Breusch & Pagan 1979; statsmodels robust=False)")
+                "half the explained sum of squares of e^2/mean(e^2) on the regressors "
+                "(Breusch & Pagan 1979); assumes normal errors")
         with _Section("White (with cross terms)", notes):
             try:
                 lm, lmp, _, _ = smd.het_white(e, z_het)
                 white_df = _white_df(z_het)
                 add("White (with cross terms)", lm, white_df, lmp, "homoskedastic errors",
-                    "e^2 on levels, squares and cross products (statsmodels)")
+                    "T R^2 of e^2 on levels, squares and cross products (White 1980)")
             except AssertionError:
                 notes.append("White's test with cross terms is not available for this design")
         with _Section("White (no cross terms)", notes):
             lm, df, p = _white_no_cross(e, z_het)
             add("White (no cross terms)", lm, df, p, "homoskedastic errors",
-                "e^2 on levels and squares; statsmodels' interaction_terms=False drops the "
-                "levels")
+                "T R^2 of e^2 on levels and squares, no cross products")
     for q in sorted({1, min(4, top)} if arch_lags is None else set(np.atleast_1d(arch_lags))):
         with _Section(f"ARCH-LM({q})", notes):
             lm, p, _, _ = smd.het_arch(e, nlags=int(q), result_object=False)
             add(f"ARCH-LM({q})", lm, q, p, "no autoregressive conditional heteroskedasticity",
-                "(T-q) R^2 of e^2 on q own lags (Engle 1982; statsmodels het_arch)")
-    tests = pd.DataFrame(rows, columns=["test", "statistic", "df", "p_value", "null",
-                                        "convention"])
+                "(T-q) R^2 of e^2 on its own q lags, chi-square(q) (Engle 1982)")
+    tests = pd.DataFrame(rows, columns=["test", "statistic", "df", "df2", "p_value", "null",
+                                        "method"])
 
     nl = min(max(top, 12), t_obs - 1)
     lag_index = pd.RangeIndex(1, nl + 1, name="lag")
@@ -234,11 +237,11 @@ def diagnose(fit, lags=None, arch_lags=None, exact_dw: bool = True) -> Diagnosti
     bands = {"acf": "95% band by Bartlett's formula (widens with the lag)",
              "pacf": f"95% band +-1.96/sqrt(T) = {1.96 / np.sqrt(t_obs):.3f}",
              "pacf_value": 1.96 / np.sqrt(t_obs)}
-    u = fit.raw_scores
+    u = fit.contributions
     with np.errstate(all="ignore"):
         score_acf = pd.DataFrame(
             {t: acf(u[:, i], nlags=nl, fft=True, result_object=False)[1:]
-             if np.ptp(u[:, i]) > 0 else np.full(nl, np.nan) for i, t in enumerate(fit.terms)},
+             if np.ptp(u[:, i]) > 0 else np.full(nl, np.nan) for i, t in enumerate(fit.moment_names)},
             index=lag_index)
     from .bandwidth import select_bandwidth
     andrews = select_bandwidth(fit, "bartlett", "andrews")

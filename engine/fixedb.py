@@ -23,7 +23,6 @@ from scipy import stats
 
 from .errors import SpecificationError
 
-FIXED_B_KERNELS = ("bartlett", "parzen", "quadratic_spectral")
 _TABLE = Path(__file__).with_name("tables") / "fixed_b.json"
 
 #: Kiefer-Vogelsang (2005) Bartlett cubic, one-sided quantile -> (a0, a1, a2, a3). [M]
@@ -51,13 +50,23 @@ def table():
     return grid, probs, out, data
 
 
-def _check(kernel, b_over_t, m):
-    if kernel not in FIXED_B_KERNELS:
-        raise SpecificationError(f"fixed-b values are available for {', '.join(FIXED_B_KERNELS)}"
-                                 f" kernels, not {kernel!r}")
+def kernels_with_tables() -> tuple[str, ...]:
+    """Kernels the shipped simulation covers (a kernel registered later has none)."""
+    return tuple(table()[3]["quantiles"])
+
+
+def available(kernel: str) -> bool:
+    return kernel in kernels_with_tables()
+
+
+def check(kernel, b_over_t, m):
+    """Raise SpecificationError unless the tables cover this kernel, b/T and m."""
+    if not available(kernel):
+        raise SpecificationError(f"fixed-b values are available for the "
+                                 f"{', '.join(kernels_with_tables())} kernels, not {kernel!r}")
     if not 1 <= m <= 5:
         raise SpecificationError(f"fixed-b tables cover 1 to 5 restrictions, not {m}")
-    if not (0 < b_over_t <= 1.0):
+    if not (0 <= b_over_t <= 1.0):
         raise SpecificationError(f"fixed-b tables cover 0 < b/T <= 1; here b/T = {b_over_t:.3g}. "
                                  "Use a smaller bandwidth.")
 
@@ -72,7 +81,7 @@ def _quantiles_at(kernel, b_over_t, m):
 def fixed_b_critical_value(kernel: str, b_over_t: float, level: float = 0.95,
                            restrictions: int = 1) -> float:
     """Critical value of |t| (m = 1) or of Wald/m (m > 1) for a test at size 1 - level."""
-    _check(kernel, b_over_t, restrictions)
+    check(kernel, b_over_t, restrictions)
     probs, col = _quantiles_at(kernel, b_over_t, restrictions)
     if not probs[0] <= level <= probs[-1]:
         raise SpecificationError(f"fixed-b levels between {probs[0]} and {probs[-1]} are "
@@ -86,7 +95,22 @@ def fixed_b_p_value(kernel: str, b_over_t: float, f_statistic: float,
     """P(F > f) under the fixed-b law (F = Wald/m; t^2 for one restriction), interpolated between
     tabulated quantiles (and linearly from F = 0, p = 1 up to the median). Beyond the largest
     tabulated quantile (0.999) the returned 0.001 is an upper bound: report it as p <= 0.001."""
-    _check(kernel, b_over_t, restrictions)
+    check(kernel, b_over_t, restrictions)
     probs, col = _quantiles_at(kernel, b_over_t, restrictions)
     cdf = float(np.interp(f_statistic, np.r_[0.0, col], np.r_[0.0, probs], right=probs[-1]))
     return 1.0 - cdf
+
+
+def critical_value_mc_error(kernel: str, b_over_t: float, level: float) -> float:
+    """Monte Carlo standard error of the |t| critical value at `level` (one restriction):
+    sqrt(p (1 - p) / R) / f(q_p) for the quantile q_p of F = t^2, the density f(q_p) estimated
+    from the spacing of the neighbouring tabulated quantiles, mapped to |t| = sqrt(F) by the
+    delta method."""
+    check(kernel, b_over_t, 1)
+    probs, col = _quantiles_at(kernel, b_over_t, 1)
+    reps = table()[3]["reps"]
+    i = int(np.clip(np.searchsorted(probs, level), 1, len(probs) - 1))
+    density = (probs[i] - probs[i - 1]) / max(col[i] - col[i - 1], 1e-12)
+    q = float(np.interp(level, probs, col))
+    se_f = np.sqrt(level * (1 - level) / reps) / density
+    return float(se_f / (2 * np.sqrt(q)))

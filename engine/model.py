@@ -1,19 +1,33 @@
-"""Model specification and ordinary least squares by pivoted QR.
+"""Moment models, and ordinary least squares as the first of them.
 
-`fit_ols` turns a table and a specification into an `OLSFit`: coefficients, residuals, fitted
-values, leverage, the bread (X'X)^-1 and the moment contributions u_t = x_t e_t, whose
-autocovariances are cached once (`fit.moments`) for every covariance estimator.
+A moment model is anything fitted whose coefficients solve sample moment conditions
+(1/T) sum_t g_t(beta) = 0 (exactly or, for over-identified GMM, after weighting). Every estimator
+of S, every bandwidth rule, the sweep, the comparison, the flips and the score diagnostics take a
+`MomentModel`; none of them knows which model produced the moments. A model supplies:
+
+* `contributions`: g_t in the original basis (T x m; OLS: x_t e_t), named by `moment_names`;
+* `working_contributions`: the same series in the working basis in which S is estimated (OLS: the
+  orthonormal basis of X from its QR factor, q_t e_t, so that ill-conditioned designs keep their
+  digits), with `to_original` / `to_working` mapping an S between the two;
+* `influence_map` M (k x m): V = T M S M' with S of the working contributions. This is the
+  sandwich D^-1 S D^-1' / T of an exactly identified model (D = X'X/T for OLS) or
+  (D'WD)^-1 D'W S W D (D'WD)^-1 / T of an over-identified one, written in the working basis;
+  `covariance_from_long_run` forms it (an estimator of S never does);
+* `working_design` and `resid` when g_t = design_t * residual_t (linear models), which the
+  classical and heteroskedasticity-robust estimators use; `leverage` where defined;
+* the term names, the sample (`index`, `sample`), the horizon of an overlapping response, and
+  `caches`, the model's explicit caches (autocovariances and the rest) with a byte count.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from functools import cached_property
 
 import numpy as np
 import pandas as pd
 import scipy.linalg as sla
 
+from .caches import Caches, nbytes_of
 from .data import Table
 from .errors import DataError, SpecificationError
 from .moments import MomentCache
@@ -23,6 +37,9 @@ INTERCEPT = "intercept"
 #: Columns whose norm-scaled pivoted-QR diagonal falls below this fraction of the largest are
 #: treated as linear combinations of the others.
 RANK_TOLERANCE = 1e-10
+#: Above this condition number of the column-scaled design, least squares uses pivoted
+#: Householder QR instead of the (much faster) two-pass Cholesky QR.
+CHOLESKY_QR_MAX_CONDITION = 1e7
 
 
 @dataclass
@@ -39,68 +56,99 @@ class SampleInfo:
     notes: list[str] = field(default_factory=list)
 
 
-class OLSFit:
-    """A fitted linear regression y = X beta + e and everything estimators need from it."""
+class MomentModel:
+    """What every fitted model shares (see the module docstring for the protocol)."""
 
-    def __init__(self, *, X, y, terms, index, response, sample, horizon=None, table=None):
-        self.X = X
-        self.y = y
-        self.terms = list(terms)
-        self.index = index
-        self.response = response
-        self.sample = sample
-        self.horizon = horizon
-        self.table = table
-        self.nobs, self.k = X.shape
-        self._solve()
+    kind = "moment model"
+    response: str
+    terms: list[str]
+    beta: np.ndarray
+    nobs: int
+    k: int
+    index: pd.Index
+    sample: SampleInfo
+    horizon: int | None = None
+    leverage: np.ndarray | None = None
 
-    # ------------------------------------------------------------------ least squares
-    @single_blas_thread
-    def _solve(self):
-        X, y = self.X, self.y
-        # scale columns by their largest absolute value (never underflows, unlike a 2-norm)
-        norms = np.abs(X).max(axis=0)
-        xs = X / norms
-        q, r, piv = sla.qr(xs, mode="economic", pivoting=True, check_finite=False,
-                           overwrite_a=True)
-        r = np.array(r)          # a fresh copy: triangular solves on the raw factor are slow
-        diag = np.abs(np.diag(r))
-        rank = int(np.sum(diag > RANK_TOLERANCE * diag[0]))
-        if rank < self.k:
-            raise SpecificationError(_collinearity_message(r, piv, rank, self.terms))
-        beta = np.empty(self.k)
-        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-            beta[piv] = sla.solve_triangular(r, q.T @ y) / norms[piv]
-        if not np.isfinite(beta).all():
-            bad = [self.terms[i] for i in np.flatnonzero(~np.isfinite(beta))]
-            raise SpecificationError(
-                "the coefficients cannot be represented in floating point (overflow) for "
-                + ", ".join(f"'{b}'" for b in bad) + "; rescale those columns (e.g. to "
-                "thousands or percent) and fit again")
-        # one step of iterative refinement on the residual system
-        step = np.empty(self.k)
-        step[piv] = sla.solve_triangular(r, q.T @ (y - X @ beta)) / norms[piv]
-        beta += step
-        # X = Q C with C = R diag(norms[piv]) P'; the bread is B = C^-1 = P diag(1/norms[piv]) R^-1
-        rinv = sla.solve_triangular(r, np.eye(self.k))
-        bread = np.empty((self.k, self.k))
-        bread[piv] = rinv / norms[piv][:, None]
-        basis = np.empty((self.k, self.k))
-        basis[:, piv] = r * norms[piv][None, :]
-        self.q = q
-        self.bread = bread                       # B, with V = T B S B'
-        self.basis = basis                       # C, with x_t' = q_t' C
-        self.xtx_inv = bread @ bread.T           # (X'X)^-1, sum scale
-        self.beta = beta
-        self.fitted_values = X @ beta
-        self.resid = y - self.fitted_values
-        self.leverage = np.einsum("ij,ij->i", q, q)
+    def _init_model(self):
+        self.caches = Caches()
+
+    # ------------------------------------------------------------------ protocol pieces
+    @property
+    def moment_names(self) -> list[str]:
+        return list(self.terms)
+
+    @property
+    def m(self) -> int:
+        return len(self.moment_names)
+
+    @property
+    def constant_moments(self) -> np.ndarray:
+        """True for moments formed with the constant (the intercept's): bandwidth rules weight
+        them by zero, since their autocorrelation says nothing about the slopes."""
+        return np.array([name == INTERCEPT for name in self.moment_names])
+
+    @property
+    def working_contributions(self) -> np.ndarray:
+        """g_t in the working basis (T x m), cached."""
+        return self.caches.get("working_contributions",
+                               lambda: self.working_design * self.resid[:, None])
+
+    @property
+    def contributions(self) -> np.ndarray:
+        """g_t in the original basis (T x m), one column per moment, cached."""
+        return self.caches.get("contributions", self._original_contributions)
+
+    def _original_contributions(self) -> np.ndarray:
+        raise NotImplementedError
+
+    def to_original(self, s_working: np.ndarray) -> np.ndarray:
+        raise NotImplementedError
+
+    def to_working(self, s_original: np.ndarray) -> np.ndarray:
+        raise NotImplementedError
+
+    @property
+    def influence_map(self) -> np.ndarray:
+        raise NotImplementedError
+
+    def covariance_from_long_run(self, s_working: np.ndarray) -> np.ndarray:
+        """The coefficient covariance V = T M S M' for S of the working contributions."""
+        m = self.influence_map
+        return self.nobs * m @ s_working @ m.T
+
+    def homoskedastic_long_run(self) -> np.ndarray:
+        """S under uncorrelated, constant-variance errors: s^2 (1/T) sum_t w_t w_t' for the
+        working design rows w_t, s^2 = e'e / (T - k)."""
+        w = self.working_design
+        return self.sigma2 * (w.T @ w) / self.nobs
+
+    # ------------------------------------------------------------------ caches
+    @property
+    def moments(self) -> MomentCache:
+        """Autocovariance cache of the working contributions (filled lazily, once)."""
+        return self.caches.get("moments", lambda: MomentCache(self.working_contributions))
+
+    @property
+    def influence(self) -> MomentCache:
+        """Own autocovariances of each coefficient's influence series z_t = M g_t (k series):
+        the variances of a whole sweep of PSD kernels come from them."""
+        return self.caches.get("influence", lambda: MomentCache(
+            self.working_contributions @ self.influence_map.T, diagonal_only=True))
+
+    @property
+    def nbytes(self) -> int:
+        """Bytes held by the model: its arrays and every cache filled so far."""
+        seen: set = set()
+        own = sum(nbytes_of(v, seen) for name, v in vars(self).items()
+                  if name not in ("caches", "table"))
+        return own + self.caches.own_nbytes(seen)
 
     # ------------------------------------------------------------------ summaries
-    @cached_property
+    @property
     def term_index(self) -> pd.Index:
         """The terms as a pandas Index, built once (string Index construction is costly)."""
-        return pd.Index(self.terms, name="term")
+        return self.caches.get("term_index", lambda: pd.Index(self.terms, name="term"))
 
     @property
     def params(self) -> pd.Series:
@@ -109,10 +157,6 @@ class OLSFit:
     @property
     def residuals(self) -> pd.Series:
         return pd.Series(self.resid, index=self.index, name="residual")
-
-    @property
-    def fitted(self) -> pd.Series:
-        return pd.Series(self.fitted_values, index=self.index, name="fitted")
 
     @property
     def df_resid(self) -> int:
@@ -128,64 +172,179 @@ class OLSFit:
         return self.ssr / self.df_resid
 
     @property
+    def small_sample_factor(self) -> float:
+        """T / (T - k), the finite-sample inflation an estimator may apply to S."""
+        return self.nobs / self.df_resid
+
+    @property
     def has_intercept(self) -> bool:
         return INTERCEPT in self.terms
 
-    @property
-    def r_squared(self) -> float:
-        """Centred R^2 with an intercept, uncentred without one."""
-        centre = self.y.mean() if self.has_intercept else 0.0
-        tss = float(((self.y - centre) ** 2).sum())
-        return 1.0 - self.ssr / tss
-
-    @property
-    def small_sample_factor(self) -> float:
-        return self.nobs / self.df_resid
-
-    @cached_property
-    def scores(self) -> np.ndarray:
-        """Moment contributions in the orthonormal basis of the regressors: q_t e_t (T x k).
-
-        x_t e_t = C' q_t e_t, so every linear long-run estimate S of x_t e_t equals C' S_q C;
-        estimating S_q and forming V = T B S_q B' (B = C^-1) never squares the condition number
-        of X. Bandwidth rules and diagnostics use `raw_scores`.
-        """
-        return self.q * self.resid[:, None]
-
-    @cached_property
-    def raw_scores(self) -> np.ndarray:
-        """Moment contributions u_t = x_t e_t (T x k), one column per term."""
-        return self.X * self.resid[:, None]
-
-    def long_run_original_basis(self, s_q: np.ndarray) -> np.ndarray:
-        """S of x_t e_t from S of q_t e_t: C' S_q C."""
-        return self.basis.T @ s_q @ self.basis
-
-    @cached_property
-    def moments(self) -> MomentCache:
-        """Autocovariance cache of the moment contributions (filled lazily, once)."""
-        return MomentCache(self.scores)
-
-    def covariance_from_long_run(self, s: np.ndarray) -> np.ndarray:
-        """Sandwich V = (1/T) Q^-1 S Q^-1 with Q = X'X/T, S in the orthonormal basis:
-        V = T B S_q B'."""
-        b = self.bread
-        return self.nobs * b @ s @ b.T
-
-    # the public inference entry points live in engine.inference / engine.sweep
+    # ------------------------------------------------------------------ the public verbs
     def infer(self, estimator, level: float = 0.95, reference: str = "auto"):
+        """Coefficient table under one estimator of S and one reference law."""
         from .inference import infer
         return infer(self, estimator, level=level, reference=reference)
 
     def sweep(self, kernels=("bartlett",), bandwidths=None, small_sample: bool = False,
               repair: bool = True, prewhiten: bool = False):
+        """Every (kernel, bandwidth) at once from the cache (see `engine.sweep.sweep`)."""
+        from .sweep import sweep_kernels
+        return sweep_kernels(self, kernels=kernels, bandwidths=bandwidths,
+                             small_sample=small_sample, repair=repair, prewhiten=prewhiten)
+
+    def sweep_axis(self, estimator, values=None):
+        """One estimator along its family's tuning axis (b, B, VAR order)."""
         from .sweep import sweep
-        return sweep(self, kernels=kernels, bandwidths=bandwidths, small_sample=small_sample,
-                     repair=repair, prewhiten=prewhiten)
+        return sweep(self, [estimator], values)
+
+    def compare(self, level: float = 0.95, reference: str = "auto", **kwargs):
+        from .compare import compare
+        return compare(self, level=level, reference=reference, **kwargs)
+
+
+class OLSFit(MomentModel):
+    """A fitted linear regression y = X beta + e and everything estimators need from it.
+
+    Least squares by two-pass Cholesky QR of the column-scaled design (pivoted Householder QR
+    when the design is ill-conditioned or rank deficient), with one step of iterative
+    refinement. X = Q C with Q orthonormal; the working basis of the moment contributions is
+    q_t e_t, so S of x_t e_t is C' S_q C and V = T C^-1 S_q C^-1'.
+    """
+
+    kind = "least squares"
+
+    def __init__(self, *, X, y, terms, index, response, sample, horizon=None, table=None):
+        self._init_model()
+        self.X = X
+        self.y = y
+        self.terms = list(terms)
+        self.index = index
+        self.response = response
+        self.sample = sample
+        self.horizon = horizon
+        self.table = table
+        self.nobs, self.k = X.shape
+        self.one_period = None            # the one-period series behind an overlapping response
+        self._solve()
+
+    @single_blas_thread
+    def _solve(self):
+        X, y = self.X, self.y
+        # scale columns by their largest absolute value (never underflows, unlike a 2-norm)
+        norms = np.abs(X).max(axis=0)
+        xs = X / norms
+        factor = _cholesky_qr2(xs) if norms.min() > 0 else None
+        if factor is None:
+            q, r, piv = sla.qr(xs, mode="economic", pivoting=True, check_finite=False,
+                               overwrite_a=True)
+            r = np.array(r)          # a fresh copy: triangular solves on the raw factor are slow
+            diag = np.abs(np.diag(r))
+            rank = int(np.sum(diag > RANK_TOLERANCE * diag[0]))
+            if rank < self.k:
+                raise SpecificationError(_collinearity_message(r, piv, rank, self.terms))
+            rinv = sla.solve_triangular(r, np.eye(self.k))
+            self.factorization = "pivoted Householder QR"
+        else:
+            q, r, rinv = factor
+            piv = np.arange(self.k)
+            self.factorization = "Cholesky QR (two passes)"
+        beta = np.empty(self.k)
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+            beta[piv] = rinv @ (q.T @ y) / norms[piv]
+        if not np.isfinite(beta).all():
+            bad = [self.terms[i] for i in np.flatnonzero(~np.isfinite(beta))]
+            raise SpecificationError(
+                "the coefficients cannot be represented in floating point (overflow) for "
+                + ", ".join(f"'{b}'" for b in bad) + "; rescale those columns (e.g. to "
+                "thousands or percent) and fit again")
+        # one step of iterative refinement on the residual system
+        with np.errstate(over="ignore", invalid="ignore"):
+            fitted = X @ beta
+            step = np.empty(self.k)
+            step[piv] = rinv @ (q.T @ (y - fitted)) / norms[piv]
+        if np.isfinite(step).all():
+            beta += step
+            fitted = X @ beta
+        # X = Q C with C = R diag(norms[piv]) P'; C^-1 = P diag(1/norms[piv]) R^-1
+        inv_c = np.empty((self.k, self.k))
+        inv_c[piv] = rinv / norms[piv][:, None]
+        basis = np.empty((self.k, self.k))
+        basis[:, piv] = r * norms[piv][None, :]
+        self._q = q                                # orthonormal basis of the columns of X
+        self._inv_c = inv_c                        # C^-1: x_t' = q_t' C
+        self._basis = basis                        # C
+        self.beta = beta
+        self.fitted_values = fitted
+        self.resid = y - fitted
+        self.leverage = np.einsum("ij,ij->i", q, q)
+
+    # ------------------------------------------------------------------ the protocol
+    @property
+    def working_design(self) -> np.ndarray:
+        return self._q
+
+    def _original_contributions(self) -> np.ndarray:
+        return self.X * self.resid[:, None]
+
+    def to_original(self, s_working):
+        """S of x_t e_t from S of q_t e_t: C' S_q C."""
+        return self._basis.T @ s_working @ self._basis
+
+    def to_working(self, s_original):
+        """S of q_t e_t from S of x_t e_t: C^-1' S C^-1."""
+        return self._inv_c.T @ s_original @ self._inv_c
+
+    @property
+    def influence_map(self) -> np.ndarray:
+        """M = C^-1, so that V = T M S_q M' = (X'X/T)^-1 S (X'X/T)^-1 / T."""
+        return self._inv_c
+
+    @property
+    def xtx_inv(self) -> np.ndarray:
+        """(X'X)^-1."""
+        return self._inv_c @ self._inv_c.T
+
+    # ------------------------------------------------------------------ summaries
+    @property
+    def fitted(self) -> pd.Series:
+        return pd.Series(self.fitted_values, index=self.index, name="fitted")
+
+    @property
+    def r_squared(self) -> float:
+        """Centred R^2 with an intercept, uncentred without one (NaN when the response does not
+        vary about the centre)."""
+        centre = self.y.mean() if self.has_intercept else 0.0
+        tss = float(((self.y - centre) ** 2).sum())
+        return 1.0 - self.ssr / tss if tss > 0 and np.isfinite(tss) else float("nan")
 
     def __repr__(self):
         return (f"OLSFit(response={self.response!r}, terms={self.terms}, T={self.nobs}, "
                 f"R2={self.r_squared:.4f})")
+
+
+def _cholesky_qr2(xs: np.ndarray):
+    """Two-pass Cholesky QR of a well-conditioned matrix: (Q, R, R^-1), or None when the matrix
+    is too ill-conditioned for it (the caller then uses pivoted Householder QR). Backward stable
+    with Q orthonormal to rounding for condition numbers well below 1e8 (Yamamoto et al. 2015,
+    ETNA 44); the threshold used is `CHOLESKY_QR_MAX_CONDITION`."""
+    k = xs.shape[1]
+    try:
+        r1 = sla.cholesky(xs.T @ xs, lower=False, check_finite=False)
+    except (np.linalg.LinAlgError, ValueError):
+        return None
+    d = np.abs(np.diag(r1))
+    if not np.isfinite(r1).all() or d.min() <= 0 or np.linalg.cond(r1) > CHOLESKY_QR_MAX_CONDITION:
+        return None
+    r1inv = sla.solve_triangular(r1, np.eye(k), check_finite=False)
+    q1 = xs @ r1inv
+    try:
+        r2 = sla.cholesky(q1.T @ q1, lower=False, check_finite=False)
+    except (np.linalg.LinAlgError, ValueError):
+        return None
+    r2inv = sla.solve_triangular(r2, np.eye(k), check_finite=False)
+    q = q1 @ r2inv
+    return q, r2 @ r1, r1inv @ r2inv
 
 
 def _collinearity_message(r, piv, rank, terms) -> str:
@@ -207,55 +366,37 @@ def _collinearity_message(r, piv, rank, terms) -> str:
 
 
 def index_label(value):
-    """Dates without a midnight time part, other labels as they are."""
+    """Dates without a midnight time part, other labels as plain Python values."""
     if isinstance(value, pd.Timestamp) and value == value.normalize():
         return value.date().isoformat()
+    if isinstance(value, np.generic):
+        return value.item()
     return value
 
 
-def _as_list(regressors) -> list[str]:
-    if regressors is None:
+def as_list(names) -> list[str]:
+    """Column names from a list or a comma-separated string. A comma followed by a space is part
+    of a name (derived columns are named like 'x, lag 1'), so 'a,x, lag 1' is ['a', 'x, lag 1']."""
+    if names is None:
         return []
-    if isinstance(regressors, str):
-        return [r.strip() for r in regressors.split(",") if r.strip()]
-    return [str(r) for r in regressors]
+    if isinstance(names, str):
+        import re
+        return [r.strip() for r in re.split(r",(?!\s)", names) if r.strip()]
+    return [str(r) for r in names]
 
 
-def fit_ols(data, response: str, regressors=None, intercept: bool = True,
-            sample: tuple | None = None, horizon: int | None = None) -> OLSFit:
-    """Fit y = X beta + e by least squares (pivoted QR).
-
-    data: a `Table` or a DataFrame. regressors: list of column names (or "x1,x2").
-    intercept: add a constant term named "intercept" (first). sample: optional (start, end)
-    labels of the index (dates or row numbers), both inclusive; None keeps every row.
-    horizon: the number of periods h an overlapping response sums (errors MA(h-1)); taken from
-    the table when the response was made by the forward-sum transform.
-
-    Rows with a missing value in any used column are dropped and counted in `fit.sample`.
-    Raises DataError for unusable columns, SpecificationError for an impossible model.
-    """
+def _frame_and_meta(data):
+    """(table or None, frame, non-numeric columns, horizons) for a Table or a DataFrame."""
     if isinstance(data, Table):
-        table, frame = data, data.frame
-        non_numeric, horizons = table.report.non_numeric, table.horizons
-    elif isinstance(data, pd.DataFrame):
-        table, frame, horizons = None, data, {}
-        non_numeric = {}
-    else:
-        raise DataError(f"expected a Table or a pandas DataFrame, got {type(data).__name__}")
-    regs = _as_list(regressors)
-    if not isinstance(response, str) or not response:
-        raise SpecificationError("choose a response column")
-    if not regs and not intercept:
-        raise SpecificationError("the model has no regressors: add a column or the intercept")
-    if len(set(regs)) != len(regs):
-        dup = next(r for r in regs if regs.count(r) > 1)
-        raise SpecificationError(f"regressor '{dup}' is listed twice")
-    if response in regs:
-        raise SpecificationError(f"'{response}' is the response; it cannot also be a regressor")
-    if INTERCEPT in regs:
-        raise SpecificationError(f"'{INTERCEPT}' is reserved for the constant term; "
-                                 "rename that column")
-    cols = [response, *regs]
+        return data, data.frame, data.report.non_numeric, data.horizons
+    if isinstance(data, pd.DataFrame):
+        return None, data, {}, {}
+    raise DataError(f"expected a Table or a pandas DataFrame, got {type(data).__name__}")
+
+
+def numeric_block(frame, cols, non_numeric, sample, what="column"):
+    """Validated float values of `cols` over the sample window, rows with a missing value
+    dropped and counted. Returns (values T x len(cols), index, SampleInfo)."""
     for col in cols:
         if col not in non_numeric and col in frame.columns and (
                 not pd.api.types.is_numeric_dtype(frame[col])
@@ -263,17 +404,19 @@ def fit_ols(data, response: str, regressors=None, intercept: bool = True,
             nonnull = frame[col].dropna()
             non_numeric = {**non_numeric, col: nonnull.iloc[0] if len(nonnull) else None}
         if col in non_numeric:
+            example = non_numeric[col]
+            example = example.item() if isinstance(example, np.generic) else example
             raise DataError(f"column '{col}' is not numeric (it holds values such as "
-                            f"{non_numeric[col]!r}); choose a numeric column or clean the file")
+                            f"{example!r}); choose a numeric column or clean the file")
         if col not in frame.columns:
-            raise SpecificationError(f"no column named '{col}'; available: "
+            raise SpecificationError(f"no {what} named '{col}'; available: "
                                      + ", ".join(map(str, list(frame.columns)[:20])))
     used = frame[cols]
     available = len(used)
     info = SampleInfo(rows_available=available, rows_used=0)
     if sample is not None:
-        start, end = sample
         try:
+            start, end = sample
             used = used.loc[start:end]
         except (TypeError, KeyError, ValueError) as exc:
             raise SpecificationError(f"sample window {sample!r} does not match the index: {exc}") \
@@ -305,6 +448,45 @@ def fit_ols(data, response: str, regressors=None, intercept: bool = True,
         info.notes.insert(0, f"{info.dropped_missing} rows with missing values dropped")
         index = index[ok]
         values = values[ok]
+    return values, index, info
+
+
+def check_horizon(horizon):
+    if horizon is not None and (isinstance(horizon, bool)
+                                or not isinstance(horizon, (int, np.integer)) or horizon < 1):
+        raise SpecificationError(f"horizon must be a whole number of periods >= 1, got {horizon!r}")
+    return None if horizon is None else int(horizon)
+
+
+def fit_ols(data, response: str, regressors=None, intercept: bool = True,
+            sample: tuple | None = None, horizon: int | None = None) -> OLSFit:
+    """Fit y = X beta + e by least squares.
+
+    data: a `Table` or a DataFrame. regressors: list of column names (or "x1,x2").
+    intercept: add a constant term named "intercept" (first). sample: optional (start, end)
+    labels of the index (dates or row numbers), both inclusive; None keeps every row.
+    horizon: the number of periods h an overlapping response sums (errors MA(h-1)); taken from
+    the table when the response was made by the forward-sum transform.
+
+    Rows with a missing value in any used column are dropped and counted in `fit.sample`.
+    Raises DataError for unusable columns, SpecificationError for an impossible model.
+    """
+    table, frame, non_numeric, horizons = _frame_and_meta(data)
+    regs = as_list(regressors)
+    if not isinstance(response, str) or not response:
+        raise SpecificationError("choose a response column")
+    if not regs and not intercept:
+        raise SpecificationError("the model has no regressors: add a column or the intercept")
+    if len(set(regs)) != len(regs):
+        dup = next(r for r in regs if regs.count(r) > 1)
+        raise SpecificationError(f"regressor '{dup}' is listed twice")
+    if response in regs:
+        raise SpecificationError(f"'{response}' is the response; it cannot also be a regressor")
+    if INTERCEPT in regs:
+        raise SpecificationError(f"'{INTERCEPT}' is reserved for the constant term; "
+                                 "rename that column")
+    cols = [response, *regs]
+    values, index, info = numeric_block(frame, cols, non_numeric, sample)
     t_obs = len(values)
     k = len(regs) + int(intercept)
     if t_obs <= k:
@@ -312,7 +494,7 @@ def fit_ols(data, response: str, regressors=None, intercept: bool = True,
                                  "more observations than coefficients (T > k)")
     spread = np.ptp(values, axis=0)
     if spread[0] == 0:
-        raise SpecificationError(f"response '{response}' is constant ({values[0, 0]!r}): "
+        raise SpecificationError(f"response '{response}' is constant ({values[0, 0]:g}): "
                                  "nothing to explain")
     zero = [j for j in range(len(regs)) if spread[j + 1] == 0 and values[0, j + 1] == 0]
     if zero:
@@ -322,7 +504,7 @@ def fit_ols(data, response: str, regressors=None, intercept: bool = True,
     if constant and (intercept or len(constant) > 1):
         j = constant[-1] if not intercept else constant[0]
         what = "it duplicates the intercept" if intercept else "it duplicates another constant"
-        raise SpecificationError(f"regressor '{regs[j]}' is constant ({values[0, j + 1]!r}); "
+        raise SpecificationError(f"regressor '{regs[j]}' is constant ({values[0, j + 1]:g}); "
                                  f"{what}. Remove it.")
     terms = ([INTERCEPT] if intercept else []) + regs
     X = np.empty((t_obs, k))
@@ -332,9 +514,8 @@ def fit_ols(data, response: str, regressors=None, intercept: bool = True,
     y = np.ascontiguousarray(values[:, 0])
     info.rows_used = t_obs
     info.first, info.last = (index_label(index[0]), index_label(index[-1]))
+    horizon = check_horizon(horizon)
     if horizon is None:
         horizon = horizons.get(response)
-    elif isinstance(horizon, bool) or not isinstance(horizon, (int, np.integer)) or horizon < 1:
-        raise SpecificationError(f"horizon must be a whole number of periods >= 1, got {horizon!r}")
     return OLSFit(X=X, y=y, terms=terms, index=index, response=response, sample=info,
                   horizon=horizon, table=table)

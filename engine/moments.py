@@ -1,8 +1,9 @@
 """Moment contributions and the cache of their autocovariances.
 
-For moment contributions u_t (T x k; OLS: u_t = x_t e_t) the lag-j autocovariance is
-Gamma_j = (1/T) sum_{t=j+1}^{T} u_t u_{t-j}'  (divisor T at every lag, which keeps kernel
-estimates with PSD kernels positive semi-definite; scores are not re-centred, as in statsmodels).
+For moment contributions g_t (T x m; OLS: x_t e_t, in the model's working basis) the lag-j
+autocovariance is Gamma_j = (1/T) sum_{t=j+1}^{T} g_t g_{t-j}'  (divisor T at every lag, which
+keeps kernel estimates with PSD kernels positive semi-definite; the contributions are not
+re-centred, as in statsmodels: with an intercept they sum to zero anyway).
 
 Every kernel estimate is S = Gamma_0 + sum_{j>=1} w_j (Gamma_j + Gamma_j'), so the cache stores
 the symmetric matrices C_0 = Gamma_0 and C_j = Gamma_j + Gamma_j' (upper triangles packed), and a
@@ -31,11 +32,11 @@ FAR_CACHE_LIMIT = 20_000_000
 class MomentCache:
     """Autocovariances of the moment contributions, computed once and reused."""
 
-    def __init__(self, scores: np.ndarray, diagonal_only: bool = False):
-        u = np.asarray(scores, dtype=float)
+    def __init__(self, series: np.ndarray, diagonal_only: bool = False):
+        u = np.asarray(series, dtype=float)
         if u.ndim != 2:
-            raise SpecificationError("moment contributions must be a T x k matrix")
-        self.scores = u
+            raise SpecificationError("moment contributions must be a T x m matrix")
+        self.series = u
         self.nobs, self.k = u.shape
         self.diagonal_only = diagonal_only      # keep only each column's own autocovariances
         self._iu = (np.arange(self.k), np.arange(self.k)) if diagonal_only \
@@ -44,6 +45,18 @@ class MomentCache:
         self._far: dict = {}                     # prepared tails for infinite-support kernels
 
     # ------------------------------------------------------------------ filling
+    def own_nbytes(self, seen=None) -> int:
+        """Bytes of the cached autocovariances and prepared tails (the series itself belongs to
+        the model and is counted there)."""
+        from .caches import nbytes_of
+        seen = set() if seen is None else seen
+        seen.add(id(self.series))
+        return nbytes_of(self._packed, seen) + nbytes_of(self._far, seen)
+
+    @property
+    def nbytes(self) -> int:
+        return self.own_nbytes()
+
     @property
     def max_lag_cached(self) -> int:
         return -1 if self._packed is None else self._packed.shape[1] - 1
@@ -55,11 +68,11 @@ class MomentCache:
         if max_lag <= self.max_lag_cached:
             return
         if self.diagonal_only:
-            self._packed = _autocov_diagonal(self.scores, max_lag)
+            self._packed = _autocov_diagonal(self.series, max_lag)
             self._far.clear()
             return
         if 8 * (max_lag + 1) < self.nobs:
-            full = _autocov_blocks(self.scores, max_lag)
+            full = _autocov_blocks(self.series, max_lag)
         else:
             max_lag = self.nobs - 1
             full = None
@@ -68,7 +81,7 @@ class MomentCache:
             sym[0] = full[0]
             pair_major = np.ascontiguousarray(sym[:, self._iu[0], self._iu[1]].T)
         else:
-            pair_major = _autocov_all_pairs(self.scores, self._iu)
+            pair_major = _autocov_all_pairs(self.series, self._iu)
         self._packed = pair_major                 # (P, n_lags): lag j of pair p at [p, j]
         self._far.clear()
 
@@ -88,13 +101,13 @@ class MomentCache:
             return kernel.weights(b, n_lags) @ self.packed(n_lags - 1)
         c = self.packed(self.nobs - 1)
         small_tail = 2 * c.shape[0] * c.shape[1] <= FAR_CACHE_LIMIT
-        if kernel.name != "quadratic_spectral" or self.nobs <= 4096 \
-                or (len(b) <= 2 and not small_tail):
+        fast = ALL_LAG_SUMS.get(kernel.name)
+        if fast is None or self.nobs <= 4096 or (len(b) <= 2 and not small_tail):
             # direct weights, a bounded number of bandwidths at a time
             step = max(1, int(4e6 // self.nobs))
             return np.vstack([kernel.weights(b[i: i + step], self.nobs) @ c
                               for i in range(0, len(b), step)])
-        return _qs_sums(self, b, c)
+        return fast(self, b, c)
 
     def unpack(self, packed: np.ndarray) -> np.ndarray:
         """(..., P) packed upper triangles -> (..., k, k) symmetric matrices."""
@@ -145,9 +158,9 @@ def _autocov_diagonal(u: np.ndarray, max_lag: int) -> np.ndarray:
     """Each column's own C_0..C_L (pair-major (k, L+1)) from one FFT padded to T + L + 1."""
     t_obs = u.shape[0]
     n_fft = sfft.next_fast_len(t_obs + max_lag + 1, real=True)
-    f = sfft.rfft(np.ascontiguousarray(u.T), n=n_fft, axis=-1)
+    f = sfft.rfft(np.ascontiguousarray(u.T), n=n_fft, axis=-1, workers=-1)
     power = f.real**2 + f.imag**2
-    out = sfft.irfft(power, n=n_fft, axis=-1)[:, : max_lag + 1] * (2.0 / t_obs)
+    out = sfft.irfft(power, n=n_fft, axis=-1, workers=-1)[:, : max_lag + 1] * (2.0 / t_obs)
     out[:, 0] *= 0.5
     return np.ascontiguousarray(out)
 
@@ -237,3 +250,7 @@ def _qs_far(b, theta, j0, block, n_blk, hmat, p):
     total = np.einsum("bm,bmp->bp", outer, inner)
     return (3.0 / theta**3)[:, None] * total[:, :p].imag \
         - (3.0 / theta**2)[:, None] * total[:, p:].real
+
+
+#: Kernels with a closed form that sums every lag faster than evaluating k(j/b) at each lag.
+ALL_LAG_SUMS = {"quadratic_spectral": _qs_sums}

@@ -1,217 +1,398 @@
-"""Sensitivity sweep: every (kernel, bandwidth) at once from the autocovariance cache.
+"""Sensitivity sweeps: estimators moved along their family's tuning axis, and where the
+conclusion of a test changes.
 
-For each kernel the weights over lags form a matrix W (bandwidths x lags); the long-run
-covariances are W @ C with C the cached symmetric autocovariances, and the standard errors
-follow from the sandwich in one einsum. No pass over the data after the cache exists, and the
-numbers are the same as one `fit.infer(estimator("kernel", ...))` per setting.
+`sweep(model, estimators, values)` moves each estimator (all of one family) along the family's
+axis (kernel bandwidth b, EWC's B, the VAR order). The kernel family has a vectorised path: for
+each kernel the weights over lags form a matrix W (bandwidths x lags) and the long-run covariances
+are W @ C with C the cached autocovariances; no pass over the data once the cache exists, and the
+numbers equal one `infer` per setting. Other families run one estimate per grid point.
+`sweep_kernels(model, kernels, bandwidths)` is the common case of several kernels over b.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
 
 from . import longrun
-from .errors import SpecificationError
+from .covariance import Estimator, ModelInfo, as_estimator, estimator as make_estimator
+from .errors import LagwiseError, SpecificationError
 from .kernels import get_kernel
-from .moments import MomentCache
 from ._threads import single_blas_thread
+
+#: Point status codes and what they mean (the app marks such points on the chart).
+STATUS_TEXT = {
+    "repaired": "the estimate of S was not positive semi-definite; negative eigenvalues were set "
+                "to zero (eigenvalue repair)",
+    "not_psd": "the estimate of S is not positive semi-definite; a negative variance has no "
+               "standard error",
+    "collapsed": "the estimate of S is zero to rounding (flat weights over every lag)",
+    "unavailable": "the estimator cannot be computed here",
+}
 
 
 @dataclass
 class SweepResult:
-    kernels: list[str]
-    bandwidths: np.ndarray        # (n_b,)
+    """Standard errors and t statistics of every curve (one estimator each) at every value of
+    the family's tuning axis. Arrays are (curves, values, terms)."""
+
+    labels: list[str]
+    estimators: list[Estimator]
+    values: np.ndarray
     terms: list[str]
-    estimate: np.ndarray          # (k,)
-    std_error: np.ndarray         # (n_kernels, n_b, k)
-    t_stat: np.ndarray            # (n_kernels, n_b, k)
-    lags: np.ndarray              # (n_kernels, n_b)
-    repaired: np.ndarray          # (n_kernels, n_b) eigenvalue repair applied
-    small_sample: bool
-    nobs: int
+    estimate: np.ndarray          # (n_c, n, k)
+    std_error: np.ndarray         # (n_c, n, k)
+    t_stat: np.ndarray            # (n_c, n, k)
+    lags: np.ndarray              # (n_c, n); -1 where the family has no lag count
+    status: np.ndarray            # (n_c, n) "" or a key of STATUS_TEXT
+    reasons: np.ndarray           # (n_c, n) why a point is unavailable ("" otherwise)
+    long_runs: list               # (n_c, n) light LongRun records for the reference laws
+    info: ModelInfo
+    _critical: dict = field(default_factory=dict, repr=False)
+
+    # ------------------------------------------------------------------ views
+    @property
+    def family(self):
+        return self.estimators[0].family
+
+    @property
+    def axis(self):
+        return self.family.axis
+
+    @property
+    def kernels(self) -> list[str]:
+        """For kernel sweeps: the kernel of each curve."""
+        return [e.params.get("kernel", e.name) for e in self.estimators]
+
+    @property
+    def bandwidths(self) -> np.ndarray:
+        return self.values
+
+    @property
+    def repaired(self) -> np.ndarray:
+        return self.status == "repaired"
+
+    @property
+    def nobs(self) -> int:
+        return self.info.nobs
+
+    def curve_index(self, curve) -> int:
+        """A curve by position, label or (for kernel sweeps) kernel name."""
+        if isinstance(curve, (int, np.integer)):
+            return int(curve)
+        for names in (self.labels, self.kernels):
+            if curve in names:
+                return names.index(curve)
+        raise SpecificationError(f"no curve {curve!r} in this sweep; curves are "
+                                 + ", ".join(self.labels))
+
+    def law(self, curve: int, point: int, reference: str):
+        est = self.estimators[curve]
+        return est.family.law(reference, est.params, self.long_runs[curve][point], self.info)
+
+    def critical_values(self, level: float = 0.95, reference: str = "normal") -> np.ndarray:
+        """Two-sided critical value of |t| at each point under the requested law (NaN where the
+        law is not defined there, e.g. fixed-b beyond b/T = 1 or for a family without one)."""
+        key = (level, reference)
+        if key not in self._critical:
+            out = np.full(self.status.shape, np.nan)
+            for c in range(len(self.estimators)):
+                for i in range(len(self.values)):
+                    try:
+                        out[c, i] = self.law(c, i, reference).critical_value(level)
+                    except LagwiseError:
+                        continue
+            self._critical[key] = out
+        return self._critical[key]
+
+    def series(self, curve, term: str, what: str = "t_stat") -> pd.Series:
+        c, j = self.curve_index(curve), self.terms.index(term)
+        return pd.Series(getattr(self, what)[c, :, j], index=self.values, name=what)
 
     @property
     def frame(self) -> pd.DataFrame:
-        """Long format: one row per (kernel, bandwidth, term)."""
-        nk, nb, k = self.std_error.shape
+        """Long format: one row per (curve, value, term)."""
+        nc, n, k = self.std_error.shape
         return pd.DataFrame({
-            "kernel": np.repeat(self.kernels, nb * k),
-            "bandwidth": np.tile(np.repeat(self.bandwidths, k), nk),
+            "curve": np.repeat(self.labels, n * k),
+            self.axis.param: np.tile(np.repeat(self.values, k), nc),
             "lags": np.repeat(self.lags.ravel(), k),
-            "term": np.tile(self.terms, nk * nb),
-            "estimate": np.tile(self.estimate, nk * nb),
+            "term": np.tile(self.terms, nc * n),
+            "estimate": self.estimate.ravel(),
             "std_error": self.std_error.ravel(),
             "t_stat": self.t_stat.ravel(),
-            "repaired": np.repeat(self.repaired.ravel(), k),
+            "status": np.repeat(self.status.ravel(), k),
         })
 
-    def critical_values(self, level: float = 0.95, reference: str = "normal") -> np.ndarray:
-        """Two-sided critical value of |t| for each (kernel, bandwidth): constant under the
-        normal law, a function of b/T under fixed-b (kernels without fixed-b tables: NaN)."""
-        from scipy import stats
-        nk, nb = self.lags.shape
-        if reference == "normal":
-            return np.full((nk, nb), stats.norm.ppf(0.5 + level / 2))
-        if reference == "t":
-            return np.full((nk, nb), stats.t.ppf(0.5 + level / 2, self.nobs - len(self.terms)))
-        if reference != "fixed-b":
-            raise SpecificationError(f"unknown reference law {reference!r} for a sweep")
-        from .fixedb import FIXED_B_KERNELS, fixed_b_critical_value
-        out = np.full((nk, nb), np.nan)
-        for i, kern in enumerate(self.kernels):
-            if kern in FIXED_B_KERNELS:
-                for j, b in enumerate(self.bandwidths):
-                    if b / self.nobs <= 1:
-                        out[i, j] = fixed_b_critical_value(kern, b / self.nobs, level)
-        return out
+    def own_nbytes(self, seen=None) -> int:
+        from .caches import nbytes_of
+        seen = set() if seen is None else seen
+        return sum(nbytes_of(a, seen) for a in (self.values, self.estimate, self.std_error,
+                                                self.t_stat, self.lags)) \
+            + 64 * self.status.size * 3
 
-    def series(self, kernel: str, term: str, what: str = "t_stat") -> pd.Series:
-        i, j = self.kernels.index(kernel), self.terms.index(term)
-        return pd.Series(getattr(self, what)[i, :, j], index=self.bandwidths, name=what)
+    @property
+    def nbytes(self) -> int:
+        return self.own_nbytes()
 
 
-def influence_cache(fit) -> MomentCache:
-    """Autocovariances of each coefficient's influence series z_t = B u_t (diagonal only),
-    cached on the fit: the variances of a whole sweep of PSD kernels come from them."""
-    cache = fit.__dict__.get("_influence")
-    if cache is None:
-        cache = MomentCache(fit.scores @ fit.bread.T, diagonal_only=True)
-        fit.__dict__["_influence"] = cache
-    return cache
+def _light(lr) -> longrun.LongRun:
+    return longrun.LongRun(S=None, bandwidth=lr.bandwidth, lags=lr.lags, law=lr.law,
+                           tuning=lr.tuning)
 
 
-def default_bandwidths(nobs: int, upper: int | None = None) -> np.ndarray:
-    top = min(nobs, upper or max(12, min(nobs // 4, 100)))
-    return np.arange(1, top + 1, dtype=float)
+# --------------------------------------------------------------------------- kernels, vectorised
+
+def kernel_curves(model, estimators, values) -> dict:
+    """The kernel family's vectorised sweep: arrays for `SweepResult`."""
+    b = np.asarray(values, dtype=float)
+    nc, nb, k = len(estimators), len(b), len(model.terms)
+    se = np.empty((nc, nb, k))
+    lags = np.empty((nc, nb), dtype=int)
+    status = np.full((nc, nb), "", dtype=object)
+    runs = []
+    for c, est in enumerate(estimators):
+        p = est.params
+        kern = get_kernel(p["kernel"])
+        factor = model.small_sample_factor if p["small_sample"] else 1.0
+        mmap = model.influence_map
+        if p["prewhiten"]:
+            from .prewhiten import prepared, recoloured
+            pw = prepared(model)
+            s_star, lg, _, st = longrun.kernel_many(model, kern, b, small_sample=p["small_sample"],
+                                                    repair=p["repair"], cache=pw["moments"])
+            s_w = recoloured(model, s_star)
+            var = model.nobs * np.einsum("ia,nab,ib->ni", mmap, s_w, mmap)
+        elif kern.psd:
+            # V_ii = T sum_j w_j C_j(z)_ii with z_t = M g_t, the coefficients' influence series:
+            # only k autocovariance series are needed, not m(m+1)/2 pairs
+            if not kern.finite_support:
+                model.influence.ensure(model.nobs - 1)
+            var = model.nobs * factor * model.influence.kernel_sums(kern, b)
+            lg = np.array([kern.lags_used(x, model.nobs) for x in b])
+            st = np.full(nb, "", dtype=object)
+        else:
+            s, lg, _, st = longrun.kernel_many(model, kern, b, small_sample=p["small_sample"],
+                                               repair=p["repair"])
+            var = model.nobs * np.einsum("ia,nab,ib->ni", mmap, s, mmap)   # diag of T M S M'
+        with np.errstate(invalid="ignore"):
+            se[c] = np.sqrt(np.where(var < 0, np.nan, var))
+        st = np.where((st == "") & (var < 0).any(axis=1), "not_psd", st)
+        lags[c] = lg
+        status[c] = st
+        runs.append([longrun.LongRun(S=None, bandwidth=float(x), lags=int(n_lags),
+                                     tuning=float(x)) for x, n_lags in zip(b, lg)])
+    return {"std_error": se, "lags": lags, "status": status, "long_runs": runs}
+
+
+def _loop_curves(model, estimators, values) -> dict:
+    """The default sweep: one estimate of S per grid point."""
+    nc, n, k = len(estimators), len(values), len(model.terms)
+    se = np.full((nc, n, k), np.nan)
+    lags = np.full((nc, n), -1, dtype=int)
+    status = np.full((nc, n), "", dtype=object)
+    reasons = np.full((nc, n), "", dtype=object)
+    runs = []
+    for c, est in enumerate(estimators):
+        row = []
+        for i, v in enumerate(values):
+            try:
+                point = est.at(int(v) if float(v).is_integer() else float(v))
+                lr = point.long_run(model)
+                var = np.diag(model.covariance_from_long_run(lr.S))
+                with np.errstate(invalid="ignore"):
+                    se[c, i] = np.sqrt(np.where(var < 0, np.nan, var))
+                if (var < 0).any():
+                    status[c, i] = "not_psd"
+                if lr.lags is not None:
+                    lags[c, i] = lr.lags
+                row.append(_light(lr))
+            except LagwiseError as exc:
+                status[c, i] = "unavailable"
+                reasons[c, i] = str(exc)
+                row.append(longrun.LongRun(S=None, tuning=float(v)))
+        runs.append(row)
+    return {"std_error": se, "lags": lags, "status": status, "long_runs": runs,
+            "reasons": reasons}
 
 
 @single_blas_thread
-def sweep(fit, kernels=("bartlett",), bandwidths=None, small_sample: bool = False,
-          repair: bool = True, prewhiten: bool = False) -> SweepResult:
-    """Standard errors and t statistics for every (kernel, bandwidth, term) at once.
+def sweep(model, estimators, values=None) -> SweepResult:
+    """Move each estimator (all of one family) along the family's tuning axis.
 
-    prewhiten=True sweeps the Andrews-Monahan prewhitened-and-recoloured estimators (the VAR(1)
-    is fitted once; each bandwidth reweights the residuals' cache)."""
+    values: the grid (default: the family's own grid for this model)."""
+    ests = [as_estimator(e) for e in (estimators if isinstance(estimators, (list, tuple))
+                                      else [estimators])]
+    if not ests:
+        raise SpecificationError("choose at least one estimator to sweep")
+    family = ests[0].family
+    if any(e.family is not family for e in ests):
+        raise SpecificationError("a sweep moves estimators of one family along one axis")
+    if family.axis is None:
+        raise SpecificationError(f"{family.title} has no tuning parameter to sweep")
+    v = family.axis.grid(model) if values is None else \
+        np.atleast_1d(np.asarray(values, dtype=float))
+    if v.size == 0 or np.any(~np.isfinite(v)):
+        raise SpecificationError("the values to sweep must be finite numbers")
+    if family.axis.param == "bandwidth" and np.any(v <= 0):
+        raise SpecificationError("bandwidths must be positive numbers")
+    parts = (family.sweep or _loop_curves)(model, ests, v)
+    se = parts["std_error"]
+    est = np.broadcast_to(model.beta, se.shape).copy()
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t = np.where(se > 0, est / se, np.nan)
+    return SweepResult(labels=[family.curve_label(e.params) for e in ests], estimators=ests,
+                       values=v,
+                       terms=list(model.terms), estimate=est, std_error=se, t_stat=t,
+                       lags=parts["lags"], status=parts["status"],
+                       reasons=parts.get("reasons", np.full(parts["status"].shape, "",
+                                                            dtype=object)),
+                       long_runs=parts["long_runs"],
+                       info=ModelInfo(model.nobs, model.df_resid))
+
+
+def sweep_kernels(model, kernels=("bartlett",), bandwidths=None, small_sample: bool = False,
+                  repair: bool = True, prewhiten: bool = False) -> SweepResult:
+    """Standard errors and t statistics for every (kernel, bandwidth, term) at once."""
     if isinstance(kernels, str):
         kernels = [kernels]
     kernels = list(kernels)
     if not kernels:
         raise SpecificationError("choose at least one kernel to sweep")
-    b = default_bandwidths(fit.nobs) if bandwidths is None else \
-        np.atleast_1d(np.asarray(bandwidths, dtype=float))
-    if b.size == 0 or np.any(~np.isfinite(b)) or np.any(b <= 0):
-        raise SpecificationError("bandwidths must be positive numbers")
-    nk, nb, k = len(kernels), len(b), fit.k
-    se = np.empty((nk, nb, k))
-    lags = np.empty((nk, nb), dtype=int)
-    repaired = np.zeros((nk, nb), dtype=bool)
-    factor = fit.small_sample_factor if small_sample else 1.0
-    if any(get_kernel(name).psd and not get_kernel(name).finite_support for name in kernels):
-        influence_cache(fit).ensure(fit.nobs - 1)     # fill every lag once, for all kernels
-    for i, name in enumerate(kernels):
-        kern = get_kernel(name)
-        if prewhiten:
-            from .prewhiten import prepared
-            pw = prepared(fit)
-            s_star, lg, _, rep = longrun.kernel_many(pw["fit"], kern, b,
-                                                     small_sample=small_sample, repair=repair)
-            m = fit.bread.T @ np.linalg.inv(np.eye(fit.k) - pw["A"])   # raw -> orthonormal
-            s_q = np.einsum("ia,nab,jb->nij", m, s_star, m)
-            a = fit.bread
-            var = fit.nobs * np.einsum("ia,nab,ib->ni", a, s_q, a)
-        elif kern.psd:
-            # V_ii = T sum_j w_j C_j(z)_ii with z_t = B u_t, the coefficients' influence series:
-            # only k autocovariance series are needed, not k(k+1)/2 pairs
-            var = fit.nobs * factor * influence_cache(fit).kernel_sums(kern, b)
-            lg = np.array([kern.lags_used(x, fit.nobs) for x in b])
-            rep = np.zeros(nb, dtype=bool)
-        else:
-            s, lg, _, rep = longrun.kernel_many(fit, kern, b, small_sample=small_sample,
-                                                repair=repair)
-            a = fit.bread
-            var = fit.nobs * np.einsum("ia,nab,ib->ni", a, s, a)   # diagonal of T B S B'
-        se[i] = np.sqrt(np.where(var < 0, np.nan, var))
-        lags[i] = lg
-        repaired[i] = rep
-    with np.errstate(divide="ignore", invalid="ignore"):
-        t = fit.beta[None, None, :] / se
-    return SweepResult(kernels=kernels, bandwidths=b, terms=list(fit.terms), estimate=fit.beta,
-                       std_error=se, t_stat=t, lags=lags, repaired=repaired,
-                       small_sample=small_sample, nobs=fit.nobs)
+    ests = [make_estimator("kernel", kernel=k, bandwidth=1.0, small_sample=small_sample,
+                           repair=repair, prewhiten=prewhiten) for k in kernels]
+    return sweep(model, ests, bandwidths)
 
+
+def default_bandwidths(nobs: int, upper: int | None = None) -> np.ndarray:
+    """b = 1..upper (default: about T/3, between 24 and 120, never beyond T)."""
+    top = int(min(nobs, upper or max(24, min(nobs // 3, 120))))
+    return np.arange(1, top + 1, dtype=float)
+
+
+# --------------------------------------------------------------------------- flips
 
 @dataclass
 class Flip:
-    """Where a test's conclusion changes along the bandwidth axis."""
+    """Where the conclusion of the two-sided test of beta = 0 changes along a tuning axis."""
 
     term: str
-    kernel: str
+    curve: str                    # the estimator moved (its label)
+    symbol: str                   # the axis symbol, e.g. "b"
     level: float
-    reference: str
-    rejects_at_start: bool | None
-    flip_bandwidth: float | None       # smallest b whose decision differs from b at the start
-    holds_up_to: float | None          # largest b before that (the conclusion holds for b <= it)
-    bandwidths: np.ndarray
-    rejects: np.ndarray
+    reference: str                # the law requested
+    values: np.ndarray
+    rejects: np.ndarray           # bool per value (False where unavailable)
+    valid: np.ndarray             # a standard error and a critical value exist
+
+    @property
+    def segments(self) -> list[tuple[float, float, bool | None]]:
+        """Runs of equal conclusions: (first value, last value, rejects; None = unavailable)."""
+        out = []
+        state = [None if not ok else bool(r) for ok, r in zip(self.valid, self.rejects)]
+        start = 0
+        for i in range(1, len(state) + 1):
+            if i == len(state) or state[i] != state[start]:
+                out.append((float(self.values[start]), float(self.values[i - 1]), state[start]))
+                start = i
+        return out
+
+    @property
+    def changes(self) -> list[float]:
+        """Values at which the decision differs from the previous available value."""
+        seen = [(v, s) for v, _, s in self.segments if s is not None]
+        return [v for (v, s), (_, prev) in zip(seen[1:], seen[:-1]) if s != prev]
+
+    @property
+    def rejects_at_start(self) -> bool | None:
+        first = [s for _, _, s in self.segments if s is not None]
+        return first[0] if first else None
+
+    @property
+    def flip_bandwidth(self) -> float | None:
+        """The first value whose decision differs from the start's."""
+        return self.changes[0] if self.changes else None
+
+    @property
+    def holds_up_to(self) -> float | None:
+        """The last value before the first change (the conclusion holds up to it)."""
+        if self.rejects_at_start is None:
+            return None
+        if not self.changes:
+            return float(self.values[self.valid][-1])
+        before = self.values[self.valid & (self.values < self.changes[0])]
+        return float(before[-1])
 
     def sentence(self) -> str:
-        verdict = "rejected" if self.rejects_at_start else "not rejected"
-        from .kernels import KERNELS
-        kname = KERNELS[self.kernel].display_name if self.kernel in KERNELS else self.kernel
-        start = self.bandwidths[0]
+        pct = f"{100 * (1 - self.level):g}%"
+        tail = f" ({self.curve}, {self.reference} critical values)"
         if self.rejects_at_start is None:
-            return f"{self.term}: no usable standard error at b = {start:g}."
-        if self.flip_bandwidth is None:
-            return (f"{self.term}: beta = 0 is {verdict} at {100 * (1 - self.level):g}% for "
-                    f"every b from {start:g} to {self.bandwidths[-1]:g} ({kname}, "
-                    f"{self.reference} critical values).")
-        return (f"{self.term}: beta = 0 is {verdict} at {100 * (1 - self.level):g}% for "
-                f"b <= {self.holds_up_to:g}; the conclusion flips at b = {self.flip_bandwidth:g}"
-                f" ({kname}, {self.reference} critical values).")
+            return f"{self.term}: no usable standard error for any {self.symbol} shown."
+        words = {True: "rejected", False: "not rejected", None: "not available"}
+        segs = self.segments
+        if len([s for s in segs if s[2] is not None]) == 1 and len(segs) == 1:
+            a, b, s = segs[0]
+            return (f"{self.term}: beta = 0 is {words[s]} at {pct} for every {self.symbol} from "
+                    f"{a:g} to {b:g}" + tail + ".")
+        parts = [(f"{words[s]} for {self.symbol} = {a:g}" if a == b else
+                  f"{words[s]} for {self.symbol} from {a:g} to {b:g}") for a, b, s in segs]
+        return (f"{self.term}: beta = 0 at {pct} is " + "; ".join(parts)
+                + f"; the conclusion changes {times(len(self.changes))}" + tail + ".")
 
 
-def significance_flip(fit, term: str, kernel: str = "bartlett", level: float = 0.95,
-                      reference: str = "normal", bandwidths=None, sweep_result=None) -> Flip:
-    """The smallest bandwidth at which the two-sided test of beta = 0 for `term` at `level`
-    stops (or starts) rejecting, scanning `bandwidths` (default 1..min(T, 100)) upward."""
-    if term not in fit.terms:
-        raise SpecificationError(f"no coefficient named {term!r}; terms are {', '.join(fit.terms)}")
-    sw = sweep_result if sweep_result is not None else \
-        sweep(fit, kernels=[kernel], bandwidths=bandwidths if bandwidths is not None
-              else default_bandwidths(fit.nobs, 100))
-    i, j = sw.kernels.index(kernel), sw.terms.index(term)
-    cv = sw.critical_values(level, reference)[i]
-    t = np.abs(sw.t_stat[i, :, j])
+def times(n: int) -> str:
+    return {1: "once", 2: "twice"}.get(n, f"{n} times")
+
+
+def significance_flip(model, term: str, estimator=None, level: float = 0.95,
+                      reference: str = "normal", values=None, sweep_result=None,
+                      curve=0) -> Flip:
+    """Every change of the two-sided test of beta = 0 for `term` along the tuning axis of
+    `estimator` (a kernel name means a kernel estimator over the bandwidth; default Bartlett),
+    under `reference`. Reuses `sweep_result` (its curve `curve`, or the curve of the kernel
+    named by `estimator`) when given."""
+    if term not in model.terms:
+        raise SpecificationError(f"no coefficient named {term!r}; terms are "
+                                 + ", ".join(model.terms))
+    if estimator is None and sweep_result is None:
+        estimator = "bartlett"
+    by_kernel = isinstance(estimator, str) and _is_kernel(estimator)
+    if sweep_result is None:
+        est = make_estimator("kernel", kernel=estimator, bandwidth=1.0) if by_kernel \
+            else as_estimator(estimator)
+        sweep_result = sweep(model, [est], values)
+        curve = 0
+    elif by_kernel:
+        curve = sweep_result.curve_index(estimator)
+    c, j = sweep_result.curve_index(curve), sweep_result.terms.index(term)
+    cv = sweep_result.critical_values(level, reference)[c]
+    t = np.abs(sweep_result.t_stat[c, :, j])
     valid = np.isfinite(t) & np.isfinite(cv)
-    rejects = np.where(valid, t > cv, False)
-    if not valid.any():
-        return Flip(term, kernel, level, reference, None, None, None, sw.bandwidths, rejects)
-    first = int(np.flatnonzero(valid)[0])
-    start = bool(rejects[first])
-    change = np.flatnonzero(valid & (rejects != start) & (np.arange(len(t)) > first))
-    if change.size == 0:
-        return Flip(term, kernel, level, reference, start, None, float(sw.bandwidths[-1]),
-                    sw.bandwidths[first:], rejects[first:])
-    at = int(change[0])
-    return Flip(term, kernel, level, reference, start, float(sw.bandwidths[at]),
-                float(sw.bandwidths[at - 1]), sw.bandwidths[first:], rejects[first:])
+    rejects = np.where(valid, t > np.where(valid, cv, 0.0), False)
+    return Flip(term, sweep_result.labels[c], sweep_result.axis.symbol, level, reference,
+                sweep_result.values, rejects, valid)
 
 
-def flip_summary(fit, kernel: str = "bartlett", level: float = 0.95) -> list[str]:
-    """Lines for the CLI: where each slope's conclusion flips, normal and fixed-b references."""
-    lines = ["", f"Where the conclusion flips ({kernel} kernel, b = 1..{min(fit.nobs, 100)})"]
-    sw = sweep(fit, kernels=[kernel], bandwidths=default_bandwidths(fit.nobs, 100))
+def _is_kernel(name: str) -> bool:
+    from .kernels import KERNELS
+    return name in KERNELS
+
+
+def flip_summary(model, kernel: str = "bartlett", level: float = 0.95) -> list[str]:
+    """Lines for the CLI: where each slope's conclusion changes, normal and fixed-b references."""
+    sw = sweep_kernels(model, [kernel])
+    lines = ["", f"Where the conclusion changes ({get_kernel(kernel).label} kernel, "
+                 f"b = {sw.values[0]:g}..{sw.values[-1]:g})"]
     refs = ["normal"]
-    from .fixedb import FIXED_B_KERNELS
-    if kernel in FIXED_B_KERNELS:
+    from .fixedb import available
+    if available(kernel):
         refs.append("fixed-b")
-    for term in fit.terms:
+    for term in model.terms:
         if term == "intercept":
             continue
         for ref in refs:
-            lines.append("  " + significance_flip(fit, term, kernel, level, ref,
+            lines.append("  " + significance_flip(model, term, kernel, level, ref,
                                                   sweep_result=sw).sentence())
     return lines

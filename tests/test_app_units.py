@@ -1,8 +1,8 @@
-"""App pieces without a browser: figure and table builders, the server-side store, the
-settings record, the HTML report, and `lagwise serve` from another directory."""
+"""App pieces without a browser: figure and table builders, the session store, the host check
+and security headers, settings validation, the HTML report, and `lagwise serve` from another
+directory."""
 
 import json
-import os
 import shutil
 import socket
 import subprocess
@@ -12,13 +12,13 @@ import urllib.request
 from pathlib import Path
 
 import numpy as np
-import pandas as pd
 import pytest
 
 import lagwise
 from lagwise.app import figures as F
-from lagwise.app.callbacks import make_estimator, param_values, report_html
-from lagwise.app.state import Store, key_for, owned
+from lagwise.app import views as V
+from lagwise.app.callbacks import make_estimator, param_values
+from lagwise.app.state import CapacityError, SessionError, Store
 from lagwise.engine.compare import compare
 from lagwise._files import assets_dir, demo_file
 
@@ -26,7 +26,7 @@ from lagwise._files import assets_dir, demo_file
 @pytest.fixture(scope="module")
 def fit():
     return lagwise.fit_ols(lagwise.load_table(demo_file()), "exret_12m",
-                          ["rate_capacity", "credit_spread"], horizon=12)
+                           ["rate_capacity", "credit_spread"], horizon=12)
 
 
 @pytest.fixture(scope="module")
@@ -35,13 +35,13 @@ def sweep(fit):
 
 
 def test_sensitivity_figure_traces_axes_and_marker(fit, sweep):
-    marks = [("bartlett", "andrews", 20.5)]
-    fig = F.sensitivity_figure(sweep, "rate_capacity", "t", 0.95, "normal", 13.0, "bartlett",
-                               marks)
+    marks = [(0, "Andrews (1991)", 20.5)]
+    fig = F.sensitivity_figure(sweep, "rate_capacity", "t", 0.95, "normal", 13.0, 0, marks)
     lines = {t.name: t for t in fig.data if t.mode == "lines"}
     np.testing.assert_allclose(lines["Bartlett"].y, sweep.t_stat[0, :, 1])
     np.testing.assert_allclose(lines["Parzen"].x, np.arange(1, 41.0))
-    assert lines["Bartlett"].line.width > lines["Parzen"].line.width      # current kernel
+    assert lines["Bartlett"].line.width > lines["Parzen"].line.width      # current curve
+    assert lines["Bartlett"].line.color == lagwise.get_kernel("bartlett").color
     assert fig.layout.shapes[0].x0 == 13.0                                 # patched by sliders
     hlines = sorted(s.y0 for s in fig.layout.shapes[1:])
     assert hlines == pytest.approx([-1.959964, 1.959964], abs=1e-5)
@@ -52,17 +52,44 @@ def test_sensitivity_figure_traces_axes_and_marker(fit, sweep):
 
 
 def test_sensitivity_figure_fixed_b_curve_and_modes(fit, sweep):
-    fig = F.sensitivity_figure(sweep, "rate_capacity", "t", 0.95, "fixed-b", 5.0, "parzen")
-    cv = [t for t in fig.data if t.name == "fixed-b critical value (Parzen)"][0]
+    fig = F.sensitivity_figure(sweep, "rate_capacity", "t", 0.95, "fixed-b", 5.0, 1)
+    cv = [t for t in fig.data if t.name == "critical value (Parzen)"][0]
     np.testing.assert_allclose(cv.y, sweep.critical_values(0.95, "fixed-b")[1])
     assert cv.y[-1] > cv.y[0]                                   # grows with b/T
-    se = F.sensitivity_figure(sweep, "credit_spread", "se", 0.95, "normal", 5.0, "bartlett")
+    se = F.sensitivity_figure(sweep, "credit_spread", "se", 0.95, "normal", 5.0, 0)
     np.testing.assert_allclose([t for t in se.data if t.name == "Bartlett"][0].y,
                                sweep.std_error[0, :, 2])
-    ci = F.sensitivity_figure(sweep, "credit_spread", "ci", 0.9, "normal", 5.0, "bartlett")
+    ci = F.sensitivity_figure(sweep, "credit_spread", "ci", 0.9, "normal", 5.0, 0)
     upper = [t for t in ci.data if t.name == "Bartlett upper"][0]
-    np.testing.assert_allclose(upper.y, sweep.estimate[2] + 1.6448536 * sweep.std_error[0, :, 2],
-                               rtol=1e-6)
+    np.testing.assert_allclose(upper.y, sweep.estimate[0, :, 2] + 1.6448536
+                               * sweep.std_error[0, :, 2], rtol=1e-6)
+
+
+def test_sensitivity_figure_for_ewc_and_var_axes(fit):
+    ewc = lagwise.sweep(fit, [lagwise.estimator("ewc", cosines=4)])
+    fig = F.sensitivity_figure(ewc, "rate_capacity", "t", 0.95, "auto", 22, 0)
+    assert fig.layout.xaxis.title.text == "cosine terms B"
+    crit = [t for t in fig.data if t.name == "critical value (EWC)"][0]
+    # the EWC law is t(B): the critical value falls with B
+    assert crit.y[0] > crit.y[-1] and crit.y[4] == pytest.approx(2.571, abs=1e-3)
+    var = lagwise.sweep(fit, [lagwise.estimator("var", max_order=1, criterion="fixed")])
+    fig = F.sensitivity_figure(var, "rate_capacity", "se", 0.95, "normal", 2, 0)
+    assert fig.layout.xaxis.title.text == "VAR order p"
+    assert list(fig.data[0].x) == list(var.values)
+
+
+def test_flagged_points_are_hollow_and_keep_the_axis(fit):
+    sw = fit.sweep(kernels=["truncated"], bandwidths=np.arange(1, 200.0))
+    assert (sw.status[0] == "repaired").any()
+    fig = F.sensitivity_figure(sw, "rate_capacity", "t", 0.95, "normal", 10, 0)
+    flagged = [t for t in fig.data if t.name == "Truncated: flagged points"][0]
+    assert flagged.marker.symbol == "circle-open"
+    assert "eigenvalue repair" in flagged.customdata[0]
+    line = [t for t in fig.data if t.name == "Truncated"][0]
+    assert np.isnan(np.asarray(line.y, dtype=float)[sw.status[0] != ""]).all()
+    ok = sw.t_stat[0, sw.status[0] == "", 1]
+    lo, hi = fig.layout.yaxis.range
+    assert lo <= np.percentile(ok, 1) and hi >= np.percentile(ok, 99)
 
 
 def test_interval_figure_and_comparison_records(fit):
@@ -71,20 +98,31 @@ def test_interval_figure_and_comparison_records(fit):
     rows = comp[(comp.term == "rate_capacity") & comp.std_error.notna()].iloc[::-1]
     np.testing.assert_allclose(fig.data[0].error_x.array, rows.ci_high - rows.estimate)
     assert list(fig.data[0].y) == list(rows.estimator)
-    recs = F.comparison_records(comp, "rate_capacity", current_rejects=True)
+    recs = V.comparison_records(comp, "rate_capacity", current_rejects=True)
     by = {r["estimator"]: r for r in recs}
-    assert by["HC0"]["differs"] is False and by["HC0"]["verdict"] == "rejects 0"
-    assert by["Parzen, andrews"]["differs"] is True
-    assert by["Classical (iid)"]["reference"] == "t(417)"
-    assert "MA(11)" in by["Truncated (uniform), b=12"]["note"]
+    assert by["HC0"]["differs"] is False and by["HC0"]["verdict"] == "rejected"
+    assert by["Parzen, Andrews (1991) bandwidth"]["differs"] is True
+    assert by["Parzen, Andrews (1991) bandwidth"]["verdict"] == "not rejected"
+    assert by["Classical (iid)"]["law"] == "t(417)"
+    assert "MA(11)" in by["Truncated (uniform), b = 12"]["note"]
+    assert "fewer than h - 1 = 11" in by["Bartlett, rule-of-thumb bandwidth"]["note"]
+    # numbers for sorting, text for display
+    assert isinstance(by["HC0"]["std_error"], float) and by["HC0"]["std_error_txt"] == \
+        V.fmt(by["HC0"]["std_error"])
 
 
 def test_coefficient_records_are_the_engine_numbers(fit):
     res = fit.infer(lagwise.estimator("kernel", kernel="parzen", bandwidth=9))
-    recs = F.coefficient_records(res)
+    recs = V.coefficient_records(res)
     assert [r["term"] for r in recs] == fit.terms
-    assert recs[1]["std_error"] == f"{res.table.std_error.iloc[1]:.4g}"
-    assert recs[1]["p_value"] == f"{res.table.p_value.iloc[1]:.3f}"
+    assert recs[1]["std_error_txt"] == f"{res.table.std_error.iloc[1]:.4g}"
+    assert recs[1]["p_value_txt"] == f"{res.table.p_value.iloc[1]:.3f}"
+    assert recs[1]["t_stat"] == res.table.t_stat.iloc[1]
+
+
+def test_p_values_are_never_printed_to_silly_precision():
+    assert V.fmt_p(3.6e-279) == "<0.001" and V.fmt_p(0.0123) == "0.012"
+    assert V.fmt_p(float("nan")) == ""
 
 
 def test_estimator_from_controls():
@@ -93,32 +131,84 @@ def test_estimator_from_controls():
     est = make_estimator("kernel", ["parzen", ["on"], [], []], ids, "fixed", 7)
     assert est.params == {"kernel": "parzen", "bandwidth": 7.0, "small_sample": True,
                           "repair": False, "prewhiten": False}
-    est = make_estimator("kernel", ["qs" and "quadratic_spectral", [], ["on"], []], ids,
-                         "andrews", 7)
-    assert est.params["bandwidth"] == "andrews"
-    vid = [{"type": "est-param", "name": "max_lag"}, {"type": "est-param", "name": "criterion"}]
-    assert param_values("var", ["auto", "aic"], vid) == {"max_lag": None, "criterion": "aic"}
+    est = make_estimator("kernel", ["quadratic_spectral", [], ["on"], []], ids, "andrews", 7)
+    assert est.params["bandwidth"] == "andrews" and est.rule() == "andrews"
+    family = lagwise.FAMILIES["var"]
+    vid = [{"type": "est-param", "name": "selection"}]
+    assert param_values(family, ["joint"], vid) == {"selection": "joint"}
+    est = make_estimator("var", ["joint"], vid, "fixed", 3)
+    assert est.params["max_order"] == 3 and est.params["criterion"] == "fixed"
+    est = make_estimator("ewc", [], [], "llsw", 3)
+    assert est.params["cosines"] == "llsw"
+    est = make_estimator("ewc", [], [], "fixed", 6.0)
+    assert est.params["cosines"] == 6
     with pytest.raises(lagwise.SpecificationError):
-        make_estimator("ewc", ["many"], [{"type": "est-param", "name": "terms"}], "fixed", 3)
+        make_estimator("nonsense", [], [], "fixed", 3)
 
 
-def test_store_is_bounded_and_session_scoped():
-    store = Store(max_bytes=10_000, max_entries=3)
-    for i in range(5):
-        store.put(f"s:{i}", np.zeros(100))
-    assert len(store) == 3 and store.get("s:0") is None and store.get("s:4") is not None
-    store.put("s:big", np.zeros(5000))          # 40 kB > bound: evicts everything older
-    assert store.keys() == ["s:big"]
-    key = key_for("sessionA", "data", "abc")
-    assert owned("sessionA", key) and not owned("sessionB", key) and not owned("", key)
+def test_store_budgets_are_per_session():
+    store = Store(total_bytes=180_000, session_bytes=60_000, session_entries=3, max_sessions=4)
+    a, b = store.open_session(), store.open_session()
+    store.put(a, "data", np.zeros(2000))                 # 16 kB
+    for i in range(5):                                   # b fills its own budget
+        store.put(b, f"x{i}", np.zeros(2000))
+    assert store.get(a, "data") is not None              # never evicted by another session
+    assert len(store.keys(b)) == 3 and store.was_evicted(b, "x0")
+    assert store.get(b, "data") is None and store.get("forged", "data") is None
+    with pytest.raises(SessionError):
+        store.put("not-issued", "k", np.zeros(3))
+    with pytest.raises(CapacityError):
+        store.put(a, "huge", np.zeros(20_000))           # bigger than a session may hold
+    c, d = store.open_session(), store.open_session()
+    for s in (c, d):
+        for i in range(3):
+            store.put(s, f"y{i}", np.zeros(6000))        # 48 kB each
+    with pytest.raises(CapacityError):                   # global cap: refuse, never evict a
+        store.put(a, "more", np.zeros(6000))             # live session's data
+    assert store.get(b, "x4") is not None and store.get(c, "y2") is not None
+    assert store.get(a, "data") is not None              # a refusal changes nothing
+    with pytest.raises(CapacityError):
+        store.open_session()                             # at most max_sessions
+
+
+def test_store_counts_a_fits_caches(fit):
+    store = Store()
+    s = store.open_session()
+    fresh = lagwise.fit_ols(lagwise.load_table(demo_file()), "exret_1m", ["rate_capacity"])
+    store.put(s, "fit", fresh)
+    before = store.nbytes
+    fresh.moments.ensure(fresh.nobs - 1)
+    store.refresh(s, "fit")
+    assert store.nbytes >= before + fresh.moments.nbytes
 
 
 def test_report_html_is_self_contained(fit):
     res = fit.infer(lagwise.estimator("hc1"))
     fig = F.residual_figure(fit)
-    html = report_html(fit, [fig], [F.coefficient_records(res), [], []], res.describe())
+    html = V.report_html(fit, [fig], [("Coefficients", res.table.reset_index())],
+                         res.describe(), "95% intervals")
     assert html.startswith("<!doctype html>") and "<table" in html and "HC1" in html
     assert "src=\"http" not in html and len(html) > 1_000_000      # plotly.js inlined
+
+
+def test_host_check_and_security_headers():
+    from lagwise.app.main import create_app
+    client = create_app().server.test_client()
+    ok = client.get("/", headers={"Host": "127.0.0.1:8050"})
+    assert ok.status_code == 200
+    csp = ok.headers["Content-Security-Policy"]
+    assert "default-src 'self'" in csp and "frame-ancestors 'none'" in csp
+    assert "unsafe-eval" not in csp
+    assert ok.headers["X-Content-Type-Options"] == "nosniff"
+    assert ok.headers["X-Frame-Options"] == "DENY"
+    for host in ("evil.example", "evil.example:8050", "127.0.0.1.evil.example"):
+        bad = client.get("/", headers={"Host": host})
+        assert bad.status_code == 421 and b"unknown host" in bad.data
+    assert client.get("/", headers={"Host": "localhost:8050"}).status_code == 200
+    other = create_app(host="0.0.0.0", allowed_hosts=["analysis-box"]).server.test_client()
+    assert other.get("/", headers={"Host": "analysis-box:8050"}).status_code == 200
+    assert b"reachable by others" in other.get(
+        "/_dash-layout", headers={"Host": "analysis-box"}).data
 
 
 def _free_port():
@@ -132,9 +222,8 @@ def test_serve_from_another_directory_finds_css_and_demo(tmp_path):
     checkout serves the page, its CSS and the bundled demo data; bound to 127.0.0.1."""
     script = shutil.which("lagwise", path=str(Path(sys.executable).parent))
     cmd = [script] if script else [sys.executable, "-m", "lagwise.app.cli"]
-    env = dict(os.environ)
     port = _free_port()
-    proc = subprocess.Popen(cmd + ["serve", "--port", str(port)], cwd=tmp_path, env=env,
+    proc = subprocess.Popen(cmd + ["serve", "--port", str(port)], cwd=tmp_path,
                             stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
     try:
         body = None
@@ -163,7 +252,7 @@ def test_create_app_with_settings_file(tmp_path):
     from lagwise.app.main import create_app
     from lagwise.engine.export import load_settings, settings_json
     record = {"response": "exret_1m", "regressors": ["credit_spread"], "estimator": "ewc",
-              "params": {"terms": 12}, "rule": "fixed", "level": 0.9}
+              "params": {"cosines": 12}, "rule": "fixed", "level": 0.9}
     path = tmp_path / "s.json"
     path.write_text(settings_json(record))
     settings = load_settings(path.read_text())
@@ -176,17 +265,15 @@ def test_create_app_with_settings_file(tmp_path):
     assert args.settings == str(path) and args.host == "127.0.0.1" and not args.debug
 
 
-def test_differs_style_shades_exactly_the_differing_rows(fit):
-    recs = F.comparison_records(compare(fit), "rate_capacity", current_rejects=True)
-    style = F.differs_style(recs)
-    rows = style[0]["if"]["row_index"]
-    assert rows == [i for i, r in enumerate(recs) if r["verdict"] == "keeps 0"]
-    assert F.differs_style([{"differs": False}]) == []
+def test_differs_style_is_a_neutral_rule():
+    cond = V.DIFFERS_STYLE["styleConditions"][0]
+    assert cond["condition"] == "params.data.differs"
+    assert cond["style"]["backgroundColor"] not in ("#e3f1ee", "#fbeee4")   # no verdict colours
 
 
-def test_store_counts_a_fits_caches(fit):
-    from lagwise.app.state import _size
-    fresh = lagwise.fit_ols(lagwise.load_table(demo_file()), "exret_1m", ["rate_capacity"])
-    before = _size(fresh)
-    fresh.moments.ensure(fresh.nobs - 1)
-    assert _size(fresh) >= before + fresh.moments._packed.nbytes
+def test_clipboard_text_is_what_the_table_shows(fit):
+    res = fit.infer(lagwise.estimator("hc1"))
+    text = V.tsv(V.coefficient_records(res), V.COEF_COLUMNS)
+    lines = text.splitlines()
+    assert lines[0].split("\t")[:3] == ["term", "estimate", "std. error"]
+    assert lines[2].split("\t")[2] == V.fmt(res.table.std_error.iloc[1])

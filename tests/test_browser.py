@@ -2,14 +2,14 @@
 
 Skipped locally without chromium; CI sets LAGWISE_REQUIRE_BROWSER=1 so they fail instead."""
 
-import re
+import json
 from pathlib import Path
 
 import pytest
 from playwright.sync_api import Page, expect
 
 import lagwise
-from lagwise.app.figures import fmt
+from lagwise.app.views import fmt
 from lagwise._files import demo_file
 
 pytestmark = pytest.mark.browser
@@ -26,8 +26,12 @@ def card(page: Page, inner_id: str):
     return page.locator("section.lw-card", has=page.locator(f"#{inner_id}"))
 
 
+def cells(page: Page, grid: str, col: str):
+    return page.locator(f"#{grid} .ag-center-cols-container [col-id='{col}']")
+
+
 def se_cell(page: Page, term_index: int):
-    return page.locator("#coef-table td[data-dash-column='std_error']").nth(term_index)
+    return cells(page, "coef-table", "std_error").nth(term_index)
 
 
 def engine_se(response, regs, term, **est):
@@ -39,8 +43,7 @@ def open_app(page: Page, url: str):
     errors = []
     page.on("console", lambda m: errors.append(m.text) if m.type == "error" else None)
     page.goto(url)
-    expect(page.locator("#coef-table td[data-dash-column='term']").first).to_have_text(
-        "intercept", timeout=30_000)
+    expect(cells(page, "coef-table", "term").first).to_have_text("intercept", timeout=30_000)
     return errors
 
 
@@ -55,45 +58,73 @@ def test_upload_model_slider_rule(page: Page, live_server):
                                                            timeout=20_000)
     choose(page, "response", "exret_36m")
     choose(page, "regressors", "credit_spread")          # toggles it off: rate_capacity only
-    expect(page.locator("#coef-table td[data-dash-column='term']")).to_have_text(
-        ["intercept", "rate_capacity"], timeout=20_000)
-    expect(se_cell(page, 1)).to_have_text(
-        engine_se("exret_36m", ["rate_capacity"], "rate_capacity", kernel="bartlett",
-                  bandwidth=13.0), timeout=20_000)
-    # keyboard on the slider: b = 13 -> 15
-    thumb = page.locator("#bw-slider [role=slider]")
-    thumb.focus()
-    page.keyboard.press("ArrowRight")
-    page.keyboard.press("ArrowRight")
-    expect(thumb).to_have_attribute("aria-valuenow", "15")
-    expect(se_cell(page, 1)).to_have_text(
-        engine_se("exret_36m", ["rate_capacity"], "rate_capacity", kernel="bartlett",
-                  bandwidth=15.0), timeout=20_000)
-    expect(page.locator("#bw-text")).to_contain_text("b = 15 · 14 lags used")
-    # the sensitivity chart's marker sits on the new bandwidth
-    page.wait_for_function(
-        "() => document.getElementById('sens-graph').querySelector('.js-plotly-plot')"
-        ".layout.shapes[0].x0 === 15")
-    # switch the bandwidth rule to Andrews: the slider jumps to where the rule landed
-    choose(page, "bw-rule", "Andrews (1991)")
+    expect(cells(page, "coef-table", "term")).to_have_text(["intercept", "rate_capacity"],
+                                                           timeout=20_000)
+    # the page opens on a named automatic rule (Andrews), and the slider shows where it landed
     fit = lagwise.fit_ols(lagwise.load_table(DEMO), "exret_36m", ["rate_capacity"])
     b = lagwise.select_bandwidth(fit, "bartlett", "andrews").b
+    thumb = page.locator("#tune-slider [role=slider]")
     expect(thumb).to_have_attribute("aria-valuenow", str(int(round(b))), timeout=20_000)
     expect(se_cell(page, 1)).to_have_text(
         engine_se("exret_36m", ["rate_capacity"], "rate_capacity", kernel="bartlett",
                   bandwidth="andrews"), timeout=20_000)
-    expect(page.locator("#bw-text")).to_contain_text("Andrews (1991)")
+    expect(page.locator("#headline")).to_contain_text("value chosen by Andrews (1991)")
+    # keyboard on the slider: two steps up, now a value set by hand
+    landed = int(round(b))
+    thumb.focus()
+    page.keyboard.press("ArrowRight")
+    page.keyboard.press("ArrowRight")
+    expect(thumb).to_have_attribute("aria-valuenow", str(landed + 2))
+    expect(se_cell(page, 1)).to_have_text(
+        engine_se("exret_36m", ["rate_capacity"], "rate_capacity", kernel="bartlett",
+                  bandwidth=float(landed + 2)), timeout=20_000)
+    expect(page.locator("#tune-text")).to_contain_text(f"b = {landed + 2} · {landed + 1} lags")
+    expect(page.locator("#tune-rule")).to_contain_text("set by hand")
+    page.wait_for_function(
+        "(v) => document.getElementById('sens-graph').querySelector('.js-plotly-plot')"
+        ".layout.shapes[0].x0 === v", arg=landed + 2)
+    # back to a rule: the slider jumps to where it lands
+    choose(page, "tune-rule", "rule-of-thumb")
+    rot = lagwise.select_bandwidth(fit, "bartlett", "rule-of-thumb").b
+    expect(thumb).to_have_attribute("aria-valuenow", str(int(rot)), timeout=20_000)
+    assert not [e for e in errors if "Error" in e or "Content Security Policy" in e], errors
+
+
+def test_every_family_with_an_axis_drives_the_slider(page: Page, live_server):
+    errors = open_app(page, live_server)
+    choose(page, "est-name", "Equal-weighted cosine (EWC)")
+    expect(page.locator("#tune-title")).to_have_text("cosine terms B", timeout=20_000)
+    fit = lagwise.fit_ols(lagwise.load_table(DEMO), "exret_12m", ["rate_capacity",
+                                                                   "credit_spread"], horizon=12)
+    thumb = page.locator("#tune-slider [role=slider]")
+    expect(thumb).to_have_attribute("aria-valuenow", "22", timeout=20_000)     # LLSW rule
+    thumb.focus()
+    page.keyboard.press("ArrowLeft")
+    expect(thumb).to_have_attribute("aria-valuenow", "21")
+    res = fit.infer(lagwise.estimator("ewc", cosines=21))
+    expect(se_cell(page, 1)).to_have_text(fmt(res.table.std_error.iloc[1]), timeout=20_000)
+    expect(page.locator("#coef-caption")).to_contain_text("Student t with 21 df")
+    page.wait_for_function(
+        "() => document.getElementById('sens-graph').querySelector('.js-plotly-plot')"
+        ".layout.xaxis.title.text === 'cosine terms B'")
+    choose(page, "est-name", "Parametric VAR (VAR-HAC)")
+    expect(page.locator("#tune-title")).to_have_text("VAR order p", timeout=20_000)
+    choose(page, "est-name", "Heteroskedasticity-robust (HC)")
+    expect(page.locator("#tune-title")).to_have_text("no tuning value", timeout=20_000)
+    expect(se_cell(page, 1)).to_have_text(fmt(fit.infer("hc1").table.std_error.iloc[1]),
+                                          timeout=20_000)
     assert not [e for e in errors if "Error" in e], errors
 
 
 def test_exports_chart_and_table(page: Page, live_server, tmp_path):
     open_app(page, live_server)
     # the comparison shades the estimators whose conclusion differs from the current one
-    # (demo default: Bartlett b = 13 rejects; the plug-in bandwidths do not)
-    expect(page.locator("#compare-table td[data-dash-column='verdict']").first).to_be_visible(
-        timeout=30_000)
-    shaded = page.locator("#compare-table td[data-dash-column='verdict'][style*='251, 238, 228']")
-    expect(shaded.first).to_have_text("keeps 0", timeout=20_000)
+    # (demo default: Bartlett with the Andrews bandwidth does not reject; HC does)
+    verdicts = cells(page, "compare-table", "verdict")
+    expect(verdicts.first).to_be_visible(timeout=30_000)
+    shaded = page.locator("#compare-table .ag-center-cols-container .ag-row"
+                          "[style*='236, 234, 227'] [col-id='verdict']")
+    expect(shaded.first).to_have_text("rejected", timeout=20_000)
     expect(page.locator("#sens-graph .js-plotly-plot")).to_be_visible(timeout=30_000)
     page.wait_for_timeout(1500)
     magic = {"PNG": b"\x89PNG", "SVG": b"<svg", "PDF": b"%PDF"}
@@ -109,10 +140,17 @@ def test_exports_chart_and_table(page: Page, live_server, tmp_path):
         card(page, "coef-table").locator("button", has_text="LATEX").click()
     tex = Path(info.value.path()).read_text()
     assert "\\begin{tabular}" in tex and "rate\\_capacity" in tex
+    assert "95\\% confidence intervals" in tex and "reference law" in tex
+    with page.expect_download(timeout=30_000) as info:
+        card(page, "coef-table").locator("button", has_text="CSV").click()
+    csv_text = Path(info.value.path()).read_text()
+    row = [ln for ln in csv_text.splitlines() if ln.startswith("rate_capacity,")][0]
+    assert row.split(",")[1].startswith("-23.7")          # a number, not text
+    assert csv_text.startswith("# ") and "reference law" in csv_text.splitlines()[1]
     with page.expect_download(timeout=30_000) as info:
         card(page, "compare-table").locator("button", has_text="CSV").click()
     csv_text = Path(info.value.path()).read_text()
-    assert csv_text.startswith("estimator,") and "HC3" in csv_text
+    assert "estimator," in csv_text and "HC3" in csv_text
     with page.expect_download(timeout=60_000) as info:
         page.locator("#export-report").click()
     report = Path(info.value.path()).read_text()
@@ -127,8 +165,7 @@ def test_malformed_upload_then_good_file(page: Page, live_server):
                   "buffer": b"name,city\nann,oslo\nbo,rome\n"})
     expect(page.locator("#upload-message .lw-error")).to_contain_text("no numeric columns")
     # the app stays usable: the results still show and a good file loads
-    expect(page.locator("#coef-table td[data-dash-column='term']").first).to_have_text(
-        "intercept")
+    expect(cells(page, "coef-table", "term").first).to_have_text("intercept")
     upload(page, DEMO)
     expect(page.locator("#upload-message .lw-ok")).to_contain_text("loaded freight_index.csv",
                                                                    timeout=20_000)
@@ -143,10 +180,11 @@ def test_sessions_are_isolated(browser, live_server):
     upload(b, {"name": "other.csv", "mimeType": "text/csv",
                "buffer": ("alpha,beta,gamma\n" + rows + "\n").encode()})
     expect(b.locator("#upload-message")).to_contain_text("loaded other.csv", timeout=20_000)
-    expect(b.locator("#coef-table td[data-dash-column='term']")).to_have_text(
-        ["intercept", "beta"], timeout=20_000)
+    expect(cells(b, "coef-table", "term")).to_have_text(["intercept", "beta"], timeout=20_000)
+    # the new file does not inherit the demo's overlap horizon
+    expect(b.locator("#horizon")).to_have_value("")
     # session A still sees the demo model and none of B's columns
-    expect(a.locator("#coef-table td[data-dash-column='term']")).to_have_text(
+    expect(cells(a, "coef-table", "term")).to_have_text(
         ["intercept", "rate_capacity", "credit_spread"])
     a.locator("#response").click()
     expect(a.get_by_role("option", name="alpha", exact=True)).to_have_count(0)
@@ -156,32 +194,37 @@ def test_sessions_are_isolated(browser, live_server):
 
 
 def test_settings_save_and_load(page: Page, live_server, tmp_path):
-    import json
     open_app(page, live_server)
     with page.expect_download(timeout=30_000) as info:
         page.locator("#save-settings").click()
     saved = json.loads(Path(info.value.path()).read_text())
-    assert saved["lagwise_settings"] == 1 and saved["estimator"] == "kernel"
+    assert saved["lagwise_settings"] == 2 and saved["estimator"] == "kernel"
     assert saved["response"] == "exret_12m" and saved["params"]["kernel"] == "bartlett"
-    saved.update({"rule": "fixed", "bandwidth": 30, "level": 0.99,
+    assert saved["rule"] == "andrews"
+    saved.update({"rule": "fixed", "value": 30, "level": 0.99,
                   "params": {**saved["params"], "kernel": "parzen"}})
     path = tmp_path / "mine.json"
     path.write_text(json.dumps(saved))
     page.locator("#load-settings input[type=file]").set_input_files(path)
     expect(page.locator("#settings-message")).to_contain_text("settings applied",
                                                               timeout=20_000)
-    expect(page.locator("#bw-slider [role=slider]")).to_have_attribute("aria-valuenow", "30")
+    expect(page.locator("#tune-slider [role=slider]")).to_have_attribute("aria-valuenow", "30")
     expect(page.locator("#coef-caption")).to_contain_text("Parzen, b = 30", timeout=20_000)
-    expect(page.locator("#coef-table td[data-dash-column='interval']").nth(1)).to_be_visible()
-    fit = lagwise.fit_ols(lagwise.load_table(DEMO), "exret_12m", ["rate_capacity", "credit_spread"])
+    fit = lagwise.fit_ols(lagwise.load_table(DEMO), "exret_12m", ["rate_capacity",
+                                                                   "credit_spread"])
     res = fit.infer(lagwise.estimator("kernel", kernel="parzen", bandwidth=30.0), level=0.99)
     lo = fmt(res.table.loc["rate_capacity", "ci_low"])
-    expect(page.locator("#coef-table td[data-dash-column='interval']").nth(1)).to_contain_text(lo)
-    # a file that is not a settings record gives a message, not a crash
+    expect(cells(page, "coef-table", "interval").nth(1)).to_contain_text(lo)
+    # a file that is not a settings record gives one message and changes nothing
     bad = tmp_path / "bad.json"
     bad.write_text('{"hello": 1}')
     page.locator("#load-settings input[type=file]").set_input_files(bad)
     expect(page.locator("#settings-message .lw-error")).to_contain_text("not a Lagwise settings")
+    wrong = tmp_path / "wrong.json"
+    wrong.write_text(json.dumps({**saved, "estimator": "kernel", "params": {"kernel": "zzz"}}))
+    page.locator("#load-settings input[type=file]").set_input_files(wrong)
+    expect(page.locator("#settings-message .lw-error")).to_contain_text("nothing was changed")
+    expect(page.locator("#coef-caption")).to_contain_text("Parzen, b = 30")
 
 
 def test_oversized_file_gets_a_message(page: Page, live_server):
@@ -192,12 +235,13 @@ def test_oversized_file_gets_a_message(page: Page, live_server):
     expect(page.locator("#upload-limit-note")).to_contain_text("the limit is 25 MB",
                                                                timeout=20_000)
     # nothing was loaded: the demo model is still there
-    expect(page.locator("#coef-table td[data-dash-column='term']")).to_have_text(
+    expect(cells(page, "coef-table", "term")).to_have_text(
         ["intercept", "rate_capacity", "credit_spread"])
 
 
-def test_settings_replay_transforms(page: Page, live_server, tmp_path):
-    import json
+def test_old_settings_replay_transforms(page: Page, live_server, tmp_path):
+    """A settings file written by an earlier version (old transform and column names) still
+    replays its transforms and model."""
     open_app(page, live_server)
     record = {"lagwise_settings": 1, "transforms": [["fsum", "exret_1m", 12]],
               "response": "fsum12(exret_1m)", "regressors": ["rate_capacity"],
@@ -207,10 +251,11 @@ def test_settings_replay_transforms(page: Page, live_server, tmp_path):
     path = tmp_path / "transformed.json"
     path.write_text(json.dumps(record))
     page.locator("#load-settings input[type=file]").set_input_files(path)
-    expect(page.locator("#response")).to_contain_text("fsum12(exret_1m)", timeout=20_000)
-    expect(page.locator("#coef-table td[data-dash-column='term']")).to_have_text(
-        ["intercept", "rate_capacity"], timeout=20_000)
-    table, y = lagwise.load_table(DEMO).with_transform("fsum", "exret_1m", 12)
+    expect(page.locator("#response")).to_contain_text("exret_1m, sum of next 12",
+                                                      timeout=20_000)
+    expect(cells(page, "coef-table", "term")).to_have_text(["intercept", "rate_capacity"],
+                                                           timeout=20_000)
+    table, y = lagwise.load_table(DEMO).with_transform("sum-next", "exret_1m", 12)
     fit = lagwise.fit_ols(table, y, ["rate_capacity"])
     se = fit.infer(lagwise.estimator("kernel", kernel="bartlett", bandwidth=12.0)).table
     expect(se_cell(page, 1)).to_have_text(fmt(se.loc["rate_capacity", "std_error"]),

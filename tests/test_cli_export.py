@@ -26,7 +26,7 @@ def test_table_command_prints_comparison(capsys):
     se = fit.infer("hc1").table.loc["rate_capacity", "std_error"]
     assert f"{se:.4g}" in out
     # overlapping response: truncated with L = h - 1 = 11 lags and Bartlett with L = h = 12
-    assert "Truncated (uniform), b=12" in out and "Bartlett (Newey-West), b=13" in out
+    assert "Truncated (uniform), b = 12" in out and "Bartlett, b = 13" in out
 
 
 @pytest.mark.parametrize("fmt,marker", [("csv", "term,estimator"), ("markdown", "| term |"),
@@ -41,8 +41,8 @@ def test_table_command_formats(tmp_path, fmt, marker):
 
 
 def test_table_command_transform_and_errors(capsys):
-    rc = main(["table", DEMO, "--response", "fsum12(exret_1m)", "--regressors", "rate_capacity",
-               "--transform", "fsum:exret_1m:12"])
+    rc = main(["table", DEMO, "--response", "exret_1m, sum of next 12", "--regressors",
+               "rate_capacity", "--transform", "sum-next:exret_1m:12"])
     out = capsys.readouterr().out
     assert rc == 0 and "overlapping 12-period response" in out
     rc = main(["table", DEMO, "--response", "exret_1m", "--regressors", "nope"])

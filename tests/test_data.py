@@ -89,20 +89,40 @@ def test_missing_path():
 
 def test_transforms_values_and_names():
     t = load("y,x\n1,1\n2,2\n4,4\n8,8\n16,16\n")
-    t2, name = t.with_transform("fsum", "y", 2)
-    assert name == "fsum2(y)" and t2.horizons[name] == 2
+    t2, name = t.with_transform("sum-next", "y", 2)
+    assert name == "y, sum of next 2" and t2.horizons[name] == 2
     np.testing.assert_allclose(t2.frame[name].to_numpy()[:3], [6, 12, 24])
     assert t2.frame[name].isna().sum() == 2
     _, lag = lagwise.transform(t.frame, "lag", "y", 1)[:2]
     np.testing.assert_allclose(lag.to_numpy()[1:], [1, 2, 4, 8])
     _, lead = lagwise.transform(t.frame, "lead", "y", 2)[:2]
     np.testing.assert_allclose(lead.to_numpy()[:3], [4, 8, 16])
-    _, d = lagwise.transform(t.frame, "diff", "y")[:2]
+    name, d = lagwise.transform(t.frame, "difference", "y")[:2]
     np.testing.assert_allclose(d.to_numpy()[1:], [1, 2, 4, 8])
-    _, dl = lagwise.transform(t.frame, "dlog", "y")[:2]
+    assert name == "y, difference"
+    name, dl = lagwise.transform(t.frame, "log-difference", "y")[:2]
     np.testing.assert_allclose(dl.to_numpy()[1:], np.log(2))
-    _, lg = lagwise.transform(t.frame, "log", "y")[:2]
+    assert name == "y, log difference"
+    name, lg = lagwise.transform(t.frame, "log", "y")[:2]
     np.testing.assert_allclose(lg.to_numpy(), np.log([1, 2, 4, 8, 16]))
+    assert name == "log y"
+    assert lagwise.transform(t.frame, "lag", "y", 3)[0] == "y, lag 3"
+
+
+def test_old_transform_names_still_work():
+    """Earlier versions named transforms diff, dlog, fsum and columns like fsum12(x): settings
+    files and scripts using them keep working through a mapping."""
+    from lagwise.engine.data import current_column_name
+    t = load("y,x\n1,1\n2,2\n4,4\n8,8\n16,16\n")
+    for old, new in (("diff", "difference"), ("dlog", "log-difference"), ("fsum", "sum-next")):
+        a = lagwise.transform(t.frame, old, "y", 2)
+        b = lagwise.transform(t.frame, new, "y", 2)
+        assert a[0] == b[0]
+        np.testing.assert_allclose(a[1].to_numpy(), b[1].to_numpy())
+    assert current_column_name("fsum12(exret_1m)") == "exret_1m, sum of next 12"
+    assert current_column_name("lag1(x)") == "x, lag 1"
+    assert current_column_name("dlog(p)") == "p, log difference"
+    assert current_column_name("plain") == "plain"
 
 
 def test_transform_errors_name_the_problem():
@@ -206,8 +226,10 @@ def test_bad_estimator_settings_are_typed():
         lagwise.estimator("kernel", lag=3)
     with pytest.raises(SpecificationError, match="lags must be a whole number"):
         lagwise.estimator("kernel", lags=-1)
-    with pytest.raises(SpecificationError, match="takes no parameters"):
+    with pytest.raises(SpecificationError, match="no parameter 'bandwidth'"):
         lagwise.estimator("hc0", bandwidth=3)
+    with pytest.raises(SpecificationError, match="takes no parameters"):
+        lagwise.estimator("classical", bandwidth=3)
 
 
 def test_leverage_one_flagged_not_nan():
@@ -227,9 +249,9 @@ def test_transforms_are_recorded_and_replayable():
     t = load("y,x\n1,1\n2,2\n4,4\n8,8\n16,16\n")
     t2, _ = t.with_transform("lag", "x", 1)
     t3, name = t2.with_transform("fsum", "y", 2)
-    assert t3.transforms == [("lag", "x", 1), ("fsum", "y", 2)]
+    assert t3.transforms == [("lag", "x", 1), ("sum-next", "y", 2)]
     other = load("y,x\n3,1\n1,2\n4,0\n1,5\n5,9\n")
     replayed = other.replay(t3.transforms)
-    assert {"lag1(x)", "fsum2(y)"} <= set(replayed.frame.columns)
-    assert replayed.horizons == {"fsum2(y)": 2}
+    assert {"x, lag 1", "y, sum of next 2"} <= set(replayed.frame.columns)
+    assert replayed.horizons == {"y, sum of next 2": 2}
     assert replayed.replay(t3.transforms).frame.shape == replayed.frame.shape   # idempotent

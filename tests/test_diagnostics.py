@@ -75,9 +75,11 @@ def test_against_textbook_formulas(fit, report):
     assert stat(report, "Durbin-Watson").statistic == pytest.approx(dw, rel=1e-12)
 
 
-def test_every_statistic_states_null_and_convention(report):
+def test_every_statistic_states_null_and_method(report):
     assert report.tests.null.str.len().min() > 5
-    assert report.tests.convention.str.len().min() > 5
+    assert report.tests["method"].str.len().min() > 5
+    for name in ("statsmodels", "acorr_", "het_", "robust=", "interaction_terms"):
+        assert not report.tests["method"].str.contains(name).any(), name
     assert "Bartlett" in report.bands["acf"] and "1.96" in report.bands["pacf"]
     assert any("evidence" in line for line in report.reading)
 

@@ -44,7 +44,7 @@ def test_andrews_constants_match_published_values():
         k = lagwise.get_kernel(name)
         assert k.andrews_constant == pytest.approx(c, abs=5e-5), name
         upper = 1.0 if k.finite_support else np.inf
-        integral = 2 * quad(lambda x: float(k.function(np.array([x]))[0]) ** 2, 0, upper,
+        integral = 2 * quad(lambda x: float(k.weight(np.array([x]))[0]) ** 2, 0, upper,
                             limit=400)[0]
         assert integral == pytest.approx(k.integral_k2, rel=1e-5), name
 
@@ -57,7 +57,7 @@ def test_rules_of_thumb_and_explanations():
     assert select_bandwidth(fit, "bartlett", "textbook").b == pytest.approx(0.75 * 500 ** (1 / 3))
     assert select_bandwidth(fit, "bartlett", "llsw").b == pytest.approx(1.3 * 500**0.5)
     res = fit.infer(lagwise.estimator("kernel", kernel="parzen", bandwidth="andrews"))
-    assert "Andrews (1991)" in res.long_run.rule and res.bandwidth > 1
+    assert "Andrews (1991)" in res.long_run.how and res.bandwidth > 1
 
 
 def test_andrews_caps_rho_and_flags_it():
@@ -85,7 +85,7 @@ def test_prewhitening_recovers_known_long_run_variance():
     est = lagwise.estimator("kernel", kernel="quadratic_spectral", bandwidth="andrews",
                            prewhiten=True)
     lr = est.long_run(fit)
-    s = fit.long_run_original_basis(lr.S)[0, 0]
+    s = fit.to_original(lr.S)[0, 0]
     assert s == pytest.approx(1 / 0.3**2, rel=0.10)
     assert "prewhitened" in lr.notes[0] and "prewhitening_capped" not in lr.flags
 
@@ -101,7 +101,7 @@ def test_prewhitening_two_scores():
     fit = lagwise.fit_ols(pd.DataFrame({"y": 1 + x + e, "x": x}), "y", ["x"])
     lr = lagwise.estimator("kernel", kernel="bartlett", bandwidth="andrews",
                           prewhiten=True).long_run(fit)
-    s = fit.long_run_original_basis(lr.S)
+    s = fit.to_original(lr.S)
     assert s[1, 1] == pytest.approx((1 + 0.48) / (1 - 0.48), rel=0.12)
     assert s[0, 0] == pytest.approx(1 / 0.4**2 * 0.64, rel=0.12)   # e: sigma^2/(1-rho)^2
 
@@ -124,9 +124,9 @@ def test_var_fixed_order_matches_statsmodels_var():
     statsmodels' long_run_effects() is (I - sum A)^-1 and sigma_u_mle divides by T - p."""
     from statsmodels.tsa.api import VAR
     fit = lagwise.fit_ols(regression_frame(seed=4, n=400, k=2, rho_e=0.6), "y", ["x1", "x2"])
-    lr = lagwise.estimator("var", max_lag=2, criterion="fixed").long_run(fit)
-    ours = fit.long_run_original_basis(lr.S)
-    res = VAR(fit.raw_scores).fit(2, trend="n")
+    lr = lagwise.estimator("var", max_order=2, criterion="fixed").long_run(fit)
+    ours = fit.to_original(lr.S)
+    res = VAR(fit.contributions).fit(2, trend="n")
     lre = res.long_run_effects()
     theirs = lre @ res.sigma_u_mle @ lre.T
     np.testing.assert_allclose(ours, theirs, rtol=1e-8)
@@ -137,8 +137,8 @@ def test_var_bic_selects_order_and_flags_nonstationary():
     e = ar1(rng, 2000, 0.5)
     fit = lagwise.fit_ols(pd.DataFrame({"y": e}), "y", [])
     lr = lagwise.estimator("var", criterion="bic").long_run(fit)
-    assert "intercept 1" in lr.rule                       # AR(1) data: BIC picks order 1
-    s = fit.long_run_original_basis(lr.S)[0, 0]
+    assert "intercept 1" in lr.how                       # AR(1) data: BIC picks order 1
+    s = fit.to_original(lr.S)[0, 0]
     assert s == pytest.approx(1 / 0.25, rel=0.15)
     explosive = np.empty(300)
     explosive[0] = 1.0
@@ -146,7 +146,7 @@ def test_var_bic_selects_order_and_flags_nonstationary():
         explosive[t] = 1.03 * explosive[t - 1] + rng.standard_normal()
     fit2 = lagwise.fit_ols(pd.DataFrame({"y": explosive}), "y", [])
     with pytest.raises(lagwise.EstimationError, match="non-stationary|root"):
-        fit2.infer(lagwise.estimator("var", max_lag=1, criterion="fixed"))
+        fit2.infer(lagwise.estimator("var", max_order=1, criterion="fixed"))
 
 
 # ----------------------------------------------------------------- EWC
@@ -158,14 +158,14 @@ def test_ewc_t_statistic_is_exactly_student_t_b():
     critical value would reject about 10% of the time."""
     rng = np.random.default_rng(12)
     big_b, reps, n = 6, 4000, 64
-    est = lagwise.estimator("ewc", terms=big_b)
+    est = lagwise.estimator("ewc", cosines=big_b)
     tvals = np.empty(reps)
     for r in range(reps):
         fit = lagwise.fit_ols(pd.DataFrame({"y": rng.standard_normal(n)}), "y", [])
         res = fit.infer(est)
         tvals[r] = res.table.t_stat.iloc[0]
         if r == 0:
-            assert res.reference == "ewc-t" and res.df == big_b
+            assert isinstance(res.law, lagwise.EWCLaw) and res.df == big_b
     rate = np.mean(np.abs(tvals) > stats.t.ppf(0.975, big_b))
     assert abs(rate - 0.05) < 4 * np.sqrt(0.05 * 0.95 / reps)
     assert np.mean(np.abs(tvals) > 1.96) > 0.08
@@ -173,13 +173,13 @@ def test_ewc_t_statistic_is_exactly_student_t_b():
 
 def test_ewc_wald_uses_hotelling_f():
     fit = lagwise.fit_ols(regression_frame(seed=2, n=300), "y", ["x1", "x2"])
-    res = fit.infer(lagwise.estimator("ewc", terms=10))
+    res = fit.infer(lagwise.estimator("ewc", cosines=10))
     w = res.wald(["x1", "x2"])
     assert w.f_df == (2, 9)
     assert w.f_statistic == pytest.approx((10 - 2 + 1) / (10 * 2) * w.statistic)
     assert w.p_value == pytest.approx(stats.f.sf(w.f_statistic, 2, 9))
     with pytest.raises(lagwise.SpecificationError, match="B >= m"):
-        fit.infer(lagwise.estimator("ewc", terms=1)).wald(["x1", "x2"])
+        fit.infer(lagwise.estimator("ewc", cosines=1)).wald(["x1", "x2"])
 
 
 def test_ewc_llsw_rule():
@@ -268,11 +268,11 @@ def test_overlapping_response_offers_the_right_family():
     comp = compare(fit)
     rows = comp[comp.term == "rate_capacity"]
     labels = list(rows.estimator)
-    assert "Truncated (uniform), b=12" in labels                  # L = h - 1 = 11
-    assert "Bartlett (Newey-West), b=13" in labels                # L = h = 12
-    assert "Bartlett (Newey-West), b=13, fixed-b" in labels
-    assert any(lab.startswith("EWC") for lab in labels)
-    why = rows[rows.estimator == "Truncated (uniform), b=12"].why.iloc[0]
+    assert "Truncated (uniform), b = 12" in labels                # L = h - 1 = 11
+    assert "Bartlett, b = 13" in labels                           # L = h = 12
+    assert "Bartlett, b = 13, fixed-b" in labels
+    assert any(lab.startswith("EWC, B = 22") for lab in labels)
+    why = rows[rows.estimator == "Truncated (uniform), b = 12"].why.iloc[0]
     assert "MA(11)" in why
 
 
@@ -286,7 +286,7 @@ def test_significance_flip_agrees_with_infer():
                                        bandwidth=flip.flip_bandwidth))
     assert before.table.loc["rate_capacity", "p_value"] < 0.05
     assert after.table.loc["rate_capacity", "p_value"] >= 0.05
-    assert "flips at b =" in flip.sentence()
+    assert "not rejected for b from" in flip.sentence()
 
 
 def test_cli_lists_new_estimators_and_flip(capsys):
@@ -296,7 +296,8 @@ def test_cli_lists_new_estimators_and_flip(capsys):
                "rate_capacity", "--horizon", "12"])
     out = capsys.readouterr().out
     assert rc == 0
-    for label in ("VAR-HAC, BIC", "VAR(1) fixed", "EWC, B: llsw", "fixed-b", "flips at b ="):
+    for label in ("VAR-HAC, order by BIC", "VAR(1) correction", "EWC, B = 22", "fixed-b",
+                  "the conclusion changes"):
         assert label in out, label
 
 
@@ -320,5 +321,6 @@ def test_comparison_under_fixed_b_keeps_other_laws():
     assert np.isfinite(rows.loc["HC0", "std_error"])
     assert rows.loc["HC0", "reference"].startswith("standard normal")
     assert "fixed-b not defined" in rows.loc["HC0", "why"]
-    assert rows.loc["Parzen, andrews", "reference"].startswith("fixed-b")
-    assert rows.loc["Tukey-Hanning, andrews", "reference"].startswith("standard normal")
+    assert rows.loc["Parzen, Andrews (1991) bandwidth", "reference"].startswith("fixed-b")
+    assert rows.loc["Tukey-Hanning, Andrews (1991) bandwidth",
+                    "reference"].startswith("standard normal")

@@ -20,7 +20,7 @@ def fit():
 
 def ours_long_run(fit, kernel, b):
     est = lagwise.estimator("kernel", kernel=kernel, bandwidth=b, repair=False)
-    return fit.long_run_original_basis(est.long_run(fit).S)
+    return fit.to_original(est.long_run(fit).S)
 
 
 # integer H only: for a non-integer H arch stops at lag floor(H) although k(j/(H+1)) > 0 up to
@@ -33,7 +33,7 @@ def ours_long_run(fit, kernel, b):
     ("quadratic_spectral", ak.QuadraticSpectral, 0.0),
 ])
 def test_long_run_matches_arch(fit, h, name, cls, shift):
-    theirs = cls(fit.raw_scores, bandwidth=h, center=False, df_adjust=0).cov.long_run
+    theirs = cls(fit.contributions, bandwidth=h, center=False, df_adjust=0).cov.long_run
     np.testing.assert_allclose(ours_long_run(fit, name, h + shift), theirs, rtol=1e-9,
                                atol=1e-12 * np.abs(theirs).max())
 

@@ -1,0 +1,223 @@
+"""Downloads: charts (PNG, SVG, PDF through kaleido), tables (CSV, Markdown, LaTeX, built from the
+engine's numbers, never from the formatted screen), the HTML report, and settings files."""
+
+from __future__ import annotations
+
+import base64
+import threading
+import warnings
+
+import plotly.graph_objects as go
+from dash import ALL, Input, Output, State, ctx, no_update
+
+from .. import engine
+from ..engine.export import (FORMATS, SETTINGS_VERSION, load_settings, render,
+                             settings_json)
+from . import views as V
+from .callbacks import (comparison_for, diagnostics_for, make_estimator, param_values, stored)
+from .layout import CHART_FORMATS
+from .state import STORE, key_for, spec_hash
+
+CALLBACKS: list = []
+_EXPORT_LOCK = threading.Lock()
+_KALEIDO = {"started": False}
+GRAPHS = ["sens-graph", "interval-graph", "resid-graph", "acf-graph", "scatter-graph",
+          "score-graph"]
+TABLES = ["coef-table", "compare-table", "diag-table"]
+VIEW_STATE = [State("session", "data"), State("fit-key", "data"), State("est-name", "value"),
+              State({"type": "est-param", "name": ALL}, "value"),
+              State({"type": "est-param", "name": ALL}, "id"), State("tune-rule", "value"),
+              State("tune-slider", "value"), State("reference", "value"),
+              State("level", "value"), State("focus", "value")]
+
+
+def callback(*args, **kwargs):
+    def deco(fn):
+        CALLBACKS.append((args, kwargs, fn))
+        return fn
+    return deco
+
+
+def export_figure(fig: go.Figure, fmt: str) -> bytes:
+    """Static export with kaleido and the system chromium, one export at a time (kaleido's
+    shared server is not thread-safe)."""
+    import plotly.io as pio
+    if fmt not in CHART_FORMATS:
+        raise engine.SpecificationError(f"charts export as {', '.join(CHART_FORMATS)}")
+    fig.update_layout(width=1000, height=max(int(fig.layout.height or 450), 360))
+    with _EXPORT_LOCK:
+        if not _KALEIDO["started"]:
+            import kaleido
+            kaleido.start_sync_server(silence_warnings=True)
+            _KALEIDO["started"] = True
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            return pio.to_image(fig, format=fmt, scale=2 if fmt == "png" else 1)
+
+
+def current_view(session, fkey, name, values, ids, rule, slider, reference, level, focus):
+    """(model, Inference) of what the screen shows; raises LagwiseError when there is none."""
+    model = stored(session, fkey)
+    if model is None:
+        raise engine.SpecificationError("nothing to export yet: load data and choose a model")
+    est = make_estimator(name, values, ids, rule, slider)
+    return model, model.infer(est, level=level, reference=reference)
+
+
+def conventions(res) -> str:
+    """The line every exported table carries."""
+    return (f"{res.level:.0%} confidence intervals; two-sided tests of beta = 0 at "
+            f"{1 - res.level:.0%}; {res.describe()}")
+
+
+def table_frame(target, session, fkey, model, res, focus, reference):
+    """(frame, caption, notes) for a table, from the engine's numbers."""
+    if target == "coef-table":
+        frame = res.table.reset_index()
+        return frame, f"{model.response}: {res.label}", [conventions(res)] + res.notes
+    if target == "compare-table":
+        comp = comparison_for(session, fkey, model, res.level, reference)
+        rows = comp[comp.term == focus].copy()
+        rows["beta = 0"] = rows.rejects.map(V.verdict)
+        frame = rows[["estimator", "bandwidth", "lags", "std_error", "t_stat", "p_value",
+                      "ci_low", "ci_high", "reference", "beta = 0", "note"]]
+        return frame, f"{focus}: every estimator", \
+            [f"{res.level:.0%} confidence intervals; two-sided tests at {1 - res.level:.0%}; "
+             "each row's reference law is stated in its row"]
+    rep = diagnostics_for(session, fkey, model)
+    frame = rep.tests[["test", "statistic", "df", "df2", "p_value", "null", "method"]]
+    return frame, f"{model.response}: residual diagnostics", \
+        ["p-values under each test's null, as stated"] + rep.notes
+
+
+@callback(Output("download", "data"),
+          Input({"type": "export", "target": ALL, "fmt": ALL}, "n_clicks"),
+          *[State(g, "figure") for g in GRAPHS], *VIEW_STATE, prevent_initial_call=True)
+def on_export(clicks, *states):
+    trig = ctx.triggered_id
+    if not isinstance(trig, dict) or not any(c for c in clicks or [] if c):
+        return no_update
+    figs = dict(zip(GRAPHS, states[: len(GRAPHS)]))
+    session, fkey, name, values, ids, rule, slider, reference, level, focus = \
+        states[len(GRAPHS):]
+    target, fmt = trig.get("target"), trig.get("fmt")
+    try:
+        if target in figs:
+            if not isinstance(figs[target], dict):
+                return no_update
+            data = export_figure(go.Figure(figs[target]), fmt)
+            return {"content": base64.b64encode(data).decode(), "base64": True,
+                    "filename": f"lagwise_{target}.{fmt}"}
+        if target not in TABLES or fmt not in FORMATS:
+            return no_update
+        model, res = current_view(session, fkey, name, values, ids, rule, slider, reference,
+                                  level, focus)
+        frame, caption, notes = table_frame(target, session, fkey, model, res, focus, reference)
+        text = render(frame, fmt, index=False, caption=caption, notes=notes)
+    except (engine.LagwiseError, ValueError) as exc:
+        return {"content": f"export failed: {exc}\n", "filename": "lagwise_export_error.txt"}
+    ext = {"csv": "csv", "markdown": "md", "latex": "tex", "html": "html"}[fmt]
+    return {"content": text, "filename": f"lagwise_{target}.{ext}"}
+
+
+@callback(Output("download", "data", allow_duplicate=True), Input("export-report", "n_clicks"),
+          *[State(g, "figure") for g in GRAPHS], *VIEW_STATE, prevent_initial_call=True)
+def on_report(_n, *states):
+    figs = [go.Figure(f) for f in states[: len(GRAPHS)] if isinstance(f, dict)]
+    session, fkey, name, values, ids, rule, slider, reference, level, focus = \
+        states[len(GRAPHS):]
+    try:
+        model, res = current_view(session, fkey, name, values, ids, rule, slider, reference,
+                                  level, focus)
+        tables = []
+        for target, title in zip(TABLES, ["Coefficients", "Every estimator, coefficient in "
+                                          "focus", "Diagnostic tests"]):
+            frame, _, _ = table_frame(target, session, fkey, model, res, focus, reference)
+            tables.append((title, frame))
+        text = V.report_html(model, figs, tables, res.describe(), conventions(res))
+    except engine.LagwiseError as exc:
+        return {"content": f"report failed: {exc}\n", "filename": "lagwise_report_error.txt"}
+    return {"content": text, "filename": "lagwise_report.html"}
+
+
+# --------------------------------------------------------------------------- settings
+
+@callback(Output("download", "data", allow_duplicate=True),
+          Output("settings-message", "children"), Input("save-settings", "n_clicks"),
+          State("dataset-key", "data"), State("response", "value"), State("regressors", "value"),
+          State("intercept", "value"), State("horizon", "value"), State("window", "value"),
+          State("chart-mode", "value"), *VIEW_STATE, prevent_initial_call=True)
+def on_save(_n, dkey, response, regressors, intercept, horizon, window, mode, session, fkey,
+            name, values, ids, rule, slider, reference, level, focus):
+    table = stored(session, dkey)
+    family = engine.FAMILIES.get(name)
+    params = param_values(family, values, ids) if family else {}
+    record = {"dataset": table.report.source if table is not None else None,
+              "transforms": [list(step) for step in table.transforms] if table is not None
+              else [], "response": response, "regressors": regressors,
+              "intercept": bool(intercept), "horizon": horizon, "window": window,
+              "estimator": name, "params": params, "rule": rule, "value": slider,
+              "reference": reference, "level": level, "focus": focus, "chart_mode": mode}
+    return ({"content": settings_json(record), "filename": "lagwise_settings.json"},
+            V.ok_box("settings saved to lagwise_settings.json"))
+
+
+SETTINGS_OUTPUTS = [Output("settings-message", "children", allow_duplicate=True),
+                    Output("pending-settings", "data"),
+                    Output("response", "value", allow_duplicate=True),
+                    Output("regressors", "value", allow_duplicate=True),
+                    Output("intercept", "value"), Output("horizon", "value", allow_duplicate=True),
+                    Output("est-name", "value"), Output("tune-rule", "value", allow_duplicate=True),
+                    Output("tune-slider", "value", allow_duplicate=True),
+                    Output("reference", "value"), Output("level", "value"),
+                    Output("chart-mode", "value"),
+                    Output("dataset-key", "data", allow_duplicate=True)]
+
+
+@callback(*SETTINGS_OUTPUTS, Input("load-settings", "contents"), Input("pending-settings", "data"),
+          State("load-settings", "filename"), State("dataset-key", "data"),
+          State("session", "data"), prevent_initial_call="initial_duplicate")
+def on_load_settings(contents, pending, filename, dkey, session):
+    """Apply a settings record (uploaded, or given to `lagwise serve --settings`): validated as
+    a whole first (a bad file changes nothing), then its transforms are replayed on the current
+    data and the model and inference controls set."""
+    nothing = (no_update,) * len(SETTINGS_OUTPUTS)
+    if ctx.triggered_id == "load-settings":
+        if not contents:
+            return nothing
+        try:
+            if not isinstance(contents, str) or "," not in contents:
+                raise engine.DataError("the file could not be read")
+            s = load_settings(base64.b64decode(contents.split(",", 1)[1]))
+        except (engine.LagwiseError, ValueError) as exc:
+            return (V.error_box(f"{filename}: {exc}; nothing was changed"),) + nothing[1:]
+    elif isinstance(pending, dict) and pending:
+        s = pending
+    else:
+        return nothing
+    table = stored(session, dkey)
+    new_key = no_update
+    steps = [tuple(x) for x in s.get("transforms") or []]
+    if table is not None and steps:
+        try:
+            replayed = table.replay(steps)
+        except (engine.LagwiseError, ValueError, TypeError) as exc:
+            return (V.error_box(f"the saved transforms do not apply to this data: {exc}; "
+                                "nothing was changed"),) + nothing[1:]
+        if replayed is not table:
+            new_key = key_for("data", spec_hash([dkey, steps]))
+            STORE.put(session, new_key, replayed)
+            table = replayed
+    cols = set(table.frame.columns) if table is not None else set()
+    wanted = [c for c in [s.get("response")] + list(s.get("regressors") or []) if c]
+    missing = [c for c in wanted if cols and c not in cols]
+    if missing:
+        return (V.error_box(f"settings refer to column(s) {', '.join(map(repr, missing))}, which "
+                            "this data does not have; nothing was changed"),) + nothing[1:]
+    msg = V.ok_box(f"settings applied ({engine.FAMILIES[s.get('estimator', 'kernel')].title})")
+    return (msg, {**s, "lagwise_settings": SETTINGS_VERSION},
+            s.get("response") or no_update, s.get("regressors", no_update),
+            ["on"] if s.get("intercept", True) else [], s.get("horizon"),
+            s.get("estimator", "kernel"), s.get("rule", "fixed"),
+            s.get("value") if s.get("value") is not None else no_update,
+            s.get("reference", "auto"), s.get("level", 0.95), s.get("chart_mode", "t"), new_key)

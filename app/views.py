@@ -1,0 +1,260 @@
+"""Engine results -> what the page shows in words and tables: the headline, flip sentences,
+table rows (numbers for sorting, text for display), and the HTML report. No Dash callbacks here."""
+
+from __future__ import annotations
+
+import html as _html
+import math
+
+import numpy as np
+import pandas as pd
+from dash import html
+
+from ..engine.export import render
+from ..engine.sweep import times
+
+#: Transform pickers show these titles (engine names are the values).
+TRANSFORM_TITLES = {"lag": "lag p", "lead": "lead p", "difference": "difference", "log": "log",
+                    "log-difference": "log difference", "sum-next": "sum of next h"}
+#: Rows whose conclusion differs from the current one: a neutral tint, not a verdict colour.
+DIFFERS_STYLE = {"styleConditions": [{"condition": "params.data.differs",
+                                      "style": {"backgroundColor": "#eceae3",
+                                                "fontWeight": "600"}}]}
+
+
+# --------------------------------------------------------------------------- formatting
+
+def fmt(x, digits=4):
+    if x is None or (isinstance(x, float) and not math.isfinite(x)):
+        return ""
+    if isinstance(x, (bool, np.bool_)):
+        return "yes" if x else "no"
+    if isinstance(x, (int, np.integer)):
+        return str(int(x))
+    if isinstance(x, (float, np.floating)) and not np.isfinite(x):
+        return ""
+    return f"{x:.{digits}g}"
+
+
+def fmt_p(p, mc_error: float | None = None):
+    """p-values: three decimals, '<0.001' below that; '~' marks a simulated law's value."""
+    if p is None or not math.isfinite(p):
+        return ""
+    text = "<0.001" if p < 0.001 else f"{p:.3f}"
+    return text
+
+
+def _num(x):
+    return float(x) if x is not None and np.isfinite(x) else None
+
+
+def column(field, name, text=True, left=False, width=None, tooltip=None):
+    """A grid column: sorted by the number in `field`, shown as the text in `field_txt`."""
+    out = {"field": field, "headerName": name, "minWidth": 80}
+    if text:
+        out["valueFormatter"] = {"function": f"params.data.{field}_txt"}
+        out["type"] = "rightAligned"
+    if left:
+        out["cellStyle"] = {"textAlign": "left"}
+    if width:
+        out["minWidth"] = width
+    if tooltip:
+        out["tooltipField"] = tooltip
+    return out
+
+
+COEF_COLUMNS = [column("term", "term", text=False, left=True, width=120),
+                column("estimate", "estimate", width=90), column("std_error", "std. error",
+                                                                 width=95),
+                column("t_stat", "t", width=70), column("p_value", "p", width=70),
+                column("interval", "interval", text=False, width=160)]
+COMPARE_COLUMNS = [column("estimator", "estimator", text=False, left=True, width=290,
+                          tooltip="note"),
+                   column("bandwidth", "b"), column("lags", "lags"),
+                   column("std_error", "std. error"), column("t_stat", "t"),
+                   column("p_value", "p"), column("verdict", "beta = 0", text=False, width=115),
+                   column("law", "law", text=False, width=110)]
+DIAG_COLUMNS = [column("test", "test", text=False, left=True, width=190),
+                column("statistic", "statistic"), column("df", "df", text=False),
+                column("p_value", "p"), column("null", "null hypothesis", text=False, width=200),
+                column("method", "method", text=False, width=220)]
+SUMMARY_COLUMNS = [column("column", "column", text=False, left=True),
+                   column("count", "count"), column("missing", "missing"),
+                   column("mean", "mean"), column("sd", "sd")]
+
+
+def _with_text(row: dict, fields: dict) -> dict:
+    """Numbers for sorting plus their display text (field_txt)."""
+    for name, (value, text) in fields.items():
+        row[name] = _num(value)
+        row[name + "_txt"] = text
+    return row
+
+
+# --------------------------------------------------------------------------- records
+
+def coefficient_records(result) -> list[dict]:
+    out = []
+    for term, r in result.table.iterrows():
+        out.append(_with_text({"term": term, "interval": f"[{fmt(r.ci_low)}, {fmt(r.ci_high)}]"},
+                              {"estimate": (r.estimate, fmt(r.estimate)),
+                               "std_error": (r.std_error, fmt(r.std_error)),
+                               "t_stat": (r.t_stat, fmt(r.t_stat, 3)),
+                               "p_value": (r.p_value, fmt_p(r.p_value))}))
+    return out
+
+
+def verdict(rejects) -> str:
+    return {True: "rejected", False: "not rejected"}.get(rejects, "not available")
+
+
+def comparison_records(comp: pd.DataFrame, term: str, current_rejects: bool | None) -> list[dict]:
+    rows = comp[comp.term == term]
+    out = []
+    for _, r in rows.iterrows():
+        ok = bool(np.isfinite(r.std_error))
+        note = "; ".join(x for x in (r.get("why"), r.note) if isinstance(x, str) and x)
+        out.append(_with_text(
+            {"estimator": r.estimator, "verdict": verdict(r.rejects) if ok else "not available",
+             "law": r.law if ok else "", "note": note,
+             "differs": bool(ok and current_rejects is not None and r.rejects is not None
+                             and bool(r.rejects) != current_rejects)},
+            {"bandwidth": (r.bandwidth, fmt(r.bandwidth, 3) if ok else ""),
+             "lags": (r.lags, fmt(int(r.lags)) if ok and np.isfinite(r.lags) else ""),
+             "std_error": (r.std_error, fmt(r.std_error)), "t_stat": (r.t_stat, fmt(r.t_stat, 3)),
+             "p_value": (r.p_value, fmt_p(r.p_value))}))
+    return out
+
+
+def diagnostics_records(report) -> list[dict]:
+    out = []
+    for _, r in report.tests.iterrows():
+        df = "" if pd.isna(r.df) else fmt(r.df)
+        if isinstance(r.get("df2"), (int, float)) and not pd.isna(r.get("df2")):
+            df = f"{fmt(r.df)}, {fmt(r.df2)}"
+        out.append(_with_text({"test": r.test, "df": df, "null": r.null, "method": r.method},
+                              {"statistic": (r.statistic, fmt(r.statistic)),
+                               "p_value": (r.p_value, fmt_p(r.p_value))}))
+    return out
+
+
+def summary_records(table) -> list[dict]:
+    summary = table.summary().reset_index(names="column")
+    return [_with_text({"column": r.column},
+                       {"count": (r["count"], fmt(int(r["count"]))),
+                        "missing": (r.missing, fmt(int(r.missing))),
+                        "mean": (r["mean"], fmt(r["mean"])), "sd": (r.sd, fmt(r.sd))})
+            for _, r in summary.iterrows()]
+
+
+def preview(table, rows: int = 8):
+    import json
+    frame = table.frame.head(rows).reset_index()
+    frame.columns = [str(c) for c in frame.columns]
+    data = json.loads(frame.to_json(orient="records", date_format="iso", double_precision=6))
+    fields = [f"c{i}" for i in range(len(frame.columns))]    # names may hold dots or spaces
+    records = [{f: rec[c] for f, c in zip(fields, frame.columns)} for rec in data]
+    cols = [{"field": f, "headerName": c, "minWidth": 90} for f, c in zip(fields, frame.columns)]
+    return records, cols
+
+
+def tsv(records: list[dict], columns: list[dict]) -> str:
+    """Grid rows as tab-separated text (what the table shows), for the clipboard."""
+    def cell(rec, c):
+        v = rec.get(c["field"] + "_txt", rec.get(c["field"], ""))
+        return "" if v is None else str(v).replace("\t", " ").replace("\n", " ")
+    lines = ["\t".join(c.get("headerName", c["field"]) for c in columns)]
+    lines += ["\t".join(cell(r, c) for c in columns) for r in records or []]
+    return "\n".join(lines) + "\n"
+
+
+# --------------------------------------------------------------------------- words
+
+def tuning_text(res, model) -> str:
+    """What the slider's value means under the current estimator, in one line."""
+    lr = res.long_run
+    if lr.bandwidth is not None:
+        text = (f"b = {lr.bandwidth:.4g} · {lr.lags} lags used · b/T = "
+                f"{lr.bandwidth / model.nobs:.3f}")
+        if lr.how:
+            text += f" · {lr.how}"
+        return text
+    return lr.how or ""
+
+
+def shortfall_note(res, model) -> str | None:
+    """The warning for a kernel estimate with fewer than h - 1 lags under an overlapping
+    h-period response (see engine.compare.lags_short_of_horizon)."""
+    from ..engine.compare import lags_short_of_horizon
+    return lags_short_of_horizon(model, res.long_run)
+
+
+def headline(res, term: str, flip_line: str, rule_title: str | None):
+    row = res.table.loc[term]
+    level = res.level
+    rejects = bool(row.p_value < 1 - level) if np.isfinite(row.p_value) else None
+    words = {True: "beta = 0 is rejected", False: "beta = 0 is not rejected",
+             None: "no test (standard error not available)"}[rejects]
+    choice = res.describe()
+    if rule_title:
+        choice = f"value chosen by {rule_title}: " + choice
+    mc = res.law.mc_error(level)
+    law_note = "" if mc is None else \
+        f" (simulated critical values, Monte Carlo s.e. about {mc:.3f})"
+    return rejects, [
+        html.Div([html.Span(term, className="lw-hl-term"),
+                  html.Span(f"estimate {fmt(row.estimate)}", className="lw-hl-num"),
+                  html.Span(f"SE {fmt(row.std_error)}", className="lw-hl-num"),
+                  html.Span(f"t {fmt(row.t_stat, 3)}", className="lw-hl-num"),
+                  html.Span(f"p {fmt_p(row.p_value)}", className="lw-hl-num")],
+                 className="lw-hl-row"),
+        html.Div(f"At {1 - level:.0%}: {words} under {choice}{law_note}.",
+                 className="lw-hl-verdict"),
+        html.Div(flip_line, className="lw-hl-flip")]
+
+
+def flip_line(flip) -> str:
+    if flip is None or flip.rejects_at_start is None:
+        return ""
+    what = "rejection" if flip.rejects_at_start else "non-rejection"
+    if not flip.changes:
+        return (f"The {what} holds for every {flip.symbol} from {flip.values[0]:g} to "
+                f"{flip.values[-1]:g} ({flip.curve}).")
+    return (f"The {what} holds for {flip.symbol} <= {flip.holds_up_to:g} ({flip.curve}); "
+            f"the conclusion changes {times(len(flip.changes))} along the axis.")
+
+
+def error_box(text: str):
+    return html.Div(text, className="lw-error", role="alert")
+
+
+def ok_box(text: str):
+    return html.Div(text, className="lw-ok")
+
+
+# --------------------------------------------------------------------------- report
+
+def report_html(model, figs, tables: list[tuple[str, pd.DataFrame]], caption: str,
+                conventions: str) -> str:
+    parts = ["<!doctype html><html><head><meta charset='utf-8'><title>Lagwise report</title>",
+             "<style>body{font-family:Liberation Sans,Arial,sans-serif;color:#1d2733;"
+             "max-width:1050px;margin:24px auto;padding:0 16px}table{border-collapse:collapse;"
+             "font-size:13px;margin:8px 0 20px}td,th{padding:4px 8px;border-bottom:1px solid "
+             "#e7e4dc;text-align:right}th{background:#f1efe8}h1{color:#0e6e64}"
+             "td:first-child,th:first-child,td:last-child{text-align:left}"
+             ".note{color:#6b7480;font-size:13px}</style></head><body>",
+             "<h1>Lagwise report</h1>"]
+    if model is not None:
+        parts.append(f"<p>{_html.escape(model.response)} on {_html.escape(', '.join(model.terms))}"
+                     f"; T = {model.nobs}, sample {_html.escape(str(model.sample.first))} to "
+                     f"{_html.escape(str(model.sample.last))}.</p>")
+    parts.append(f"<p><strong>Current choice:</strong> {_html.escape(caption)}</p>")
+    parts.append(f"<p class='note'>{_html.escape(conventions)}</p>")
+    for title, frame in tables:
+        parts.append(f"<h2>{_html.escape(title)}</h2>" + render(frame, "html", index=False))
+    for i, fig in enumerate(figs):
+        parts.append(fig.to_html(full_html=False, include_plotlyjs="inline" if i == 0 else False))
+    parts.append("<p class='note'>Standard errors rest on large-sample approximations unless a "
+                 "t, F or fixed-b reference law is stated; kernel results depend on the bandwidth "
+                 "b shown. Generated by Lagwise.</p></body></html>")
+    return "\n".join(parts)
