@@ -64,91 +64,97 @@ def sensitivity_figure(sweep, term: str, mode: str = "t", level: float = 0.95,
     shape (a slider move only patches its x). Points where S was repaired or is not PSD are
     drawn hollow, unavailable ones leave a gap, and the y axis keeps to the ordinary points.
     reference_lines: [(label, value)] horizontal lines (e.g. an estimator without an axis)."""
-    from ..engine.kernels import KERNELS
-    from ..engine.sweep import STATUS_TEXT
     j = sweep.terms.index(term)
-    x = sweep.values
     cv = sweep.critical_values(level, reference)
     fig = go.Figure()
-    x_cur = float(current) if current is not None else float(x[0])
+    x_cur = float(current) if current is not None else float(sweep.values[0])
     fig.add_shape(type="line", x0=x_cur, x1=x_cur, y0=0, y1=1, yref="paper",
                   line={"color": INK, "width": 1.5, "dash": "dot"}, name="current")
-    shown = []
-    for c, label in enumerate(sweep.labels):
-        kern = KERNELS.get(sweep.estimators[c].params.get("kernel", ""))
-        color = kern.color if kern else PALETTE[c % len(PALETTE)]
-        short = kern.short if kern else label
-        width = 3 if c == current_curve else 1.6
-        se = sweep.std_error[c, :, j]
-        est = sweep.estimate[c, :, j]
-        odd = sweep.status[c] != ""
-        if mode == "ci":
-            half = cv[c] * se
-            y, y2 = est + half, est - half
-            if c == current_curve:
-                fig.add_trace(go.Scatter(x=np.r_[x, x[::-1]], y=np.r_[y, y2[::-1]],
-                                         fill="toself", fillcolor="rgba(29,39,51,0.08)",
-                                         line={"width": 0}, name=f"{short} interval",
-                                         hoverinfo="skip"))
-            fig.add_trace(go.Scatter(x=x, y=y, mode="lines", name=f"{short} upper",
-                                     line={"color": color, "width": width}))
-            fig.add_trace(go.Scatter(x=x, y=y2, mode="lines", name=f"{short} lower",
-                                     line={"color": color, "width": width, "dash": "dash"},
-                                     showlegend=False))
-            shown.append((np.r_[y, y2], np.r_[~odd, ~odd]))
-        else:
-            y = se if mode == "se" else sweep.t_stat[c, :, j]
-            fig.add_trace(go.Scatter(x=x, y=np.where(odd, np.nan, y), mode="lines", name=short,
-                                     line={"color": color, "width": width},
-                                     hovertemplate=f"{short}<br>{sweep.axis.symbol}=%{{x}}<br>"
-                                                   "%{y:.3f}<extra></extra>"))
-            shown.append((y, ~odd))
-            if odd.any():
-                why = [STATUS_TEXT.get(s, "") + (f": {r}" if r else "")
-                       for s, r in zip(sweep.status[c][odd], sweep.reasons[c][odd])]
-                fig.add_trace(go.Scatter(
-                    x=x[odd], y=np.where(np.isfinite(y[odd]), y[odd], np.nan), mode="markers",
-                    name=f"{short}: flagged points", customdata=why,
-                    marker={"symbol": "circle-open", "size": 7, "color": color},
-                    hovertemplate=f"{short}<br>{sweep.axis.symbol}=%{{x}}<br>%{{y:.3f}}<br>"
-                                  "%{customdata}<extra></extra>"))
-        varies = np.nanmax(cv[c]) - np.nanmin(cv[c]) > 1e-9 if np.isfinite(cv[c]).any() else False
-        if mode == "t" and varies:
-            for sign in (1, -1):
-                fig.add_trace(go.Scatter(x=x, y=sign * cv[c], mode="lines",
-                                         line={"color": color, "width": 1, "dash": "dash"},
-                                         name=f"critical value ({short})",
-                                         showlegend=sign == 1, hoverinfo="skip"))
-    if mode == "t" and np.isfinite(cv).any():
-        flat = [np.nanmax(cv[c]) - np.nanmin(cv[c]) <= 1e-9 for c in range(len(cv))
-                if np.isfinite(cv[c]).any()]
-        if all(flat):
-            value = float(cv[np.isfinite(cv)][0])
-            for sign in (1, -1):
-                fig.add_hline(y=sign * value, line={"color": MUTED, "width": 1.2, "dash": "dash"})
-            fig.add_annotation(x=1, xref="paper", y=value, showarrow=False, xanchor="right",
-                               yanchor="bottom", text=f"±{value:.2f} ({reference} critical value)",
-                               font={"size": 11, "color": MUTED})
-    if mode == "ci":
-        fig.add_hline(y=0, line={"color": MUTED, "width": 1.2})
+    shown = [_add_curve(fig, sweep, c, j, mode, cv, c == current_curve)
+             for c in range(len(sweep.labels))]
+    _add_critical_lines(fig, cv, mode, reference)
     for label, value in reference_lines or []:
         fig.add_hline(y=value, line={"color": INK, "width": 1, "dash": "dot"})
         fig.add_annotation(x=0, xref="paper", y=value, showarrow=False, xanchor="left",
                            yanchor="bottom", text=label, font={"size": 11, "color": INK})
     _add_marks(fig, sweep, j, mode, cv, marks)
-    if shown:
-        ys = np.concatenate([a for a, _ in shown])
-        keep = np.concatenate([k for _, k in shown])
-        rng = _finite_range(ys, keep)
-        if rng is not None:
-            fig.update_yaxes(range=rng)
+    rng = _finite_range(np.concatenate([a for a, _ in shown]),
+                        np.concatenate([k for _, k in shown]))
+    if rng is not None:
+        fig.update_yaxes(range=rng)
     ylab = {"t": f"t statistic of {term}", "se": f"standard error of {term}",
             "ci": f"{level:.0%} interval for {term}"}[mode]
     fig.update_xaxes(title_text=sweep.axis.title + (
         " (lags used = ceil(b) - 1 for finite kernels)" if sweep.axis.symbol == "b" else ""))
     fig.update_yaxes(title_text=ylab)
-    return _base(fig, f"How {term} depends on the {sweep.axis.title.split(' ')[0]}"
-                 if sweep.axis.symbol != "b" else f"How {term} depends on the bandwidth", 400)
+    what = "bandwidth" if sweep.axis.symbol == "b" else sweep.axis.title
+    return _base(fig, f"How {term} depends on the {what}", 400)
+
+
+def _curve_style(sweep, c, current: bool):
+    from ..engine.kernels import KERNELS
+    kern = KERNELS.get(sweep.estimators[c].params.get("kernel", ""))
+    color = kern.color if kern else PALETTE[c % len(PALETTE)]
+    return color, (kern.short if kern else sweep.labels[c]), 3 if current else 1.6
+
+
+def _add_curve(fig, sweep, c, j, mode, cv, current):
+    """One curve (and its flagged points); returns (its y values, which are ordinary)."""
+    from ..engine.sweep import STATUS_TEXT
+    color, short, width = _curve_style(sweep, c, current)
+    x, se, est = sweep.values, sweep.std_error[c, :, j], sweep.estimate[c, :, j]
+    odd = sweep.status[c] != ""
+    if mode == "ci":
+        y, y2 = est + cv[c] * se, est - cv[c] * se
+        if current:
+            fig.add_trace(go.Scatter(x=np.r_[x, x[::-1]], y=np.r_[y, y2[::-1]], fill="toself",
+                                     fillcolor="rgba(29,39,51,0.08)", line={"width": 0},
+                                     name=f"{short} interval", hoverinfo="skip"))
+        fig.add_trace(go.Scatter(x=x, y=y, mode="lines", name=f"{short} upper",
+                                 line={"color": color, "width": width}))
+        fig.add_trace(go.Scatter(x=x, y=y2, mode="lines", name=f"{short} lower",
+                                 line={"color": color, "width": width, "dash": "dash"},
+                                 showlegend=False))
+        return np.r_[y, y2], np.r_[~odd, ~odd]
+    y = se if mode == "se" else sweep.t_stat[c, :, j]
+    fig.add_trace(go.Scatter(x=x, y=np.where(odd, np.nan, y), mode="lines", name=short,
+                             line={"color": color, "width": width},
+                             hovertemplate=f"{short}<br>{sweep.axis.symbol}=%{{x}}<br>%{{y:.3f}}"
+                                           "<extra></extra>"))
+    if odd.any():
+        why = [STATUS_TEXT.get(s, "") + (f": {r}" if r else "")
+               for s, r in zip(sweep.status[c][odd], sweep.reasons[c][odd])]
+        fig.add_trace(go.Scatter(
+            x=x[odd], y=y[odd], mode="markers", name=f"{short}: flagged points", customdata=why,
+            marker={"symbol": "circle-open", "size": 7, "color": color},
+            hovertemplate=f"{short}<br>{sweep.axis.symbol}=%{{x}}<br>%{{y:.3f}}<br>"
+                          "%{customdata}<extra></extra>"))
+    finite = np.isfinite(cv[c])
+    if mode == "t" and finite.any() and np.ptp(cv[c][finite]) > 1e-9:
+        for sign in (1, -1):
+            fig.add_trace(go.Scatter(x=x, y=sign * cv[c], mode="lines",
+                                     line={"color": color, "width": 1, "dash": "dash"},
+                                     name=f"critical value ({short})", showlegend=sign == 1,
+                                     hoverinfo="skip"))
+    return y, ~odd
+
+
+def _add_critical_lines(fig, cv, mode, reference):
+    """One pair of horizontal lines when the critical value is the same everywhere."""
+    if mode == "ci":
+        fig.add_hline(y=0, line={"color": MUTED, "width": 1.2})
+        return
+    if mode != "t" or not np.isfinite(cv).any():
+        return
+    rows = [r[np.isfinite(r)] for r in cv if np.isfinite(r).any()]
+    if any(np.ptp(r) > 1e-9 for r in rows):
+        return
+    value = float(rows[0][0])
+    for sign in (1, -1):
+        fig.add_hline(y=sign * value, line={"color": MUTED, "width": 1.2, "dash": "dash"})
+    fig.add_annotation(x=1, xref="paper", y=value, showarrow=False, xanchor="right",
+                       yanchor="bottom", text=f"±{value:.2f} ({reference} critical value)",
+                       font={"size": 11, "color": MUTED})
 
 
 def _add_marks(fig, sweep, j, mode, cv, marks):

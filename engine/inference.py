@@ -117,6 +117,7 @@ class Inference:
             raise SpecificationError(f"r must have {m} entries (one per restriction)")
         if np.linalg.matrix_rank(Rm) < m:
             raise SpecificationError("the restrictions in R are linearly dependent")
+        self.law.check_restrictions(m)
         diff = Rm @ self.params.to_numpy() - rv
         middle = Rm @ self.cov.to_numpy() @ Rm.T
         try:

@@ -68,6 +68,12 @@ class Law:
         """Monte Carlo standard error of the critical value at `level` (simulated laws only)."""
         return None
 
+    def check_restrictions(self, m: int) -> None:
+        """Raise SpecificationError if the law cannot refer a test of m restrictions."""
+
+    def wald_text(self, m: int) -> str:
+        raise NotImplementedError
+
     def __eq__(self, other):
         return type(self) is type(other) and self.__dict__ == other.__dict__
 
@@ -155,16 +161,16 @@ class EWCLaw(StudentT):
     def critical_value(self, level, restrictions=1):
         if restrictions == 1:
             return super().critical_value(level)
-        self._check(restrictions)
+        self.check_restrictions(restrictions)
         return float(stats.f.ppf(level, restrictions, self.df - restrictions + 1))
 
-    def _check(self, m):
+    def check_restrictions(self, m):
         if self.df < m:
             raise SpecificationError(f"EWC with B = {self.df:g} cosine terms cannot test {m} "
                                      "restrictions (needs B >= m)")
 
     def wald(self, w, m):
-        self._check(m)
+        self.check_restrictions(m)
         big_b = self.df
         f = (big_b - m + 1) / (big_b * m) * w
         df = (m, big_b - m + 1)
@@ -201,6 +207,10 @@ class FixedB(Law):
         a = np.atleast_1d(np.abs(np.asarray(t, dtype=float)))
         return np.array([fixed_b_p_value(self.kernel, self.b_over_t, x**2, 1)
                          if np.isfinite(x) else np.nan for x in a])
+
+    def check_restrictions(self, m):
+        from .fixedb import check
+        check(self.kernel, self.b_over_t, m)
 
     def wald(self, w, m):
         from .fixedb import fixed_b_p_value

@@ -90,11 +90,14 @@ def kernel_many(model, kernel: Kernel, bandwidths, *, small_sample: bool = False
         s = s * model.small_sample_factor
     min_eig = np.full(len(b), np.nan)
     status = np.full(len(b), "", dtype=object)
+    g0 = np.abs(np.diag(cache.gamma0()))
+    collapsed = ((np.abs(np.diagonal(s, axis1=1, axis2=2)) <= COLLAPSE_TOL * g0)
+                 & (g0 > 0)).any(axis=1)
     if not kernel.psd:
-        vals, vecs = np.linalg.eigh(s)
+        vals, vecs = np.linalg.eigh(np.where(np.isfinite(s), s, 0.0))
         min_eig = vals[:, 0]
         scale = np.maximum(np.abs(vals).max(axis=1), np.finfo(float).tiny)
-        neg = vals[:, 0] < -1e-12 * scale
+        neg = (vals[:, 0] < -1e-12 * scale) & ~collapsed
         if neg.any():
             if repair:
                 clipped = np.clip(vals[neg], 0.0, None)
@@ -102,9 +105,6 @@ def kernel_many(model, kernel: Kernel, bandwidths, *, small_sample: bool = False
                 status[neg] = "repaired"
             else:
                 status[neg] = "not_psd"
-    g0 = np.abs(np.diag(cache.gamma0()))
-    collapsed = ((np.abs(np.diagonal(s, axis1=1, axis2=2)) <= COLLAPSE_TOL * g0)
-                 & (g0 > 0)).any(axis=1)
     s[collapsed] = np.nan
     status[collapsed] = "collapsed"
     return s, lags, min_eig, status
@@ -127,6 +127,12 @@ def kernel(model, kernel: Kernel, bandwidth: float, *, small_sample=False, repai
         out.notes.append(f"the {kernel.label} estimate of S was not positive semi-definite "
                          f"(smallest eigenvalue {min_eig[0]:.3g}); negative eigenvalues were set "
                          "to zero (eigenvalue repair)")
+        vals = np.linalg.eigvalsh(s[0])
+        if vals[0] <= 1e-10 * max(vals[-1], np.finfo(float).tiny):
+            out.flags.add("near_singular")
+            out.notes.append("after the repair S is singular: the standard error of some "
+                             "combination of coefficients is zero, and t statistics involving "
+                             "it are not meaningful")
     elif status[0] == "not_psd":
         out.flags.add("not_psd")
         out.notes.append(f"the {kernel.label} estimate of S is not positive semi-definite "

@@ -40,6 +40,8 @@ RANK_TOLERANCE = 1e-10
 #: Above this condition number of the column-scaled design, least squares uses pivoted
 #: Householder QR instead of the (much faster) two-pass Cholesky QR.
 CHOLESKY_QR_MAX_CONDITION = 1e7
+#: Below this condition number one Cholesky QR pass suffices (see `_cholesky_qr2`).
+ONE_PASS_MAX_CONDITION = 1e3
 
 
 @dataclass
@@ -232,11 +234,11 @@ class OLSFit(MomentModel):
     def _solve(self):
         X, y = self.X, self.y
         # scale columns by their largest absolute value (never underflows, unlike a 2-norm)
-        norms = np.abs(X).max(axis=0)
-        xs = X / norms
-        factor = _cholesky_qr2(xs) if norms.min() > 0 else None
+        lo, hi = column_ranges(X)
+        norms = np.maximum(hi, -lo)
+        factor = _cholesky_qr2(X, norms) if norms.min() > 0 else None
         if factor is None:
-            q, r, piv = sla.qr(xs, mode="economic", pivoting=True, check_finite=False,
+            q, r, piv = sla.qr(X / norms, mode="economic", pivoting=True, check_finite=False,
                                overwrite_a=True)
             r = np.array(r)          # a fresh copy: triangular solves on the raw factor are slow
             diag = np.abs(np.diag(r))
@@ -248,7 +250,7 @@ class OLSFit(MomentModel):
         else:
             q, r, rinv = factor
             piv = np.arange(self.k)
-            self.factorization = "Cholesky QR (two passes)"
+            self.factorization = "Cholesky QR"
         beta = np.empty(self.k)
         with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
             beta[piv] = rinv @ (q.T @ y) / norms[piv]
@@ -323,21 +325,32 @@ class OLSFit(MomentModel):
                 f"R2={self.r_squared:.4f})")
 
 
-def _cholesky_qr2(xs: np.ndarray):
-    """Two-pass Cholesky QR of a well-conditioned matrix: (Q, R, R^-1), or None when the matrix
-    is too ill-conditioned for it (the caller then uses pivoted Householder QR). Backward stable
-    with Q orthonormal to rounding for condition numbers well below 1e8 (Yamamoto et al. 2015,
-    ETNA 44); the threshold used is `CHOLESKY_QR_MAX_CONDITION`."""
-    k = xs.shape[1]
+def _cholesky_qr2(x: np.ndarray, norms: np.ndarray):
+    """Cholesky QR of a well-conditioned matrix with its columns scaled by 1/norms, without
+    forming the scaled copy: (Q, R, R^-1) with X D^-1 = QR to rounding, or None
+    when the matrix is too ill-conditioned for it (the caller then uses pivoted Householder QR).
+
+    One pass when the condition number of R is below `ONE_PASS_MAX_CONDITION`: Q is then
+    orthonormal to about cond^2 x 1e-16 (at most about 1e-10), which the covariance does not
+    depend on (S of x_t e_t = C' S_q C holds for any Q with X = QC) and the refinement step of the
+    coefficients absorbs. Otherwise a second pass (CholeskyQR2), backward stable with Q
+    orthonormal to rounding for condition numbers well below 1e8 (Yamamoto et al. 2015, ETNA
+    44); the threshold used is `CHOLESKY_QR_MAX_CONDITION`."""
+    k = x.shape[1]
     try:
-        r1 = sla.cholesky(xs.T @ xs, lower=False, check_finite=False)
+        r1 = sla.cholesky((x.T @ x) / np.outer(norms, norms), lower=False, check_finite=False)
     except (np.linalg.LinAlgError, ValueError):
         return None
     d = np.abs(np.diag(r1))
-    if not np.isfinite(r1).all() or d.min() <= 0 or np.linalg.cond(r1) > CHOLESKY_QR_MAX_CONDITION:
+    if not np.isfinite(r1).all() or d.min() <= 0:
+        return None
+    cond = np.linalg.cond(r1)
+    if cond > CHOLESKY_QR_MAX_CONDITION:
         return None
     r1inv = sla.solve_triangular(r1, np.eye(k), check_finite=False)
-    q1 = xs @ r1inv
+    q1 = x @ (r1inv / norms[:, None])
+    if cond <= ONE_PASS_MAX_CONDITION:
+        return q1, r1, r1inv
     try:
         r2 = sla.cholesky(q1.T @ q1, lower=False, check_finite=False)
     except (np.linalg.LinAlgError, ValueError):
@@ -363,6 +376,15 @@ def _collinearity_message(r, piv, rank, terms) -> str:
             parts.append(f"'{name}' is all zeros")
     return ("regressors are collinear: " + "; ".join(parts)
             + f". Drop one of them (e.g. '{dropped[0]}') and fit again.")
+
+
+def column_ranges(values: np.ndarray):
+    """(minimum, maximum) of each column. Column by column: numpy's axis-0 reductions of a
+    tall C-ordered array with few columns are several times slower than one reduction per
+    strided column."""
+    lo = np.array([values[:, j].min() for j in range(values.shape[1])])
+    hi = np.array([values[:, j].max() for j in range(values.shape[1])])
+    return lo, hi
 
 
 def index_label(value):
@@ -394,9 +416,10 @@ def _frame_and_meta(data):
     raise DataError(f"expected a Table or a pandas DataFrame, got {type(data).__name__}")
 
 
-def numeric_block(frame, cols, non_numeric, sample, what="column"):
+def numeric_block(frame, cols, non_numeric, sample, what="column", ones: bool = False):
     """Validated float values of `cols` over the sample window, rows with a missing value
-    dropped and counted. Returns (values T x len(cols), index, SampleInfo)."""
+    dropped and counted. Returns (values, index, SampleInfo): values is T x len(cols), with a
+    leading column of ones when `ones` (so a design matrix can be a view of it)."""
     for col in cols:
         if col not in non_numeric and col in frame.columns and (
                 not pd.api.types.is_numeric_dtype(frame[col])
@@ -423,17 +446,23 @@ def numeric_block(frame, cols, non_numeric, sample, what="column"):
                 from None
         info.dropped_window = available - len(used)
     index = used.index
-    values = used.to_numpy(dtype=float)
+    lead = int(ones)
+    values = np.empty((len(used), len(cols) + lead))
+    if ones:
+        values[:, 0] = 1.0
+    for j, col in enumerate(cols):         # column by column: no interleaved temporary
+        values[:, j + lead] = used[col].to_numpy(dtype=float)
     finite = np.isfinite(values)
-    ok = finite.all(axis=1)
-    if not ok.all():
+    ok = True if finite.all() else finite.all(axis=1)
+    if ok is not True:
         nan = np.isnan(values)
         empty = nan.all(axis=0)
         if empty.any():
-            raise DataError(f"column '{cols[int(np.flatnonzero(empty)[0])]}' has no values "
-                            "(every cell is missing" + (" in the sample window)" if sample else ")"))
+            raise DataError(f"column '{cols[int(np.flatnonzero(empty)[0]) - lead]}' has no "
+                            "values (every cell is missing"
+                            + (" in the sample window)" if sample else ")"))
         if (~finite & ~nan).any():
-            col = cols[int(np.flatnonzero((~finite & ~nan).any(axis=0))[0])]
+            col = cols[int(np.flatnonzero((~finite & ~nan).any(axis=0))[0]) - lead]
             raise DataError(f"column '{col}' contains infinite values")
         idx = np.flatnonzero(ok)
         info.dropped_missing = int((~ok).sum())
@@ -485,33 +514,32 @@ def fit_ols(data, response: str, regressors=None, intercept: bool = True,
     if INTERCEPT in regs:
         raise SpecificationError(f"'{INTERCEPT}' is reserved for the constant term; "
                                  "rename that column")
-    cols = [response, *regs]
-    values, index, info = numeric_block(frame, cols, non_numeric, sample)
+    cols = [*regs, response]
+    values, index, info = numeric_block(frame, cols, non_numeric, sample, ones=intercept)
     t_obs = len(values)
     k = len(regs) + int(intercept)
     if t_obs <= k:
         raise SpecificationError(f"{k} coefficients but only {t_obs} usable rows: the model needs "
                                  "more observations than coefficients (T > k)")
-    spread = np.ptp(values, axis=0)
-    if spread[0] == 0:
-        raise SpecificationError(f"response '{response}' is constant ({values[0, 0]:g}): "
+    lo, hi = column_ranges(values)
+    spread, first = hi - lo, values[0]
+    if spread[k] == 0:
+        raise SpecificationError(f"response '{response}' is constant ({first[k]:g}): "
                                  "nothing to explain")
-    zero = [j for j in range(len(regs)) if spread[j + 1] == 0 and values[0, j + 1] == 0]
+    lead = int(intercept)
+    zero = [j for j in range(len(regs)) if spread[j + lead] == 0 and first[j + lead] == 0]
     if zero:
         raise SpecificationError(f"regressor '{regs[zero[0]]}' is all zeros in the sample; "
                                  "remove it")
-    constant = [j for j in range(len(regs)) if spread[j + 1] == 0]
+    constant = [j for j in range(len(regs)) if spread[j + lead] == 0]
     if constant and (intercept or len(constant) > 1):
         j = constant[-1] if not intercept else constant[0]
         what = "it duplicates the intercept" if intercept else "it duplicates another constant"
-        raise SpecificationError(f"regressor '{regs[j]}' is constant ({values[0, j + 1]:g}); "
+        raise SpecificationError(f"regressor '{regs[j]}' is constant ({first[j + lead]:g}); "
                                  f"{what}. Remove it.")
     terms = ([INTERCEPT] if intercept else []) + regs
-    X = np.empty((t_obs, k))
-    if intercept:
-        X[:, 0] = 1.0
-    X[:, int(intercept):] = values[:, 1:]
-    y = np.ascontiguousarray(values[:, 0])
+    X = values[:, :k]                       # a view: the design shares the validated block
+    y = np.ascontiguousarray(values[:, k])
     info.rows_used = t_obs
     info.first, info.last = (index_label(index[0]), index_label(index[-1]))
     horizon = check_horizon(horizon)

@@ -155,12 +155,19 @@ def _autocov_blocks(u: np.ndarray, max_lag: int) -> np.ndarray:
 
 
 def _autocov_diagonal(u: np.ndarray, max_lag: int) -> np.ndarray:
-    """Each column's own C_0..C_L (pair-major (k, L+1)) from one FFT padded to T + L + 1."""
+    """Each column's own C_0..C_L (pair-major (k, L+1)) from one FFT padded to an even length
+    n >= T + L + 1. The power spectrum P is real and even, so its inverse transform is a type-I
+    discrete cosine transform of P divided by n (no complex inverse needed)."""
     t_obs = u.shape[0]
     n_fft = sfft.next_fast_len(t_obs + max_lag + 1, real=True)
+    while n_fft % 2:
+        n_fft = sfft.next_fast_len(n_fft + 1, real=True)
     f = sfft.rfft(np.ascontiguousarray(u.T), n=n_fft, axis=-1, workers=-1)
-    power = f.real**2 + f.imag**2
-    out = sfft.irfft(power, n=n_fft, axis=-1, workers=-1)[:, : max_lag + 1] * (2.0 / t_obs)
+    power = f.real**2
+    power += f.imag**2
+    del f
+    out = sfft.dct(power, type=1, axis=-1, workers=-1, overwrite_x=True)[:, : max_lag + 1]
+    out *= 2.0 / (t_obs * n_fft)
     out[:, 0] *= 0.5
     return np.ascontiguousarray(out)
 
@@ -170,6 +177,8 @@ def _autocov_all_pairs(u: np.ndarray, iu, chunk: int = 8) -> np.ndarray:
     the pairs' cross spectra, a few pairs at a time (bounded memory, contiguous, both cores)."""
     t_obs, k = u.shape
     n_fft = sfft.next_fast_len(2 * t_obs - 1, real=True)
+    while n_fft % 2:
+        n_fft = sfft.next_fast_len(n_fft + 1, real=True)
     f = sfft.rfft(np.ascontiguousarray(u.T), n=n_fft, axis=-1, workers=-1)   # (k, nf)
     fr, fi = np.ascontiguousarray(f.real), np.ascontiguousarray(f.imag)
     del f
@@ -181,13 +190,14 @@ def _autocov_all_pairs(u: np.ndarray, iu, chunk: int = 8) -> np.ndarray:
         n = min(chunk, len(a_idx) - start)
         for i in range(n):
             a, b = a_idx[start + i], b_idx[start + i]
-            # r_ab(j) + r_ab(-j) = irfft(2 Re(F_a conj F_b))[j]
+            # r_ab(j) + r_ab(-j) = irfft(2 Re(F_a conj F_b))[j]; the spectrum is real and
+            # even, so the inverse is a type-I cosine transform divided by n
             np.multiply(fr[a], fr[b], out=spec[i])
             np.multiply(fi[a], fi[b], out=tmp)
             spec[i] += tmp
-        cols = sfft.irfft(spec[:n], n=n_fft, axis=-1, workers=-1)
+        cols = sfft.dct(spec[:n], type=1, axis=-1, workers=-1)
         out[start: start + n] = cols[:, :t_obs]
-    out *= 2.0 / t_obs
+    out *= 2.0 / (t_obs * n_fft)
     out[:, 0] *= 0.5
     return out
 

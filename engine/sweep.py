@@ -153,6 +153,7 @@ def kernel_curves(model, estimators, values) -> dict:
     lags = np.empty((nc, nb), dtype=int)
     status = np.full((nc, nb), "", dtype=object)
     runs = []
+    _fill_caches(model, estimators, b)
     for c, est in enumerate(estimators):
         p = est.params
         kern = get_kernel(p["kernel"])
@@ -168,8 +169,6 @@ def kernel_curves(model, estimators, values) -> dict:
         elif kern.psd:
             # V_ii = T sum_j w_j C_j(z)_ii with z_t = M g_t, the coefficients' influence series:
             # only k autocovariance series are needed, not m(m+1)/2 pairs
-            if not kern.finite_support:
-                model.influence.ensure(model.nobs - 1)
             var = model.nobs * factor * model.influence.kernel_sums(kern, b)
             lg = np.array([kern.lags_used(x, model.nobs) for x in b])
             st = np.full(nb, "", dtype=object)
@@ -185,6 +184,14 @@ def kernel_curves(model, estimators, values) -> dict:
         runs.append([longrun.LongRun(S=None, bandwidth=float(x), lags=int(n_lags),
                                      tuning=float(x)) for x, n_lags in zip(b, lg)])
     return {"std_error": se, "lags": lags, "status": status, "long_runs": runs}
+
+
+def _fill_caches(model, estimators, b) -> None:
+    """A kernel weighting every lag needs the influence series' autocovariances at every lag:
+    fill them first, once (the finite kernels then read the same cache)."""
+    kernels = [get_kernel(e.params["kernel"]) for e in estimators if not e.params["prewhiten"]]
+    if any(k.psd and not k.finite_support for k in kernels):
+        model.influence.ensure(model.nobs - 1)
 
 
 def _loop_curves(model, estimators, values) -> dict:

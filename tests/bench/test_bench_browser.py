@@ -31,6 +31,10 @@ JS_ARM = """
 """
 
 
+def cell(page: Page, grid: str, col: str):
+    return page.locator(f"#{grid} .ag-center-cols-container [col-id='{col}']")
+
+
 def test_slider_latency_on_100k_rows(page: Page, live_server):
     rng = np.random.default_rng(0)
     n = 100_000
@@ -40,21 +44,17 @@ def test_slider_latency_on_100k_rows(page: Page, live_server):
     buf = io.StringIO()
     frame.to_csv(buf, index=False, float_format="%.6f")
     page.goto(live_server)
-    expect(page.locator("#coef-table td[data-dash-column='term']").first).to_have_text(
-        "intercept", timeout=30_000)
+    expect(cell(page, "coef-table", "term").first).to_have_text("intercept", timeout=30_000)
     page.locator("#upload input[type=file]").set_input_files(
         {"name": "big.csv", "mimeType": "text/csv", "buffer": buf.getvalue().encode()})
     expect(page.locator("#upload-message")).to_contain_text("100000 rows", timeout=60_000)
-    expect(page.locator("#coef-table td[data-dash-column='term']")).to_have_text(
-        ["intercept", "x"], timeout=60_000)
+    expect(cell(page, "coef-table", "term")).to_have_text(["intercept", "x"], timeout=60_000)
     expect(page.locator("#sens-graph .js-plotly-plot")).to_be_visible(timeout=60_000)
     # wait until the first sweep, the comparison and the diagnostics are done
-    expect(page.locator("#diag-table td[data-dash-column='test']").first).to_be_visible(
-        timeout=60_000)
-    expect(page.locator("#compare-table td[data-dash-column='estimator']").first).to_be_visible(
-        timeout=60_000)
+    expect(cell(page, "diag-table", "test").first).to_be_visible(timeout=60_000)
+    expect(cell(page, "compare-table", "estimator").first).to_be_visible(timeout=60_000)
     page.wait_for_timeout(2000)
-    thumb = page.locator("#bw-slider [role=slider]")
+    thumb = page.locator("#tune-slider [role=slider]")
     thumb.focus()
     times = []
     for i in range(40):
