@@ -9,7 +9,8 @@ Public API (re-exported as `lagwise`; see README.md):
     sweep = fit.sweep(kernels=["bartlett", "parzen"], bandwidths=range(1, 61))
 """
 
-from .errors import DataError, EstimationError, LagwiseError, SpecificationError
+from .errors import (DataError, EstimationError, LagwiseError, LawUnavailable,
+                     SpecificationError)
 from .data import LoadReport, Table, load_table, transform, TRANSFORMS
 from .kernels import KERNELS, Kernel, get_kernel, register_kernel
 from .laws import EWCLaw, FixedB, Law, Normal, StudentT
@@ -24,7 +25,7 @@ from .compare import compare
 from .diagnostics import DiagnosticReport, diagnose
 
 __all__ = [
-    "DataError", "EstimationError", "LagwiseError", "SpecificationError",
+    "DataError", "EstimationError", "LagwiseError", "LawUnavailable", "SpecificationError",
     "LoadReport", "Table", "load_table", "transform", "TRANSFORMS",
     "KERNELS", "Kernel", "get_kernel", "register_kernel",
     "Law", "Normal", "StudentT", "EWCLaw", "FixedB",

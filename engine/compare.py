@@ -10,7 +10,8 @@ import numpy as np
 import pandas as pd
 
 from .covariance import FAMILIES
-from .errors import LagwiseError
+from .errors import LagwiseError, LawUnavailable
+from .laws import FixedB
 from .inference import infer
 
 COLUMNS = ["estimator", "family", "term", "estimate", "std_error", "t_stat", "p_value", "ci_low",
@@ -41,13 +42,10 @@ def compare(model, level: float = 0.95, reference: str = "auto", kernel=None, ba
         try:
             try:
                 res = infer(model, est, level=level, reference=wanted)
-            except LagwiseError as exc:
-                if wanted != "fixed-b" or "fixed-b" not in str(exc):
-                    raise
-                # fixed-b values exist for some estimators only; the others keep their own law
+            except LawUnavailable as exc:
+                # the law asked for exists for some estimators only; the others keep their own
                 res = infer(model, est, level=level, reference="auto")
-                why = (why + "; " if why else "") + "fixed-b not defined for this estimator: " \
-                    "its own reference law is used"
+                why = (why + "; " if why else "") + f"{exc}: its own reference law is used"
         except LagwiseError as exc:
             for term in model.terms:
                 rows.append({"estimator": label, "family": est.family.name, "term": term,
@@ -62,7 +60,7 @@ def compare(model, level: float = 0.95, reference: str = "auto", kernel=None, ba
         short = lags_short_of_horizon(model, lr)
         if short:
             why = (why + "; " if why else "") + short
-        if ref == "fixed-b" and res.law.key == "fixed-b":
+        if ref == "fixed-b" and isinstance(res.law, FixedB):
             label += ", fixed-b"
         for term, row in res.table.iterrows():
             ok = np.isfinite(row.p_value)

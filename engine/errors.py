@@ -19,3 +19,8 @@ class SpecificationError(LagwiseError, ValueError):
 
 class EstimationError(LagwiseError, ArithmeticError):
     """The computation itself failed (for example a singular long-run covariance)."""
+
+
+class LawUnavailable(SpecificationError):
+    """The reference law asked for does not exist for this estimator (for example fixed-b
+    values for a kernel without a table, or for a family without fixed-b theory)."""

@@ -19,7 +19,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
-from .errors import SpecificationError
+from .errors import LawUnavailable, SpecificationError
 
 #: The reference laws an analyst can ask for, with what each means (the app's picker uses these).
 REQUESTS = {
@@ -248,6 +248,11 @@ def resolve(requested: str, own: Law | None, fixed_b, df_resid: float) -> Law:
     if requested == "t":
         return own if isinstance(own, StudentT) else StudentT(df_resid, "T - k")
     if fixed_b is None:
-        raise SpecificationError("fixed-b critical values exist for kernel estimators only; "
-                                 "choose another reference law for this estimator")
-    return fixed_b()
+        raise LawUnavailable("fixed-b critical values exist for kernel estimators only; "
+                             "choose another reference law for this estimator")
+    try:
+        return fixed_b()
+    except LawUnavailable:
+        raise
+    except SpecificationError as exc:
+        raise LawUnavailable(str(exc)) from None

@@ -273,12 +273,6 @@ def sweep_kernels(model, kernels=("bartlett",), bandwidths=None, small_sample: b
     return sweep(model, ests, bandwidths)
 
 
-def default_bandwidths(nobs: int, upper: int | None = None) -> np.ndarray:
-    """b = 1..upper (default: about T/3, between 24 and 120, never beyond T)."""
-    top = int(min(nobs, upper or max(24, min(nobs // 3, 120))))
-    return np.arange(1, top + 1, dtype=float)
-
-
 # --------------------------------------------------------------------------- flips
 
 @dataclass

@@ -320,7 +320,7 @@ def test_comparison_under_fixed_b_keeps_other_laws():
     rows = comp[comp.term == "x1"].set_index("estimator")
     assert np.isfinite(rows.loc["HC0", "std_error"])
     assert rows.loc["HC0", "reference"].startswith("standard normal")
-    assert "fixed-b not defined" in rows.loc["HC0", "why"]
+    assert "fixed-b critical values exist for kernel estimators only" in rows.loc["HC0", "why"]
     assert rows.loc["Parzen, Andrews (1991) bandwidth", "reference"].startswith("fixed-b")
     assert rows.loc["Tukey-Hanning, Andrews (1991) bandwidth",
                     "reference"].startswith("standard normal")
