@@ -21,7 +21,7 @@ import numpy as np
 
 from . import laws, longrun
 from .bandwidth import RULES, check_bandwidth_setting, resolve_bandwidth, rule_title
-from .errors import SpecificationError
+from .errors import EstimationError, LagwiseError, SpecificationError
 from .kernels import KERNELS, get_kernel
 
 
@@ -143,10 +143,24 @@ class Estimator:
         return self.family.label(self.params, lr)
 
     def long_run(self, model) -> longrun.LongRun:
+        """S for a model: a finite estimate, or a typed error saying why there is none."""
         why = self.family.applies(model)
         if why:
             raise SpecificationError(why)
-        return self.family.long_run(model, **self.params)
+        try:
+            with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+                lr = self.family.long_run(model, **self.params)
+        except LagwiseError:
+            raise
+        except (np.linalg.LinAlgError, FloatingPointError, ZeroDivisionError, OverflowError,
+                ValueError) as exc:
+            raise EstimationError(f"{self.label} could not be computed for this model: "
+                                  f"{' '.join(str(exc).split())}") from None
+        if lr.S is not None and not np.all(np.isfinite(lr.S) | np.isnan(lr.S)):
+            raise EstimationError(f"the {self.label} estimate of S is not finite (the moment "
+                                  "contributions are too large for double precision); rescale "
+                                  "the columns and fit again")
+        return lr
 
     def with_params(self, **changes) -> "Estimator":
         return Estimator(self.family, _validate(self.family, {**self.params, **changes}))

@@ -78,6 +78,47 @@ def default_lags(nobs: int) -> list[int]:
     return sorted({x for x in (1, 2, 4, 6, 12, 24) if x <= top} | {top})
 
 
+def breusch_godfrey(e: np.ndarray, x: np.ndarray, p: int):
+    """Breusch-Godfrey test of autocorrelation of order 1..p: regress e on X and e_{t-1..t-p}
+    (pre-sample residuals set to zero); LM = T R^2 ~ chi-square(p), and the F test of the p lag
+    coefficients with (p, T - k - p) degrees of freedom. Least squares by QR (no T x T work)."""
+    t_obs, k = x.shape
+    lags = np.zeros((t_obs, p))
+    for j in range(1, p + 1):
+        lags[j:, j - 1] = e[:-j]
+    z = np.column_stack([x, lags])
+    coef, *_ = sla.lstsq(z, e, lapack_driver="gelsy", check_finite=False)
+    resid = e - z @ coef
+    constant = any(np.all(x[:, j] == x[0, j]) for j in range(k))
+    tss = float(((e - e.mean()) ** 2).sum()) if constant else float(e @ e)   # R^2 as statsmodels
+    rss = float(resid @ resid)
+    lm = t_obs * (1.0 - rss / tss)
+    df2 = t_obs - k - p
+    f = ((float(e @ e) - rss) / p) / (rss / df2)       # e is orthogonal to X: restricted RSS = e'e
+    return lm, float(stats.chi2.sf(lm, p)), f, float(stats.f.sf(f, p, df2))
+
+
+def portmanteau(e: np.ndarray, lags) -> pd.DataFrame:
+    """Ljung-Box and Box-Pierce statistics for each h in `lags`, from autocorrelations of the
+    demeaned series with divisor T computed by FFT (O(T log T): long series take a fraction of a
+    second). Q_LB(h) = T(T+2) sum_{j<=h} r_j^2/(T-j), Q_BP(h) = T sum_{j<=h} r_j^2, chi-square(h)."""
+    from .moments import MomentCache
+    x = np.asarray(e, dtype=float)
+    x = x - x.mean()
+    t_obs = len(x)
+    top = int(max(lags))
+    cache = MomentCache(x[:, None], diagonal_only=True)
+    gam = cache.packed(top)[:, 0] * np.r_[1.0, np.full(top, 0.5)]   # C_j = 2 gamma_j for j >= 1
+    r = gam[1:] / gam[0] if gam[0] > 0 else np.full(top, np.nan)
+    j = np.arange(1, top + 1)
+    lb = t_obs * (t_obs + 2) * np.cumsum(r**2 / (t_obs - j))
+    bp = t_obs * np.cumsum(r**2)
+    h = np.asarray(sorted(int(v) for v in lags))
+    return pd.DataFrame({"lb_stat": lb[h - 1], "lb_pvalue": stats.chi2.sf(lb[h - 1], h),
+                         "bp_stat": bp[h - 1], "bp_pvalue": stats.chi2.sf(bp[h - 1], h)},
+                        index=pd.Index(h, name="lag"))
+
+
 def durbin_watson_exact(fit, d: float) -> float:
     """P(d <= d_obs) under i.i.d. normal errors: d = e'Ae/e'e with A the first-difference matrix,
     so P(d <= c) = P(sum (lambda_i - c) z_i^2 <= 0) with lambda_i the T-k eigenvalues of
@@ -148,7 +189,6 @@ def diagnose(fit, lags=None, arch_lags=None, exact_dw: bool = True) -> Diagnosti
         lag_list = sorted({min(x, cap) for x in lag_list})
     top = lag_list[-1]
     e = fit.resid
-    sm_res = sm.OLS(fit.y, fit.X).fit()
     rows = []
 
     def add(name, stat, df, p, null, method, df2=np.nan):
@@ -156,7 +196,7 @@ def diagnose(fit, lags=None, arch_lags=None, exact_dw: bool = True) -> Diagnosti
                      "p_value": float(p), "null": null, "method": method})
 
     with _Section("Ljung-Box / Box-Pierce", notes):
-        lb = smd.acorr_ljungbox(e, lags=lag_list, boxpierce=True, return_df=True)
+        lb = portmanteau(e, lag_list)
         for h, r in lb.iterrows():
             add(f"Ljung-Box Q({h})", r.lb_stat, h, r.lb_pvalue,
                 f"no residual autocorrelation up to lag {h}",
@@ -167,7 +207,7 @@ def diagnose(fit, lags=None, arch_lags=None, exact_dw: bool = True) -> Diagnosti
                 "T times the sum of squared autocorrelations, chi-square(h) (Box & Pierce 1970)")
     for p in sorted({1, min(4, top), top}):
         with _Section(f"Breusch-Godfrey({p})", notes):
-            lm, lmp, f, fp = smd.acorr_breusch_godfrey(sm_res, nlags=p, result_object=False)
+            lm, lmp, f, fp = breusch_godfrey(e, fit.X, p)
             add(f"Breusch-Godfrey LM({p})", lm, p, lmp,
                 f"no autocorrelation of order 1..{p}",
                 "T R^2 of e on X and p lagged residuals (pre-sample residuals set to 0), "

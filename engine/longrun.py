@@ -143,87 +143,84 @@ def kernel(model, kernel: Kernel, bandwidth: float, *, small_sample=False, repai
 
 # --------------------------------------------------------------------------- parametric (VAR)
 
-def _var_design(v: np.ndarray, max_order: int):
-    """Common sample t = max_order..T-1: Y and the stacked lags [v_{t-1}, ..., v_{t-p}]."""
-    t_obs = v.shape[0]
-    y = v[max_order:]
-    z = np.hstack([v[max_order - i: t_obs - i] for i in range(1, max_order + 1)]) if max_order \
-        else np.zeros((t_obs, 0))
-    return y, z
-
-
 def var_order_limit(nobs: int, m: int) -> int:
     """The largest VAR order the sample supports for m moment series."""
     return max((nobs - 1) // (m + 1), 0)
 
 
+#: The default largest VAR order is int(T^(1/3)), but at most this.
+VAR_DEFAULT_MAX_ORDER = 24
+
+
+def _lag_products(v: np.ndarray, p: int):
+    """Cross products of a VAR(p) regression on the common sample t = p..T-1, without forming
+    the T x mp matrix of lags: Z'Z, Z'Y and Y'Y accumulated over row chunks (bounded memory)."""
+    t_obs, m = v.shape
+    width = m * p
+    zz, zy, yy = np.zeros((width, width)), np.zeros((width, m)), np.zeros((m, m))
+    step = max(1, int(4_000_000 // max(width, 1)))
+    for a in range(p, t_obs, step):
+        b = min(a + step, t_obs)
+        y = v[a:b]
+        yy += y.T @ y
+        if p:
+            z = np.hstack([v[a - i: b - i] for i in range(1, p + 1)])
+            zz += z.T @ z
+            zy += z.T @ y
+    return zz, zy, yy
+
+
 def var_parametric(model, *, max_order=None, criterion="bic", selection="equation") -> LongRun:
-    """VAR-HAC (den Haan & Levin 1997): fit a VAR to the moment contributions, order by AIC/BIC
-    per equation (or jointly), and use S = (I - sum A_i)^-1 Sigma_e (I - sum A_i)^-1'.
+    """VAR-HAC (den Haan & Levin 1997): fit a VAR to the moment contributions by least squares,
+    order by AIC/BIC per equation (or jointly), and use S = (I - sum A_i)^-1 Sigma_e (I - sum
+    A_i)^-1'.
 
     criterion: "bic" (ln T' penalty), "aic" (2), or "fixed" (exactly max_order lags; 1 is the
     simple VAR(1) parametric correction). Information criteria are
-    ln(sigma_a^2(p)) + penalty * (m p) / T' on a common sample of T' = T - max_order rows.
+    ln(sigma_a^2(p)) + penalty * (m p) / T' on a common sample of T' = T - max_order rows. The
+    regressions use the cross products of the lagged series (one Cholesky factor gives every
+    nested order), so memory stays bounded for long series; the series are scaled to unit
+    variance first. max_order defaults to int(T^(1/3)), at most VAR_DEFAULT_MAX_ORDER.
     """
     v = model.contributions
     t_obs, k = v.shape
     if max_order is None:
-        max_order = int(t_obs ** (1.0 / 3.0))
+        max_order = min(int(t_obs ** (1.0 / 3.0)), VAR_DEFAULT_MAX_ORDER)
     max_order = int(max_order)
     limit = var_order_limit(t_obs, k)
     if max_order < 0 or max_order > limit:
         raise EstimationError(f"VAR order {max_order} is too long for T = {t_obs} and {k} "
                               f"moment series (at most {limit})")
-    y, z = _var_design(v, max_order)
-    t_eff = y.shape[0]
-    penalty = {"bic": np.log(t_eff), "aic": 2.0}.get(criterion)
-    orders = np.full(k, max_order)
-    if criterion != "fixed":
-        # one QR of all lags: the residual sum of squares on the first k*p columns is
-        # ||y||^2 - sum of the first k*p squared entries of Q'y (nested regressions)
-        qty = sla.qr(z, mode="economic")[0].T @ y if max_order else np.zeros((0, k))
-        total = (y**2).sum(axis=0)
-        explained = np.vstack([np.zeros(k), np.cumsum(qty**2, axis=0)])[:: k] \
-            if max_order else np.zeros((1, k))
-        rss = np.maximum(total[None, :] - explained, 1e-300)          # (max_order + 1, k)
-        p_grid = np.arange(max_order + 1)
-        if selection == "equation":
-            ic = np.log(rss / t_eff) + penalty * k * p_grid[:, None] / t_eff
-            orders = ic.argmin(axis=0)
-        else:
-            ic = np.empty(max_order + 1)
-            for p in p_grid:
-                zp = z[:, : k * p]
-                resid = y - zp @ np.linalg.lstsq(zp, y, rcond=None)[0] if p else y
-                ic[p] = np.linalg.slogdet(resid.T @ resid / t_eff)[1] + penalty * k * k * p / t_eff
-            orders = np.full(k, int(ic.argmin()))
-    coef = np.zeros((k * max_order, k))          # column a: equation a
-    resid = np.empty_like(y)
+    scale = np.sqrt((v**2).mean(axis=0))
+    if not np.isfinite(scale).all() or (scale == 0).any():
+        raise EstimationError("a moment contribution is zero or not finite throughout; "
+                              "VAR-HAC is not available")
+    vs = v / scale
+    p = max_order
+    t_eff = t_obs - p
+    zz, zy, yy = _lag_products(vs, p)
+    try:
+        r = sla.cholesky(zz, lower=False) if p else np.zeros((0, 0))
+    except (np.linalg.LinAlgError, ValueError):
+        raise EstimationError("the lagged moment contributions are collinear, so the VAR cannot "
+                              "be fitted; use a kernel estimator or EWC") from None
+    c = sla.solve_triangular(r, zy, trans="T") if p else np.zeros((0, k))    # R^-T Z'Y
+    orders = _var_orders(c, yy, k, p, t_eff, criterion, selection)
+    coef = np.zeros((k * p, k))          # column a: equation a
     for a in range(k):
-        p = int(orders[a])
-        if p:
-            zp = z[:, : k * p]
-            coef[: k * p, a] = np.linalg.lstsq(zp, y[:, a], rcond=None)[0]
-        resid[:, a] = y[:, a] - z @ coef[:, a] if max_order else y[:, a]
-    sigma = resid.T @ resid / t_eff
-    a_sum = sum(coef[k * i: k * (i + 1)].T for i in range(max_order)) if max_order \
-        else np.zeros((k, k))
-    p_max = int(orders.max()) if k else 0
-    if p_max:
-        companion = np.zeros((k * p_max, k * p_max))
-        companion[:k] = coef[: k * p_max].T
-        companion[k:, :-k] = np.eye(k * (p_max - 1))
-        root = float(np.abs(np.linalg.eigvals(companion)).max())
-        if root >= 0.999:
-            raise EstimationError(f"the VAR fitted to the moment contributions has a root of "
-                                  f"modulus {root:.3f} (non-stationary); the parametric long-run "
-                                  "variance does not exist. Use a kernel estimator or EWC.")
+        q = int(orders[a]) * k
+        if q:
+            coef[:q, a] = sla.solve_triangular(r[:q, :q], c[:q, a])
+    sigma = (yy - coef.T @ zy - zy.T @ coef + coef.T @ zz @ coef) / t_eff
+    a_sum = sum(coef[k * i: k * (i + 1)].T for i in range(p)) if p else np.zeros((k, k))
+    _check_var_stationary(coef, orders, k)
     try:
         inv = np.linalg.inv(np.eye(k) - a_sum)
     except np.linalg.LinAlgError:
         raise EstimationError("the VAR fitted to the moment contributions has a unit root "
                               "(I - sum A is singular); use a kernel estimator or EWC") from None
-    s_w = model.to_working(inv @ sigma @ inv.T)
+    s_scaled = inv @ sigma @ inv.T
+    s_w = model.to_working(s_scaled * np.outer(scale, scale))
     names = model.moment_names
     if criterion == "fixed":
         how = f"VAR({max_order}), order fixed"
@@ -233,8 +230,44 @@ def var_parametric(model, *, max_order=None, criterion="bic", selection="equatio
                + f" (largest order tried {max_order})")
     else:
         how = f"VAR order by {criterion.upper()} (joint): {int(orders[0])} (largest tried {max_order})"
+    p_max = int(orders.max()) if k else 0
     return LongRun(S=0.5 * (s_w + s_w.T), how=how, notes=[how],
                    tuning=float(max_order if criterion == "fixed" else p_max))
+
+
+def _var_orders(c, yy, k, p, t_eff, criterion, selection) -> np.ndarray:
+    """The order of each equation: p when fixed, else the minimiser of the criterion over nested
+    orders 0..p (residual sums of squares from the Cholesky-rotated cross products)."""
+    if criterion == "fixed" or p == 0:
+        return np.full(k, p)
+    penalty = {"bic": np.log(t_eff), "aic": 2.0}[criterion]
+    explained = np.vstack([np.zeros(k), np.cumsum(c**2, axis=0)])[::k]       # (p + 1, k)
+    p_grid = np.arange(p + 1)
+    if selection == "equation":
+        rss = np.maximum(np.diag(yy)[None, :] - explained, 1e-300)
+        ic = np.log(rss / t_eff) + penalty * k * p_grid[:, None] / t_eff
+        return ic.argmin(axis=0)
+    ic = np.empty(p + 1)
+    for q in p_grid:
+        cq = c[: k * q]
+        resid = (yy - cq.T @ cq) / t_eff
+        sign, logdet = np.linalg.slogdet(resid)
+        ic[q] = (logdet if sign > 0 else np.inf) + penalty * k * k * q / t_eff
+    return np.full(k, int(ic.argmin()))
+
+
+def _check_var_stationary(coef, orders, k) -> None:
+    p_max = int(orders.max()) if k else 0
+    if not p_max:
+        return
+    companion = np.zeros((k * p_max, k * p_max))
+    companion[:k] = coef[: k * p_max].T
+    companion[k:, :-k] = np.eye(k * (p_max - 1))
+    root = float(np.abs(np.linalg.eigvals(companion)).max())
+    if root >= 0.999:
+        raise EstimationError(f"the VAR fitted to the moment contributions has a root of "
+                              f"modulus {root:.3f} (non-stationary); the parametric long-run "
+                              "variance does not exist. Use a kernel estimator or EWC.")
 
 
 # --------------------------------------------------------------------------- EWC

@@ -40,6 +40,10 @@ RANK_TOLERANCE = 1e-10
 #: Above this condition number of the column-scaled design, least squares uses pivoted
 #: Householder QR instead of the (much faster) two-pass Cholesky QR.
 CHOLESKY_QR_MAX_CONDITION = 1e7
+#: Columns whose largest absolute value exceeds this (or whose nonzero values are all below its
+#: inverse) are refused: sums of their squares over the sample would overflow (underflow) double
+#: precision, and every standard error built from them would be infinite (zero).
+SAFE_MAGNITUDE = 1e120
 #: Below this condition number one Cholesky QR pass suffices (see `_cholesky_qr2`).
 ONE_PASS_MAX_CONDITION = 1e3
 
@@ -387,6 +391,21 @@ def column_ranges(values: np.ndarray):
     return lo, hi
 
 
+def check_magnitudes(cols, lo, hi, values, lead: int = 0) -> None:
+    """Refuse columns whose squares over the sample cannot be represented (see SAFE_MAGNITUDE),
+    naming the column and what to do."""
+    big = np.maximum(np.abs(lo), np.abs(hi))[lead:]
+    for col, m, j in zip(cols, big, range(lead, lead + len(cols))):
+        if m > SAFE_MAGNITUDE:
+            raise SpecificationError(f"column '{col}' holds values as large as {m:.3g}: sums of "
+                                     "their squares overflow double precision. Rescale it (for "
+                                     "example divide by a power of ten) and fit again.")
+        if 0 < m < 1.0 / SAFE_MAGNITUDE:
+            raise SpecificationError(f"column '{col}' holds values no larger than {m:.3g}: their "
+                                     "squares underflow double precision. Rescale it (for "
+                                     "example multiply by a power of ten) and fit again.")
+
+
 def index_label(value):
     """Dates without a midnight time part, other labels as plain Python values."""
     if isinstance(value, pd.Timestamp) and value == value.normalize():
@@ -522,6 +541,7 @@ def fit_ols(data, response: str, regressors=None, intercept: bool = True,
         raise SpecificationError(f"{k} coefficients but only {t_obs} usable rows: the model needs "
                                  "more observations than coefficients (T > k)")
     lo, hi = column_ranges(values)
+    check_magnitudes(cols, lo, hi, values, lead=int(intercept))
     spread, first = hi - lo, values[0]
     if spread[k] == 0:
         raise SpecificationError(f"response '{response}' is constant ({first[k]:g}): "
