@@ -10,10 +10,13 @@ fit's cached autocovariances (engine: `infer`) and patches the marker on the sen
 from __future__ import annotations
 
 import base64
+import functools
+import logging
 import warnings
 
 import numpy as np
 from dash import ALL, Input, Output, Patch, State, ctx, html, no_update
+from dash.exceptions import PreventUpdate
 
 from .. import engine
 from ..engine.covariance import FAMILIES
@@ -24,21 +27,46 @@ from .layout import estimator_controls, rule_options
 from .state import MAX_UPLOAD_BYTES, STORE, content_hash, key_for, spec_hash
 
 CALLBACKS: list = []
+LOG = logging.getLogger("lagwise")
 
 
-def callback(*args, **kwargs):
-    """Record a module-level callback; `register` wires it to an app."""
+def callback(*args, message: int | None = None, **kwargs):
+    """Record a module-level callback; `register` wires it to an app. `message`: the position
+    of the output that shows a message when a request cannot be handled (a malformed payload or
+    an unexpected failure): it gets the message, the other outputs stay as they are, and the
+    server never answers with an error page."""
     def deco(fn):
-        CALLBACKS.append((args, kwargs, fn))
+        CALLBACKS.append((args, kwargs, guarded(fn, args, message)))
         return fn
     return deco
 
 
+def guarded(fn, args, message):
+    n_out = sum(isinstance(a, Output) for a in args)
+
+    @functools.wraps(fn)
+    def run(*values):
+        try:
+            return fn(*values)
+        except PreventUpdate:
+            raise
+        except Exception as exc:  # noqa: BLE001 - a message, never a traceback or an HTTP 500
+            LOG.warning("callback %s could not handle a request: %s", fn.__name__, exc)
+            if message is None:
+                raise PreventUpdate from None
+            text = V.error_box("this request could not be handled; reload the page if the "
+                               "problem persists")
+            if n_out == 1:
+                return text
+            out = [no_update] * n_out
+            out[message] = text
+            return tuple(out)
+    return run
+
+
 def register(app):
-    for args, kwargs, fn in CALLBACKS:
-        app.callback(*args, **kwargs)(fn)
     from . import exports  # noqa: F401 - its callbacks are recorded on import
-    for args, kwargs, fn in exports.CALLBACKS:
+    for args, kwargs, fn in CALLBACKS + exports.CALLBACKS:
         app.callback(*args, **kwargs)(fn)
 
 
@@ -154,7 +182,8 @@ def no_model_message(session, key) -> str:
 @callback(Output("dataset-key", "data"), Output("upload-message", "children"),
           Output("upload", "contents"), Output("horizon", "value", allow_duplicate=True),
           Input("upload", "contents"), Input("load-demo", "n_clicks"),
-          State("upload", "filename"), State("session", "data"), prevent_initial_call=True)
+          State("upload", "filename"), State("session", "data"), prevent_initial_call=True,
+          message=1)
 def on_upload(contents, _demo, filename, session):
     """A new file replaces the data and resets what belonged to the old one (the horizon);
     the file's bytes are not kept in the browser once the server has them."""
@@ -192,7 +221,7 @@ def engine_demo():
           Output("tf-column", "options"), Output("response", "value"),
           Output("regressors", "value"), Output("window", "max"), Output("window", "value"),
           Input("dataset-key", "data"), State("session", "data"), State("response", "value"),
-          State("regressors", "value"), State("initial-spec", "data"))
+          State("regressors", "value"), State("initial-spec", "data"), message=0)
 def on_dataset(key, session, response, regressors, initial):
     table = stored(session, key)
     if table is None:
@@ -220,7 +249,7 @@ def on_dataset(key, session, response, regressors, initial):
           Output("horizon", "value", allow_duplicate=True),
           Input("tf-add", "n_clicks"), State("tf-kind", "value"), State("tf-column", "value"),
           State("tf-p", "value"), State("dataset-key", "data"), State("session", "data"),
-          prevent_initial_call=True)
+          prevent_initial_call=True, message=1)
 def on_transform(_n, kind, column, p, key, session):
     table = stored(session, key)
     if table is None or not column:
@@ -242,7 +271,7 @@ def on_transform(_n, kind, column, p, key, session):
           Output("window-text", "children"), Output("horizon", "value"),
           Input("dataset-key", "data"), Input("response", "value"), Input("regressors", "value"),
           Input("intercept", "value"), Input("horizon", "value"), Input("window", "value"),
-          State("focus", "value"), State("session", "data"))
+          State("focus", "value"), State("session", "data"), message=1)
 def on_spec(key, response, regressors, intercept, horizon, window, focus, session):
     table = stored(session, key)
     if table is None or not isinstance(response, str) or not response:
@@ -336,7 +365,8 @@ INFERENCE_INPUTS = [Input("fit-key", "data"), Input("est-name", "value"),
           Output("tune-rule", "value"), Output("tune-slider", "value"),
           Output("compare-shown", "data"),
           *INFERENCE_INPUTS, State({"type": "est-param", "name": ALL}, "id"),
-          State("session", "data"), State("compare-shown", "data"), prevent_initial_call=True)
+          State("session", "data"), State("compare-shown", "data"), prevent_initial_call=True,
+          message=1)
 def on_inference(fkey, name, values, rule, slider, reference, level, focus, ids, session,
                  shown):
     """One round trip per slider move. The rule and the slider are kept in step here: a rule
@@ -413,7 +443,7 @@ def on_marker(slider):
           Input("focus", "value"), Input("chart-mode", "value"), Input("est-name", "value"),
           Input({"type": "est-param", "name": ALL}, "value"), Input("tune-rule", "value"),
           State({"type": "est-param", "name": ALL}, "id"), State("tune-slider", "value"),
-          State("session", "data"))
+          State("session", "data"), message=1)
 def on_sensitivity(fkey, reference, level, focus, mode, name, values, rule, ids, slider,
                    session):
     model = stored(session, fkey)
@@ -433,10 +463,11 @@ def on_sensitivity(fkey, reference, level, focus, mode, name, values, rule, ids,
         fig = F.sensitivity_figure(sweep, focus, mode or "t", level, ref, slider,
                                    _current_curve(sweep, est) if sweep.family is est.family
                                    else None, rule_marks(session, fkey, model, est, sweep),
-                                   reference_lines=lines)
+                                   reference_lines=lines, horizon=model.horizon)
         flips = [html.Li(engine.significance_flip(model, focus, level=level, reference=ref,
                                                   sweep_result=sweep, curve=c).sentence())
                  for c in range(len(sweep.labels))]
+        flips = V.flagged_points_note(sweep) + flips
         comp = comparison_for(session, fkey, model, level, reference)
     except engine.LagwiseError as exc:
         return F.empty_figure(str(exc)), V.error_box(str(exc)), F.empty_figure("")
@@ -449,7 +480,8 @@ def on_sensitivity(fkey, reference, level, focus, mode, name, values, rule, ids,
 @callback(Output("resid-graph", "figure"), Output("acf-graph", "figure"),
           Output("scatter-graph", "figure"), Output("score-graph", "figure"),
           Output("diag-table", "rowData"), Output("diag-reading", "children"),
-          Output("acf-bands", "children"), Input("fit-key", "data"), State("session", "data"))
+          Output("acf-bands", "children"), Input("fit-key", "data"), State("session", "data"),
+          message=5)
 def on_diagnostics(fkey, session):
     model = stored(session, fkey)
     if model is None:

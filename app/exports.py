@@ -14,7 +14,8 @@ from .. import engine
 from ..engine.export import (FORMATS, SETTINGS_VERSION, load_settings, render,
                              settings_json)
 from . import views as V
-from .callbacks import (comparison_for, diagnostics_for, make_estimator, param_values, stored)
+from .callbacks import (comparison_for, diagnostics_for, guarded, make_estimator, param_values,
+                        stored)
 from .layout import CHART_FORMATS
 from .state import STORE, key_for, spec_hash
 
@@ -31,9 +32,9 @@ VIEW_STATE = [State("session", "data"), State("fit-key", "data"), State("est-nam
               State("level", "value"), State("focus", "value")]
 
 
-def callback(*args, **kwargs):
+def callback(*args, message: int | None = None, **kwargs):
     def deco(fn):
-        CALLBACKS.append((args, kwargs, fn))
+        CALLBACKS.append((args, kwargs, guarded(fn, args, message)))
         return fn
     return deco
 
@@ -146,7 +147,7 @@ def on_report(_n, *states):
           Output("settings-message", "children"), Input("save-settings", "n_clicks"),
           State("dataset-key", "data"), State("response", "value"), State("regressors", "value"),
           State("intercept", "value"), State("horizon", "value"), State("window", "value"),
-          State("chart-mode", "value"), *VIEW_STATE, prevent_initial_call=True)
+          State("chart-mode", "value"), *VIEW_STATE, prevent_initial_call=True, message=1)
 def on_save(_n, dkey, response, regressors, intercept, horizon, window, mode, session, fkey,
             name, values, ids, rule, slider, reference, level, focus):
     table = stored(session, dkey)
@@ -176,7 +177,7 @@ SETTINGS_OUTPUTS = [Output("settings-message", "children", allow_duplicate=True)
 
 @callback(*SETTINGS_OUTPUTS, Input("load-settings", "contents"), Input("pending-settings", "data"),
           State("load-settings", "filename"), State("dataset-key", "data"),
-          State("session", "data"), prevent_initial_call="initial_duplicate")
+          State("session", "data"), prevent_initial_call="initial_duplicate", message=0)
 def on_load_settings(contents, pending, filename, dkey, session):
     """Apply a settings record (uploaded, or given to `lagwise serve --settings`): validated as
     a whole first (a bad file changes nothing), then its transforms are replayed on the current

@@ -57,13 +57,14 @@ def _finite_range(values: np.ndarray, keep: np.ndarray):
 def sensitivity_figure(sweep, term: str, mode: str = "t", level: float = 0.95,
                        reference: str = "normal", current: float | None = None,
                        current_curve: int | None = 0, marks=None,
-                       reference_lines=None) -> go.Figure:
+                       reference_lines=None, horizon: int | None = None) -> go.Figure:
     """t statistic (mode "t"), standard error ("se") or interval ("ci") of `term` along the
     sweep's tuning axis, one line per curve; critical values under `reference` (a curve where
     they vary along the axis); automatic choices marked; the current value as the first layout
     shape (a slider move only patches its x). Points where S was repaired or is not PSD are
     drawn hollow, unavailable ones leave a gap, and the y axis keeps to the ordinary points.
-    reference_lines: [(label, value)] horizontal lines (e.g. an estimator without an axis)."""
+    reference_lines: [(label, value)] horizontal lines (e.g. an estimator without an axis).
+    horizon: an overlapping response's h; bandwidths whose lags fall short of h - 1 are shaded."""
     j = sweep.terms.index(term)
     cv = sweep.critical_values(level, reference)
     fig = go.Figure()
@@ -78,6 +79,11 @@ def sensitivity_figure(sweep, term: str, mode: str = "t", level: float = 0.95,
         fig.add_annotation(x=0, xref="paper", y=value, showarrow=False, xanchor="left",
                            yanchor="bottom", text=label, font={"size": 11, "color": INK})
     _add_marks(fig, sweep, j, mode, cv, marks)
+    if horizon and horizon > 1 and sweep.axis.symbol == "b" and sweep.values[0] <= horizon - 1:
+        fig.add_vrect(x0=sweep.values[0], x1=horizon - 1, fillcolor="rgba(29,39,51,0.06)",
+                      line_width=0, annotation_text=f"fewer than h - 1 = {horizon - 1} lags",
+                      annotation_position="top left",
+                      annotation_font={"size": 10, "color": MUTED})
     rng = _finite_range(np.concatenate([a for a, _ in shown]),
                         np.concatenate([k for _, k in shown]))
     if rng is not None:

@@ -88,6 +88,17 @@ def _protect(app: Dash, hosts: set[str]) -> None:
                             mimetype="text/plain")
         return None
 
+    @server.errorhandler(Exception)
+    def _malformed(exc):
+        """A request the app cannot handle (a malformed callback payload from a script) gets a
+        plain message and status 400, never a stack trace or a 500 page."""
+        from werkzeug.exceptions import HTTPException
+        if isinstance(exc, HTTPException):
+            return exc
+        logging.getLogger("lagwise").warning("request not handled: %s", exc)
+        return Response("this request could not be handled by Lagwise\n", status=400,
+                        mimetype="text/plain")
+
     @server.after_request
     def _headers(response):
         response.headers.setdefault("Content-Security-Policy", _csp(app))

@@ -224,6 +224,17 @@ def flip_line(flip) -> str:
             f"the conclusion changes {times(len(flip.changes))} along the axis.")
 
 
+def flagged_points_note(sweep) -> list:
+    """A line under the chart for each kind of flagged point it draws hollow."""
+    from ..engine.sweep import STATUS_TEXT
+    out = []
+    for status in sorted({x for x in sweep.status.ravel() if x}):
+        curves = [lab for lab, row in zip(sweep.labels, sweep.status) if (row == status).any()]
+        out.append(html.Li(f"Hollow points ({', '.join(curves)}): {STATUS_TEXT[status]}; the "
+                           "vertical axis keeps to the other points.", className="lw-flag"))
+    return out
+
+
 def error_box(text: str):
     return html.Div(text, className="lw-error", role="alert")
 

@@ -62,6 +62,10 @@ def compare(model, level: float = 0.95, reference: str = "auto", kernel=None, ba
             why = (why + "; " if why else "") + short
         if ref == "fixed-b" and isinstance(res.law, FixedB):
             label += ", fixed-b"
+        mc = res.law.mc_error(level)
+        if mc is not None:
+            why = (why + "; " if why else "") + \
+                f"simulated critical value {res.critical_value:.3f} (Monte Carlo s.e. {mc:.3f})"
         for term, row in res.table.iterrows():
             ok = np.isfinite(row.p_value)
             rows.append({"estimator": label, "family": est.family.name, "term": term,

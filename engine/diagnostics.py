@@ -57,8 +57,12 @@ class DiagnosticReport:
         out = []
         for _, r in self.tests.iterrows():
             df = "" if pd.isna(r.df) else f", df {r.df:g}"
-            p = "<=0.001" if r.p_value <= 0.001 else f"{r.p_value:.3f}"
-            out.append(f"  {r.test:<34} {r.statistic:>10.4g}{df:<12} p = {p:<7} H0: {r.null}")
+            if not pd.isna(r.df2):
+                df = f", df ({r.df:g}, {r.df2:g})"
+            p = "n/a" if pd.isna(r.p_value) else (
+                "<0.001" if r.p_value < 0.001 else f"{r.p_value:.3f}")
+            p = p if p.startswith("<") else f"= {p}"
+            out.append(f"  {r.test:<34} {r.statistic:>10.4g}{df:<16} p {p:<8} H0: {r.null}")
         out.append("")
         out += [f"  reading: {s}" for s in self.reading]
         out += [f"  note: {n}" for n in self.notes]
@@ -170,94 +174,133 @@ def _white_no_cross(resid, X):
 
 
 def diagnose(fit, lags=None, arch_lags=None, exact_dw: bool = True) -> DiagnosticReport:
-    """Residual and score diagnostics for an OLSFit (see module docstring)."""
-    import statsmodels.api as sm
-    from statsmodels.stats import diagnostic as smd
-    from statsmodels.stats.stattools import durbin_watson
-    from statsmodels.tsa.stattools import acf, pacf
-
+    """Residual and moment diagnostics for a least-squares fit (see module docstring). Every
+    statistic is finite or left out with a note saying why; no library warning or exception
+    escapes."""
     _check(fit)
     t_obs = fit.nobs
     if t_obs < MIN_T:
         raise EstimationError(f"residual diagnostics need at least {MIN_T} observations "
                               f"(T = {t_obs})")
-    notes = []
+    notes: list[str] = []
     lag_list = default_lags(t_obs) if lags is None else sorted({int(x) for x in np.atleast_1d(lags)})
     cap = max(1, t_obs // 5)
     if lag_list[-1] > cap:
         notes.append(f"lags capped at T/5 = {cap} (T = {t_obs})")
         lag_list = sorted({min(x, cap) for x in lag_list})
-    top = lag_list[-1]
-    e = fit.resid
-    rows = []
+    rows: list[dict] = []
+    with warnings.catch_warnings(), np.errstate(all="ignore"):
+        warnings.simplefilter("ignore")
+        _autocorrelation_tests(fit, lag_list, exact_dw, rows, notes)
+        _heteroskedasticity_tests(fit, lag_list[-1], arch_lags, rows, notes)
+        tests = _finite_rows(rows, notes)
+        acf_df, pacf_df, bands, score_acf = _correlograms(fit, lag_list[-1], notes)
+    from .bandwidth import select_bandwidth
+    andrews = select_bandwidth(fit, "bartlett", "andrews")
+    persistence = pd.DataFrame({"rho1": score_acf.iloc[0]})
+    reading = _reading(tests, acf_df, persistence, andrews, fit)
+    return DiagnosticReport(tests=tests, acf=acf_df, pacf=pacf_df, bands=bands,
+                            score_acf=score_acf, persistence=persistence.assign(
+                                andrews_bartlett_b=andrews.b), reading=reading, notes=notes)
 
-    def add(name, stat, df, p, null, method, df2=np.nan):
-        rows.append({"test": name, "statistic": float(stat), "df": df, "df2": df2,
-                     "p_value": float(p), "null": null, "method": method})
 
+def _row(rows, name, stat, df, p, null, method, df2=np.nan):
+    rows.append({"test": name, "statistic": float(stat), "df": df, "df2": df2,
+                 "p_value": float(p), "null": null, "method": method})
+
+
+def _finite_rows(rows, notes) -> pd.DataFrame:
+    """Rows whose statistic or p-value is not finite are left out, each with a note (the
+    Durbin-Watson p-value may be absent by design, said in its method)."""
+    kept = []
+    for r in rows:
+        p_ok = np.isfinite(r["p_value"]) or r["test"] == "Durbin-Watson"
+        if np.isfinite(r["statistic"]) and p_ok and (not np.isfinite(r["p_value"])
+                                                     or 0 <= r["p_value"] <= 1):
+            kept.append(r)
+        else:
+            notes.append(f"{r['test']}: not available for this fit (the statistic is not a "
+                         "finite number: the residuals are degenerate)")
+    return pd.DataFrame(kept, columns=["test", "statistic", "df", "df2", "p_value", "null",
+                                       "method"])
+
+
+def _autocorrelation_tests(fit, lag_list, exact_dw, rows, notes) -> None:
+    from statsmodels.stats.stattools import durbin_watson
+    e, t_obs, top = fit.resid, fit.nobs, lag_list[-1]
     with _Section("Ljung-Box / Box-Pierce", notes):
         lb = portmanteau(e, lag_list)
         for h, r in lb.iterrows():
-            add(f"Ljung-Box Q({h})", r.lb_stat, h, r.lb_pvalue,
-                f"no residual autocorrelation up to lag {h}",
-                "T(T+2) sum of squared autocorrelations / (T-j), chi-square(h) (Ljung & Box 1978)")
+            _row(rows, f"Ljung-Box Q({h})", r.lb_stat, h, r.lb_pvalue,
+                 f"no residual autocorrelation up to lag {h}",
+                 "T(T+2) sum of squared autocorrelations / (T-j), chi-square(h) "
+                 "(Ljung & Box 1978)")
         for h, r in lb.iterrows():
-            add(f"Box-Pierce Q({h})", r.bp_stat, h, r.bp_pvalue,
-                f"no residual autocorrelation up to lag {h}",
-                "T times the sum of squared autocorrelations, chi-square(h) (Box & Pierce 1970)")
+            _row(rows, f"Box-Pierce Q({h})", r.bp_stat, h, r.bp_pvalue,
+                 f"no residual autocorrelation up to lag {h}",
+                 "T times the sum of squared autocorrelations, chi-square(h) (Box & Pierce 1970)")
     for p in sorted({1, min(4, top), top}):
         with _Section(f"Breusch-Godfrey({p})", notes):
             lm, lmp, f, fp = breusch_godfrey(e, fit.X, p)
-            add(f"Breusch-Godfrey LM({p})", lm, p, lmp,
-                f"no autocorrelation of order 1..{p}",
-                "T R^2 of e on X and p lagged residuals (pre-sample residuals set to 0), "
-                "chi-square(p)")
-            add(f"Breusch-Godfrey F({p})", f, p, fp, f"no autocorrelation of order 1..{p}",
-                "F test of the p lagged residuals in the same regression",
-                df2=float(t_obs - fit.k - p))
+            _row(rows, f"Breusch-Godfrey LM({p})", lm, p, lmp,
+                 f"no autocorrelation of order 1..{p}",
+                 "T R^2 of e on X and p lagged residuals (pre-sample residuals set to 0), "
+                 "chi-square(p)")
+            _row(rows, f"Breusch-Godfrey F({p})", f, p, fp, f"no autocorrelation of order 1..{p}",
+                 "F test of the p lagged residuals in the same regression",
+                 df2=float(t_obs - fit.k - p))
     with _Section("Durbin-Watson", notes):
         dw = float(durbin_watson(e))
         if exact_dw and t_obs <= DW_EXACT_MAX_T:
-            p_dw = durbin_watson_exact(fit, dw)
-            add("Durbin-Watson", dw, np.nan, p_dw, "no first-order autocorrelation",
-                "exact P(d <= observed) under normal errors, Imhof inversion; valid without "
-                "lagged responses")
+            _row(rows, "Durbin-Watson", dw, np.nan, durbin_watson_exact(fit, dw),
+                 "no first-order autocorrelation",
+                 "exact P(d <= observed) under normal errors, Imhof inversion; needs strictly "
+                 "exogenous regressors (no lagged responses or predictors that respond to past "
+                 "errors)")
         else:
-            add("Durbin-Watson", dw, np.nan, np.nan, "no first-order autocorrelation",
-                f"statistic only: exact p-value computed for T <= {DW_EXACT_MAX_T}"
-                if exact_dw else "statistic only (exact p-value not requested)")
+            _row(rows, "Durbin-Watson", dw, np.nan, np.nan, "no first-order autocorrelation",
+                 f"statistic only: exact p-value computed for T <= {DW_EXACT_MAX_T}"
+                 if exact_dw else "statistic only (exact p-value not requested)")
+
+
+def _heteroskedasticity_tests(fit, top, arch_lags, rows, notes) -> None:
+    from statsmodels.stats import diagnostic as smd
+    e, t_obs = fit.resid, fit.nobs
     z_het = fit.X if fit.has_intercept else np.column_stack([np.ones(t_obs), fit.X])
     if z_het.shape[1] > 1:
         with _Section("Breusch-Pagan", notes):
             lm, lmp, _, _ = smd.het_breuschpagan(e, z_het, robust=True)
-            add("Breusch-Pagan (Koenker)", lm, z_het.shape[1] - 1, lmp,
-                "error variance unrelated to the regressors",
-                "studentised: T R^2 of e^2 on the regressors (Koenker 1981)")
+            _row(rows, "Breusch-Pagan (Koenker)", lm, z_het.shape[1] - 1, lmp,
+                 "error variance unrelated to the regressors",
+                 "studentised: T R^2 of e^2 on the regressors (Koenker 1981)")
             lm, lmp, _, _ = smd.het_breuschpagan(e, z_het, robust=False)
-            add("Breusch-Pagan (original)", lm, z_het.shape[1] - 1, lmp,
-                "error variance unrelated to the regressors",
-                "half the explained sum of squares of e^2/mean(e^2) on the regressors "
-                "(Breusch & Pagan 1979); assumes normal errors")
+            _row(rows, "Breusch-Pagan (original)", lm, z_het.shape[1] - 1, lmp,
+                 "error variance unrelated to the regressors",
+                 "half the explained sum of squares of e^2/mean(e^2) on the regressors "
+                 "(Breusch & Pagan 1979); assumes normal errors")
         with _Section("White (with cross terms)", notes):
             try:
                 lm, lmp, _, _ = smd.het_white(e, z_het)
-                white_df = _white_df(z_het)
-                add("White (with cross terms)", lm, white_df, lmp, "homoskedastic errors",
-                    "T R^2 of e^2 on levels, squares and cross products (White 1980)")
+                _row(rows, "White (with cross terms)", lm, _white_df(z_het), lmp,
+                     "homoskedastic errors",
+                     "T R^2 of e^2 on levels, squares and cross products (White 1980)")
             except AssertionError:
                 notes.append("White's test with cross terms is not available for this design")
         with _Section("White (no cross terms)", notes):
             lm, df, p = _white_no_cross(e, z_het)
-            add("White (no cross terms)", lm, df, p, "homoskedastic errors",
-                "T R^2 of e^2 on levels and squares, no cross products")
+            _row(rows, "White (no cross terms)", lm, df, p, "homoskedastic errors",
+                 "T R^2 of e^2 on levels and squares, no cross products")
     for q in sorted({1, min(4, top)} if arch_lags is None else set(np.atleast_1d(arch_lags))):
         with _Section(f"ARCH-LM({q})", notes):
             lm, p, _, _ = smd.het_arch(e, nlags=int(q), result_object=False)
-            add(f"ARCH-LM({q})", lm, q, p, "no autoregressive conditional heteroskedasticity",
-                "(T-q) R^2 of e^2 on its own q lags, chi-square(q) (Engle 1982)")
-    tests = pd.DataFrame(rows, columns=["test", "statistic", "df", "df2", "p_value", "null",
-                                        "method"])
+            _row(rows, f"ARCH-LM({q})", lm, q, p,
+                 "no autoregressive conditional heteroskedasticity",
+                 "(T-q) R^2 of e^2 on its own q lags, chi-square(q) (Engle 1982)")
 
+
+def _correlograms(fit, top, notes):
+    from statsmodels.tsa.stattools import acf, pacf
+    e, t_obs = fit.resid, fit.nobs
     nl = min(max(top, 12), t_obs - 1)
     lag_index = pd.RangeIndex(1, nl + 1, name="lag")
     acf_df = pd.DataFrame(np.nan, index=lag_index,
@@ -265,7 +308,7 @@ def diagnose(fit, lags=None, arch_lags=None, exact_dw: bool = True) -> Diagnosti
     nlp = min(nl, t_obs // 2 - 1)
     pacf_df = pd.DataFrame(np.nan, index=pd.RangeIndex(1, nlp + 1, name="lag"),
                            columns=["resid", "resid_sq"])
-    with _Section("ACF/PACF", notes), np.errstate(all="ignore"):
+    with _Section("ACF/PACF", notes):
         acf_e, conf_e = acf(e, nlags=nl, alpha=0.05, fft=True, result_object=False)
         acf_e2, conf_e2 = acf(e**2, nlags=nl, alpha=0.05, fft=True, result_object=False)
         acf_df = pd.DataFrame({"resid": acf_e[1:], "resid_sq": acf_e2[1:],
@@ -278,18 +321,11 @@ def diagnose(fit, lags=None, arch_lags=None, exact_dw: bool = True) -> Diagnosti
              "pacf": f"95% band +-1.96/sqrt(T) = {1.96 / np.sqrt(t_obs):.3f}",
              "pacf_value": 1.96 / np.sqrt(t_obs)}
     u = fit.contributions
-    with np.errstate(all="ignore"):
-        score_acf = pd.DataFrame(
-            {t: acf(u[:, i], nlags=nl, fft=True, result_object=False)[1:]
-             if np.ptp(u[:, i]) > 0 else np.full(nl, np.nan) for i, t in enumerate(fit.moment_names)},
-            index=lag_index)
-    from .bandwidth import select_bandwidth
-    andrews = select_bandwidth(fit, "bartlett", "andrews")
-    persistence = pd.DataFrame({"rho1": score_acf.iloc[0]})
-    reading = _reading(tests, acf_df, persistence, andrews, fit)
-    return DiagnosticReport(tests=tests, acf=acf_df, pacf=pacf_df, bands=bands,
-                            score_acf=score_acf, persistence=persistence.assign(
-                                andrews_bartlett_b=andrews.b), reading=reading, notes=notes)
+    score_acf = pd.DataFrame(
+        {t: acf(u[:, i], nlags=nl, fft=True, result_object=False)[1:]
+         if np.ptp(u[:, i]) > 0 else np.full(nl, np.nan)
+         for i, t in enumerate(fit.moment_names)}, index=lag_index)
+    return acf_df, pacf_df, bands, score_acf
 
 
 def _white_df(z):
@@ -299,44 +335,75 @@ def _white_df(z):
 
 
 def _reading(tests, acf_df, persistence, andrews, fit) -> list[str]:
+    """The tests in plain words, phrased as evidence. Under an overlapping response the errors
+    are MA(h-1) by construction, which the heteroskedasticity tests (built for uncorrelated
+    errors) do not allow for: their readings are qualified."""
     out = []
+    overlapping = bool(fit.horizon and fit.horizon > 1)
     lb = tests[tests.test.str.startswith("Ljung-Box")]
     sig = lb[lb.p_value < 0.05]
     band = acf_df.resid_band.to_numpy()
     outside = [int(l) for l, v, b in zip(acf_df.index, acf_df.resid, band) if abs(v) > b]
     if len(sig):
         out.append(f"Residual autocorrelation is significant at 5% (Ljung-Box rejects for "
-                   f"lags up to {', '.join(str(int(x)) for x in sig.df)}; smallest p = "
-                   f"{lb.p_value.min():.2g})"
+                   f"lags up to {', '.join(str(int(x)) for x in sig.df)}; smallest p "
+                   f"{_p_words(lb.p_value.min())})"
                    + (f"; sample autocorrelations outside the band at lags "
                       f"{_ranges(outside)}" if outside else "") + ".")
-        out.append(f"This supports HAC standard errors over classical or White ones; the "
-                   f"Andrews (1991) AR(1) plug-in for the Bartlett kernel suggests b of about "
-                   f"{andrews.b:.1f} ({max(int(np.ceil(andrews.b)) - 1, 0)} lags).")
-    else:
+        out.append(f"That is evidence against classical and HC standard errors, which assume "
+                   f"uncorrelated errors. For reference, the Andrews (1991) AR(1) plug-in for "
+                   f"the Bartlett kernel gives b = {andrews.b:.1f} "
+                   f"({max(int(np.ceil(andrews.b)) - 1, 0)} lags); it aims at the mean squared "
+                   "error of the variance estimate, not at the size of the test.")
+    elif len(lb):
         out.append("No significant residual autocorrelation at 5% (Ljung-Box): little evidence "
-                   "that HAC is needed for the residuals themselves.")
+                   "of autocorrelation in the residuals themselves.")
     slopes = persistence.drop(index="intercept", errors="ignore").dropna()
     if len(slopes):
         worst = slopes.rho1.abs().idxmax()
         out.append(f"The moment contribution x_t e_t of '{worst}' has first-order "
                    f"autocorrelation {slopes.rho1[worst]:.2f}; that is what HAC corrects for.")
-    if fit.horizon and fit.horizon > 1:
+    if overlapping:
         out.append(f"The response overlaps over {fit.horizon} periods, so MA({fit.horizon - 1}) "
                    "errors are expected by construction whatever the tests say.")
     het = tests[tests.test.str.startswith(("Breusch-Pagan", "White"))]
+    arch = tests[tests.test.str.startswith("ARCH")]
+    caveat = (" These tests assume serially uncorrelated errors, which an overlapping response "
+              "rules out, so read them with caution." if overlapping else "")
     if len(het):
         if (het.p_value < 0.05).any():
             out.append("Heteroskedasticity tests reject at 5% (" + ", ".join(
-                het[het.p_value < 0.05].test) + "): classical standard errors are not reliable.")
+                het[het.p_value < 0.05].test) + "): evidence that the error variance moves with "
+                "the regressors, which classical standard errors do not allow for." + caveat)
         else:
-            out.append("Heteroskedasticity tests do not reject at 5%.")
-    arch = tests[tests.test.str.startswith("ARCH")]
+            out.append("Heteroskedasticity tests do not reject at 5%." + caveat)
     if (arch.p_value < 0.05).any():
-        out.append("ARCH-LM rejects: volatility clusters over time.")
+        out.append("ARCH-LM rejects at 5%: evidence that squared residuals are autocorrelated "
+                   "(variance that changes over time)." + caveat)
+    persistent = [t for t, r in _regressor_persistence(fit).items() if r > 0.9]
+    if persistent or any(", lag" in t or t.startswith("lag") for t in fit.terms):
+        out.append("The exact Durbin-Watson p-value assumes strictly exogenous regressors; with "
+                   "lagged or persistent predictors ("
+                   + ", ".join(persistent or [t for t in fit.terms if "lag" in t])
+                   + ") it may not be valid; Breusch-Godfrey does not need that assumption.")
     out.append("These are tests of evidence, not verdicts: a non-rejection does not prove the "
                "absence of autocorrelation or heteroskedasticity.")
     return out
+
+
+def _regressor_persistence(fit) -> dict:
+    """First-order autocorrelation of each non-constant regressor."""
+    out = {}
+    for j, term in enumerate(fit.terms):
+        x = fit.X[:, j] - fit.X[:, j].mean()
+        denom = float(x[:-1] @ x[:-1])
+        if denom > 0:
+            out[term] = float(x[1:] @ x[:-1]) / denom
+    return out
+
+
+def _p_words(p: float) -> str:
+    return "below 1e-16" if p < 1e-16 else (f"= {p:.2g}" if p >= 1e-4 else f"= {p:.1e}")
 
 
 def _ranges(lags: list[int]) -> str:

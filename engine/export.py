@@ -22,7 +22,7 @@ FORMATS = ("csv", "markdown", "latex", "html")
 _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 _LATEX_ESCAPES = {"\\": r"\textbackslash{}", "&": r"\&", "%": r"\%", "$": r"\$", "#": r"\#",
                   "_": r"\_", "{": r"\{", "}": r"\}", "~": r"\textasciitilde{}",
-                  "^": r"\textasciicircum{}", "<": r"\textless{}", ">": r"\textgreater{}",
+                  "^": r"\textasciicircum{}", "<": r"$<$", ">": r"$>$", "|": r"$|$",
                   "≤": r"$\leq$", "≥": r"$\geq$", "±": r"$\pm$", "²": r"$^2$", "·": r"$\cdot$",
                   "−": "-", "β": r"$\beta$"}
 

@@ -260,3 +260,31 @@ def test_old_settings_replay_transforms(page: Page, live_server, tmp_path):
     se = fit.infer(lagwise.estimator("kernel", kernel="bartlett", bandwidth=12.0)).table
     expect(se_cell(page, 1)).to_have_text(fmt(se.loc["rate_capacity", "std_error"]),
                                           timeout=20_000)
+
+
+@pytest.mark.slow
+def test_twenty_concurrent_sessions_see_only_their_own_data(browser, live_server):
+    """Twenty pages, each with its own file uploaded at about the same time: each sees its own
+    columns and numbers and nothing of the others'."""
+    import numpy as np
+    contexts = [browser.new_context() for _ in range(20)]
+    pages = [c.new_page() for c in contexts]
+    for page in pages:
+        page.goto(live_server)
+    files = []
+    for i, page in enumerate(pages):
+        rng = np.random.default_rng(i)
+        x = rng.standard_normal(80)
+        y = 0.1 * i + (i + 1) * 0.05 * x + rng.standard_normal(80)
+        text = f"resp{i},x{i}\n" + "\n".join(f"{a:.6f},{b:.6f}" for a, b in zip(y, x)) + "\n"
+        files.append(text)
+        upload(page, {"name": f"s{i}.csv", "mimeType": "text/csv", "buffer": text.encode()})
+    for i, page in enumerate(pages):
+        expect(cells(page, "coef-table", "term")).to_have_text(["intercept", f"x{i}"],
+                                                               timeout=90_000)
+        table = lagwise.load_table(files[i].encode())
+        fit = lagwise.fit_ols(table, f"resp{i}", [f"x{i}"])
+        est = fit.params[f"x{i}"]
+        expect(cells(page, "coef-table", "estimate").nth(1)).to_have_text(fmt(est))
+    for c in contexts:
+        c.close()

@@ -74,3 +74,83 @@ def test_markdown_and_latex():
     assert "a\\_1" in tex and "50\\% \\& more" in tex
     with pytest.raises(ValueError):
         render(df, "docx")
+
+
+def _pdflatex():
+    import os
+    import shutil
+    exe = shutil.which("pdflatex")
+    if exe is None:
+        if os.environ.get("LAGWISE_REQUIRE_LATEX") == "1":
+            pytest.fail("pdflatex not found; LAGWISE_REQUIRE_LATEX=1 makes this a failure")
+        pytest.skip("pdflatex not installed (.ci/run installs texlive-latex-base)")
+    return exe
+
+
+def test_latex_exports_compile_with_awkward_text(tmp_path):
+    """Tables with names and notes holding LaTeX and HTML specials, comparison signs and line
+    breaks compile under pdflatex; Markdown escapes HTML and keeps one line per row."""
+    exe = _pdflatex()
+    frame = pd.DataFrame({"term\nname": ["x_1 & <y>", "50% $ #"], "p": ["≤0.001", "<0.001"],
+                          "t": [-2.5, np.nan]})
+    fit = lagwise.fit_ols(lagwise.load_table(DEMO), "exret_12m", ["rate_capacity"])
+    res = fit.infer(lagwise.estimator("kernel", kernel="bartlett", bandwidth=13),
+                    reference="fixed-b")
+    comp = lagwise.compare(fit)
+    body = "\n".join([
+        to_latex(frame, index=False, caption="odd {caption} ~ ^", notes=["note: a < b, 1 ± 2"]),
+        render(res.table.reset_index(), "latex", index=False, caption=res.describe(),
+               notes=res.notes),
+        render(comp[["estimator", "std_error", "p_value", "reference", "note", "why"]], "latex",
+               index=False)])
+    doc = tmp_path / "t.tex"
+    doc.write_text("\\documentclass{article}\n\\usepackage[utf8]{inputenc}\n"
+                   "\\usepackage[margin=1cm,landscape]{geometry}\n\\begin{document}\n"
+                   + body + "\n\\end{document}\n")
+    out = subprocess.run([exe, "-interaction=nonstopmode", "-halt-on-error", doc.name],
+                         cwd=tmp_path, capture_output=True, text=True, timeout=120)
+    assert out.returncode == 0, out.stdout[-2000:]
+    assert (tmp_path / "t.pdf").stat().st_size > 1000
+    md = to_markdown(frame, index=False)
+    assert "&lt;y&gt;" in md and "term name" in md and len(md.strip().splitlines()) == 4
+
+
+def test_csv_keeps_numbers_and_notes_go_first():
+    text = render(pd.DataFrame({"estimate": [-1.25, 3.0], "label": ["-neg", "ok"]}), "csv",
+                  index=False, caption="95% intervals", notes=["reference law: normal"])
+    lines = text.splitlines()
+    assert lines[0] == "# 95% intervals" and lines[1] == "# reference law: normal"
+    assert lines[3].startswith("-1.25,'-neg")
+
+
+def test_settings_from_an_earlier_version_load_through_a_mapping():
+    from lagwise.engine.export import load_settings
+    old = {"lagwise_settings": 1, "transforms": [["fsum", "exret_1m", 12]],
+           "response": "fsum12(exret_1m)", "regressors": ["lag1(x)"], "estimator": "ewc",
+           "params": {"terms": 10}, "rule": "fixed", "bandwidth": 10}
+    s = load_settings(__import__("json").dumps(old))
+    assert s["transforms"] == [["sum-next", "exret_1m", 12]]
+    assert s["response"] == "exret_1m, sum of next 12" and s["regressors"] == ["x, lag 1"]
+    assert s["params"] == {"cosines": 10} and s["value"] == 10
+    hc = load_settings(__import__("json").dumps({"lagwise_settings": 1, "estimator": "hc3"}))
+    assert hc["estimator"] == "hc" and hc["params"] == {"kind": "hc3"}
+
+
+@pytest.mark.parametrize("record,message", [
+    ({"estimator": "kernel", "params": {"kernel": "zzz"}}, "kernel='zzz'"),
+    ({"estimator": "nope"}, "unknown estimator"),
+    ({"level": 2}, "level"),
+    ({"regressors": "x"}, "regressors"),
+    ({"transforms": [["cube", "x", 1]]}, "unknown transform"),
+    ({"window": [0, "end"]}, "window"),
+    ({"extra": 1}, "unknown entries"),
+    ({"estimator": "ewc", "rule": "andrews"}, "does not belong"),
+    ({"params": {"a": {"b": {"c": {"d": 1}}}}}, "nested too deeply"),
+])
+def test_bad_settings_get_one_clear_message(record, message):
+    import json
+    from lagwise.engine.export import load_settings
+    with pytest.raises(lagwise.DataError, match=message):
+        load_settings(json.dumps({"lagwise_settings": 2, **record}))
+    with pytest.raises(lagwise.DataError, match="at most"):
+        load_settings(b"{" + b" " * 200_000 + b"}")
