@@ -10,6 +10,7 @@ from ..engine import FAMILIES, KERNELS, TRANSFORMS
 from ..engine.covariance import Param
 from ..engine.laws import REQUESTS
 from .state import MAX_UPLOAD_BYTES
+from ..engine.data import MAX_CELLS, MAX_COLUMNS, MAX_LINE_CHARS
 from . import views
 
 REFERENCE_OPTIONS = [
@@ -20,8 +21,10 @@ DEFAULT_FAMILY = "kernel"
 DEFAULT_RULE = "andrews"
 HELP = {
     "upload": f"CSV (comma, semicolon, tab or pipe; decimal commas and thousands separators "
-              f"are recognised) or Parquet, up to {MAX_UPLOAD_BYTES // 2**20} MB. A date column is "
-              "used as the time index.",
+              f"are recognised) or Parquet, up to {MAX_UPLOAD_BYTES // 2**20} MB, "
+              f"{MAX_COLUMNS} columns, {MAX_LINE_CHARS:,} characters in a row and "
+              f"{MAX_CELLS // 1_000_000} million cells (rows x columns, after decompression). A "
+              "date column is used as the time index.",
     "rule": "How the value is chosen. Rules of thumb are common practice, not optimal; the "
             "Andrews and Newey-West plug-ins aim at the mean squared error of the variance "
             "estimate, not at the size of the test. With a rule chosen the slider shows where "

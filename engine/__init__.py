@@ -14,7 +14,8 @@ from .errors import (DataError, EstimationError, LagwiseError, LawUnavailable,
 from .data import LoadReport, Table, load_table, transform, TRANSFORMS
 from .kernels import KERNELS, Kernel, get_kernel, register_kernel
 from .laws import EWCLaw, FixedB, Law, Normal, StudentT
-from .model import MomentModel, OLSFit, fit_ols, INTERCEPT
+from .model import MomentModel, OLSFit, SeriesModel, fit_ols, INTERCEPT
+from .gmm import IVFit, fit_iv
 from .covariance import (FAMILIES, Estimator, Family, Param, TuningAxis, estimator, estimators,
                          register_family)
 from .bandwidth import RULES as BANDWIDTH_RULES, select_bandwidth, BandwidthChoice
@@ -29,7 +30,7 @@ __all__ = [
     "LoadReport", "Table", "load_table", "transform", "TRANSFORMS",
     "KERNELS", "Kernel", "get_kernel", "register_kernel",
     "Law", "Normal", "StudentT", "EWCLaw", "FixedB",
-    "MomentModel", "OLSFit", "fit_ols", "INTERCEPT",
+    "MomentModel", "OLSFit", "SeriesModel", "fit_ols", "INTERCEPT", "IVFit", "fit_iv",
     "FAMILIES", "Estimator", "Family", "Param", "TuningAxis", "estimator", "estimators",
     "register_family",
     "BANDWIDTH_RULES", "select_bandwidth", "BandwidthChoice",

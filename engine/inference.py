@@ -56,6 +56,8 @@ class Inference:
     k: int
     notes: list[str] = field(default_factory=list)
     label: str = ""
+    form: str = ""                      # which sandwich V is (GMM), in words
+    method: str = ""                    # how the coefficients were estimated (GMM), in words
 
     @property
     def bandwidth(self):
@@ -89,6 +91,10 @@ class Inference:
             parts.append("small-sample factor T/(T-k) applied" if lr.factor != 1.0
                          else "no small-sample factor")
         parts.append(f"reference law: {self.law.describe()}")
+        if self.method:
+            parts.append(f"coefficients by {self.method}")
+        if self.form:
+            parts.append(f"covariance: {self.form}")
         return "; ".join(parts)
 
     def wald(self, R, r=None) -> WaldTest:
@@ -139,20 +145,25 @@ class Inference:
 
 
 def exact_fit(model) -> bool:
+    """Every residual (or, for a series model, every moment contribution) zero to rounding."""
+    if getattr(model, "resid", None) is None:
+        return bool(not np.any(model.working_contributions))
     scale = float(np.abs(getattr(model, "y", model.resid)).max()) or 1.0
     return bool(np.abs(model.resid).max() <= EXACT_FIT_TOL * scale)
 
 
 @single_blas_thread
-def infer(model, est, level: float = 0.95, reference: str = "auto") -> Inference:
-    """Coefficient table for `model` under estimator `est` (an Estimator or a registry name)."""
+def infer(model, est, level: float = 0.95, reference: str = "auto",
+          long_run=None) -> Inference:
+    """Coefficient table for `model` under estimator `est` (an Estimator or a registry name).
+    long_run: an estimate of S already made with `est` (otherwise computed here)."""
     est = as_estimator(est)
     if isinstance(level, bool) or not isinstance(level, (int, float)) or not 0.5 <= level < 1:
         raise SpecificationError(f"confidence level must be between 0.5 and 1, got {level!r}")
     if exact_fit(model):
         raise EstimationError("the model fits the data exactly (every residual is zero): "
                               "standard errors are zero and t statistics are not defined")
-    lr = est.long_run(model)
+    lr = est.long_run(model) if long_run is None else long_run
     law = est.family.law(reference, est.params, lr, model)
     cov = model.covariance_from_long_run(lr.S)
     var = np.diag(cov).copy()
@@ -182,4 +193,5 @@ def infer(model, est, level: float = 0.95, reference: str = "auto") -> Inference
     return Inference(estimator=est, long_run=lr, law=law, params=model.params,
                      cov=pd.DataFrame(cov, index=model.term_index, columns=model.term_index),
                      level=level, critical_value=cv, table=table, nobs=model.nobs,
-                     k=len(model.terms), notes=notes, label=est.label_for(lr))
+                     k=len(model.terms), notes=notes, label=est.label_for(lr),
+                     form=model.covariance_form(lr), method=model.describe_method())

@@ -46,9 +46,13 @@ def classical(model) -> LongRun:
 
 
 def heteroskedasticity_robust(model, kind: str) -> LongRun:
-    """White-type S = (1/T) sum omega_t w_t w_t' for HC0-HC3 (MacKinnon & White 1985)."""
+    """White-type S = (1/T) sum omega_t w_t w_t' for HC0-HC3 (MacKinnon & White 1985); HC0 and
+    HC1 are (1/T) sum g_t g_t' of the moment contributions, for any moment model."""
+    factor = model.small_sample_factor if kind == "hc1" else 1.0
+    if kind in ("hc0", "hc1"):
+        g = model.working_contributions
+        return LongRun(S=g.T @ g / model.nobs * factor, factor=factor)
     e2 = model.resid**2
-    factor = 1.0
     if kind in ("hc2", "hc3"):
         h = model.leverage
         if h is None:
@@ -63,10 +67,6 @@ def heteroskedasticity_robust(model, kind: str) -> LongRun:
                 f"(rows {rows}); each is fitted exactly, e.g. by a dummy for one row. "
                 "Use HC0/HC1 or drop those rows.")
         omega = e2 / (1.0 - h) ** (1 if kind == "hc2" else 2)
-    else:
-        omega = e2
-        if kind == "hc1":
-            factor = model.small_sample_factor
     w = model.working_design
     s = (w * omega[:, None]).T @ w / model.nobs * factor
     return LongRun(S=s, factor=factor)

@@ -50,6 +50,7 @@ class SweepResult:
     reasons: np.ndarray           # (n_c, n) why a point is unavailable ("" otherwise)
     long_runs: list               # (n_c, n) light LongRun records for the reference laws
     info: ModelInfo
+    extras: dict = field(default_factory=dict)     # e.g. J statistics of a GMM sweep
     _critical: dict = field(default_factory=dict, repr=False)
 
     # ------------------------------------------------------------------ views
