@@ -121,24 +121,59 @@ def make_estimator(name, values, ids, rule, slider) -> engine.Estimator:
     return engine.estimator(name, **params)
 
 
-def sweep_for(session, fkey, model, est):
-    """The chart's sweep for the current family and options, computed once per fit."""
+def is_gmm(model, method) -> bool:
+    return isinstance(model, engine.IVFit) and method in ("two-step", "iterated", "cue")
+
+
+def sweep_for(session, fkey, model, est, method="2sls"):
+    """The chart's sweep for the current family and options, computed once per fit. For a GMM
+    fit the weighting follows the estimator (two-step estimates along the axis)."""
+    from ..engine.weakiv import gmm_axis_sweep, gmm_sweep
     family = est.family
     if family.axis is None:
         family, est = FAMILIES["kernel"], engine.estimator("kernel", bandwidth=1.0)
+    gmm = is_gmm(model, method)
     if family.name == "kernel":
         p = est.params
         curves = [engine.estimator("kernel", kernel=k, bandwidth=1.0,
                                    small_sample=p["small_sample"], repair=p["repair"],
-                                   prewhiten=p["prewhiten"]) for k in engine.KERNELS]
+                                   prewhiten=p["prewhiten"] and not gmm) for k in engine.KERNELS]
     else:
         curves = [est.at(1)]
-    key = key_for(fkey, "sweep", spec_hash([c.settings() for c in curves]))
-    return STORE.derived(session, key, lambda: engine.sweep(model, curves))
+    key = key_for(fkey, "sweep", method if gmm else "", spec_hash([c.settings() for c in curves]))
+
+    def build():
+        if gmm and family.name == "kernel":
+            return gmm_sweep(model, [c.params["kernel"] for c in curves], None,
+                             curves[0].params["small_sample"], curves[0].params["repair"])
+        if gmm:
+            return gmm_axis_sweep(model, curves[0])
+        if isinstance(model, engine.IVFit):
+            from ..engine.weakiv import with_j
+            return with_j(model, engine.sweep(model, curves))
+        return engine.sweep(model, curves)
+    return STORE.derived(session, key, build)
 
 
-def comparison_for(session, fkey, model, level, reference):
-    key = key_for(fkey, "compare", level, reference)
+def view_model(session, fkey, model, method, est):
+    """The model the screen shows: the fit itself, or for GMM the fit weighted by `est`."""
+    if not is_gmm(model, method):
+        return model
+    if method == "two-step":
+        return model.two_step(est)
+    key = key_for(fkey, method, spec_hash(est.settings()))
+    return STORE.derived(session, key, lambda: getattr(model, method)(est))
+
+
+def view_inference(session, fkey, model, method, est, level, reference):
+    shown = view_model(session, fkey, model, method, est)
+    if shown is model:
+        return shown, model.infer(est, level=level, reference=reference)
+    return shown, shown.infer_weighting(level=level, reference=reference)
+
+
+def comparison_for(session, fkey, model, level, reference, extra=""):
+    key = key_for(fkey, "compare", level, reference, extra)
     return STORE.derived(session, key, lambda: engine.compare(model, level=level,
                                                               reference=reference))
 
@@ -266,30 +301,61 @@ def on_transform(_n, kind, column, p, key, session):
     return new_key, V.ok_box(f"added '{name}'"), no_update, no_update
 
 
+@callback(Output("endogenous", "options"), Output("endogenous", "value"),
+          Output("instruments", "options"), Output("instruments", "value"),
+          Input("response", "options"), Input("response", "value"), Input("regressors", "value"),
+          State("endogenous", "value"), State("instruments", "value"), message=None)
+def on_iv_options(columns, response, regressors, endogenous, instruments):
+    """Endogenous regressors come from the regressors; instruments from the other columns."""
+    cols = [o["value"] for o in columns or [] if isinstance(o, dict)]
+    regs = regressors if isinstance(regressors, list) else []
+    endo = [e for e in (endogenous if isinstance(endogenous, list) else []) if e in regs]
+    free = [c for c in cols if c != response and c not in regs]
+    inst = [z for z in (instruments if isinstance(instruments, list) else []) if z in free]
+    return ([{"label": r, "value": r} for r in regs], endo,
+            [{"label": c, "value": c} for c in free], inst)
+
+
 @callback(Output("fit-key", "data"), Output("fit-message", "children"),
           Output("focus", "options"), Output("focus", "value"),
           Output("window-text", "children"), Output("horizon", "value"),
           Input("dataset-key", "data"), Input("response", "value"), Input("regressors", "value"),
           Input("intercept", "value"), Input("horizon", "value"), Input("window", "value"),
-          State("focus", "value"), State("session", "data"), message=1)
-def on_spec(key, response, regressors, intercept, horizon, window, focus, session):
+          Input("endogenous", "value"), Input("instruments", "value"),
+          State("focus", "value"), State("session", "data"), State("initial-spec", "data"),
+          message=1)
+def on_spec(key, response, regressors, intercept, horizon, window, endogenous, instruments,
+            focus, session, initial):
     table = stored(session, key)
     if table is None or not isinstance(response, str) or not response:
         return None, "", [], None, "", no_update
     sample, text = _window(table.frame, window)
-    if horizon in (None, "") and ctx.triggered_id == "response":
-        horizon = table.horizons.get(response)
+    if ctx.triggered_id == "response":
+        # the horizon belongs to the response: the one recorded for it, or none
+        known = (initial or {}).get("horizons", {}) if isinstance(initial, dict) else {}
+        horizon = table.horizons.get(response) or known.get(response)
+    regs = regressors if isinstance(regressors, list) else []
+    endo = endogenous if isinstance(endogenous, list) else []
+    inst = instruments if isinstance(instruments, list) else []
     try:
         h = int(horizon) if horizon not in (None, "") else None
-        model = engine.fit_ols(table, response, regressors if isinstance(regressors, list) else [],
-                               intercept=bool(intercept), sample=sample, horizon=h)
-        fkey = key_for("fit", spec_hash([key, response, regressors, bool(intercept), sample, h]))
+        if endo or inst:
+            model = engine.fit_iv(table, response, regs, endo, inst, intercept=bool(intercept),
+                                  sample=sample, horizon=h)
+        else:
+            model = engine.fit_ols(table, response, regs, intercept=bool(intercept),
+                                   sample=sample, horizon=h)
+        fkey = key_for("fit", spec_hash([key, response, regs, bool(intercept), sample, h,
+                                         endo, inst]))
         STORE.put(session, fkey, model)
     except (engine.LagwiseError, ValueError, TypeError) as exc:
         return None, V.error_box(str(exc)), [], None, text, no_update
     slopes = [t for t in model.terms if t != engine.INTERCEPT] or model.terms
     focus = focus if focus in model.terms else slopes[0]
     msg = [f"T = {model.nobs}, k = {model.k}, R² = {V.fmt(model.r_squared, 3) or 'n/a'}"]
+    if isinstance(model, engine.IVFit):
+        msg.append(f"instrumental variables: {len(model.moment_names)} instruments for "
+                   f"{model.k} coefficients ({', '.join(model.core.endogenous)} instrumented)")
     if model.horizon:
         msg.append(f"overlapping {model.horizon}-period response: errors are MA("
                    f"{model.horizon - 1}) by construction")
@@ -356,7 +422,7 @@ INFERENCE_INPUTS = [Input("fit-key", "data"), Input("est-name", "value"),
                     Input({"type": "est-param", "name": ALL}, "value"),
                     Input("tune-rule", "value"), Input("tune-slider", "value"),
                     Input("reference", "value"), Input("level", "value"),
-                    Input("focus", "value")]
+                    Input("focus", "value"), Input("iv-method", "value")]
 
 
 @callback(Output("coef-table", "rowData"), Output("coef-caption", "children"),
@@ -367,7 +433,7 @@ INFERENCE_INPUTS = [Input("fit-key", "data"), Input("est-name", "value"),
           *INFERENCE_INPUTS, State({"type": "est-param", "name": ALL}, "id"),
           State("session", "data"), State("compare-shown", "data"), prevent_initial_call=True,
           message=1)
-def on_inference(fkey, name, values, rule, slider, reference, level, focus, ids, session,
+def on_inference(fkey, name, values, rule, slider, reference, level, focus, method, ids, session,
                  shown):
     """One round trip per slider move. The rule and the slider are kept in step here: a rule
     places the slider where it landed; moving the slider switches to a value set by hand."""
@@ -380,7 +446,7 @@ def on_inference(fkey, name, values, rule, slider, reference, level, focus, ids,
         return [], "", [], msg, "", [], out_rule, out_slider, None
     try:
         est = make_estimator(name, values, ids, rule, slider)
-        res = model.infer(est, level=level, reference=reference)
+        shown_model, res = view_inference(session, fkey, model, method, est, level, reference)
     except engine.LagwiseError as exc:
         box = V.error_box(str(exc))
         return [], box, [], box, "", no_update, out_rule, out_slider, no_update
@@ -389,7 +455,7 @@ def on_inference(fkey, name, values, rule, slider, reference, level, focus, ids,
         landed = float(np.clip(round(res.long_run.tuning), *family.axis.grid(model)[[0, -1]]))
         if landed != slider:
             out_slider = landed
-    flip = _flip(session, fkey, model, est, focus, level, reference)
+    flip = _flip(session, fkey, model, est, focus, level, reference, method)
     title = family.axis.rules[rule][0] if family.axis and rule in family.axis.rules else None
     rejects, headline = V.headline(res, focus, V.flip_line(flip), title)
     notes = list(res.notes)
@@ -398,23 +464,24 @@ def on_inference(fkey, name, values, rule, slider, reference, level, focus, ids,
         notes.append(short)
     # the comparison is resent only when its inputs or the current conclusion change (the
     # signature lives in the page, so a superseded request never hides an update)
-    signature = [fkey, focus, level, reference, rejects]
+    gmm_key = spec_hash(est.settings()) if is_gmm(model, method) else ""
+    signature = [fkey, focus, level, reference, rejects, method, gmm_key]
     rows = no_update
     if shown != signature:
-        comp = comparison_for(session, fkey, model, level, reference)
+        comp = comparison_for(session, fkey, shown_model, level, reference, gmm_key)
         rows = V.comparison_records(comp, focus, rejects)
     return (V.coefficient_records(res), res.describe(), [html.Li(n) for n in notes], headline,
             V.tuning_text(res, model), rows, out_rule, out_slider,
             signature if rows is not no_update else no_update)
 
 
-def _flip(session, fkey, model, est, focus, level, reference):
+def _flip(session, fkey, model, est, focus, level, reference, method="2sls"):
     """Where the current curve's conclusion changes; computed once per setting, not per move."""
     if est.family.axis is None:
         return None
-    sweep = sweep_for(session, fkey, model, est)
+    sweep = sweep_for(session, fkey, model, est, method)
     key = key_for(fkey, "flip", spec_hash([est.family.curve_label(est.params), focus, level,
-                                           reference]))
+                                           reference, method]))
 
     def build():
         ref = reference
@@ -442,9 +509,10 @@ def on_marker(slider):
           Input("fit-key", "data"), Input("reference", "value"), Input("level", "value"),
           Input("focus", "value"), Input("chart-mode", "value"), Input("est-name", "value"),
           Input({"type": "est-param", "name": ALL}, "value"), Input("tune-rule", "value"),
+          Input("iv-method", "value"),
           State({"type": "est-param", "name": ALL}, "id"), State("tune-slider", "value"),
           State("session", "data"), message=1)
-def on_sensitivity(fkey, reference, level, focus, mode, name, values, rule, ids, slider,
+def on_sensitivity(fkey, reference, level, focus, mode, name, values, rule, method, ids, slider,
                    session):
     model = stored(session, fkey)
     if model is None or focus not in getattr(model, "terms", []):
@@ -453,12 +521,13 @@ def on_sensitivity(fkey, reference, level, focus, mode, name, values, rule, ids,
         return empty, "", F.empty_figure("")
     try:
         est = make_estimator(name, values, ids, rule, slider)
-        sweep = sweep_for(session, fkey, model, est)
+        sweep = sweep_for(session, fkey, model, est, method)
+        shown_model, res = view_inference(session, fkey, model, method, est, level, reference)
         lines = []
-        if est.family.axis is None:
-            res = model.infer(est, level=level, reference=reference)
-            value = res.table.loc[focus, {"t": "t_stat", "se": "std_error"}.get(mode, "t_stat")]
-            lines = [(f"{res.label}: {V.fmt(value, 3)}", float(value))] if mode != "ci" else []
+        if est.family.axis is None and mode != "ci":
+            col = {"t": "t_stat", "se": "std_error", "estimate": "estimate"}.get(mode, "t_stat")
+            value = res.table.loc[focus, col]
+            lines = [(f"{res.label}: {V.fmt(value, 3)}", float(value))]
         ref = reference if np.isfinite(sweep.critical_values(level, reference)).any() else "auto"
         fig = F.sensitivity_figure(sweep, focus, mode or "t", level, ref, slider,
                                    _current_curve(sweep, est) if sweep.family is est.family
@@ -468,7 +537,8 @@ def on_sensitivity(fkey, reference, level, focus, mode, name, values, rule, ids,
                                                   sweep_result=sweep, curve=c).sentence())
                  for c in range(len(sweep.labels))]
         flips = V.flagged_points_note(sweep) + flips
-        comp = comparison_for(session, fkey, model, level, reference)
+        gmm_key = spec_hash(est.settings()) if is_gmm(model, method) else ""
+        comp = comparison_for(session, fkey, shown_model, level, reference, gmm_key)
     except engine.LagwiseError as exc:
         return F.empty_figure(str(exc)), V.error_box(str(exc)), F.empty_figure("")
     STORE.refresh(session, fkey)          # the fit now carries its caches: count them
@@ -504,6 +574,55 @@ def diagnostics_for(session, fkey, model):
             warnings.simplefilter("ignore")
             return engine.diagnose(model)
     return STORE.derived(session, key_for(fkey, "diagnostics"), build)
+
+
+# --------------------------------------------------------------------------- instruments
+
+@callback(Output("strength-card", "style"), Output("first-stage-table", "rowData"),
+          Output("strength-list", "children"), Output("spec-table", "rowData"),
+          Output("ar-text", "children"),
+          Input("fit-key", "data"), Input("est-name", "value"),
+          Input({"type": "est-param", "name": ALL}, "value"), Input("tune-rule", "value"),
+          Input("iv-method", "value"), Input("level", "value"), Input("tune-slider", "value"),
+          State({"type": "est-param", "name": ALL}, "id"), State("session", "data"), message=4)
+def on_strength(fkey, name, values, rule, method, level, slider, ids, session):
+    """First stage, strength statistics, J and difference-in-J, and the Anderson-Rubin set,
+    under the estimator of S chosen in the Sensitivity card."""
+    model = stored(session, fkey)
+    if not isinstance(model, engine.IVFit):
+        return {"display": "none"}, [], [], [], ""
+    try:
+        est = make_estimator(name, values, ids, rule, slider)
+        report = strength_for(session, fkey, model, method, est, level)
+    except engine.LagwiseError as exc:
+        return {}, [], [html.Li(str(exc))], [], ""
+    fs, tests, ar = report
+    ar_block = [] if ar is None else [
+        html.P(f"Anderson-Rubin {ar.level:.0%} set for {ar.term}: {ar.text()} ({ar.estimator}; "
+               f"{ar.law})", className="lw-ar-set"), html.P(ar.reading)]
+    return ({}, V.first_stage_records(fs), V.strength_lines(fs), V.spec_records(tests),
+            ar_block)
+
+
+def strength_for(session, fkey, model, method, est, level):
+    key = key_for(fkey, "strength", method, level, spec_hash(est.settings()))
+
+    def build():
+        shown = view_model(session, fkey, model, method, est)
+        fs = model.first_stage(est)
+        tests = [("Hansen J (overidentifying restrictions)",
+                  shown.j_test() if shown is not model else model.j_test(est))]
+        if model.overidentification > 0:
+            for z in model.core.excluded:
+                try:
+                    tests.append((f"difference-in-J: {z}", shown.difference_j([z], est)))
+                except engine.LagwiseError:
+                    continue
+        ar = None
+        if len(model.core.endogenous) == 1:
+            ar = model.anderson_rubin(model.core.endogenous[0], est, level)
+        return fs, tests, ar
+    return STORE.derived(session, key, build)
 
 
 # --------------------------------------------------------------------------- clipboard

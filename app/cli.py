@@ -67,35 +67,55 @@ def _bandwidth_arg(text):
         return text
 
 
-def cmd_table(args) -> int:
+def weight_arg(text):
+    """--weight: an estimator name (hc0, hc1, classical, ewc, var) or KERNEL:BANDWIDTH, where the
+    bandwidth is a number or a rule (bartlett:13, parzen:andrews)."""
     from .. import engine
-    from ..engine.compare import compare
-    from ..engine.export import render
+    if ":" in text:
+        kernel, _, bw = text.partition(":")
+        return engine.estimator("kernel", kernel=kernel, bandwidth=_bandwidth_arg(bw))
+    return engine.estimator(text)
 
+
+def load_and_fit(args):
+    from .. import engine
+    from ..engine.model import as_list
     table = engine.load_table(args.file)
     for spec in args.transform or []:
         kind, _, rest = spec.partition(":")
         col, _, p = rest.partition(":")
         table, name = table.with_transform(kind, col, int(p) if p else 1)
         print(f"added column {name}", file=sys.stderr)
-    from ..engine.model import as_list
     regs = as_list(args.regressors)
-    fit = engine.fit_ols(table, args.response, regs, intercept=not args.no_intercept,
-                         horizon=args.horizon)
+    endog, instr = as_list(args.endogenous), as_list(args.instruments)
+    if endog or instr:
+        return engine.fit_iv(table, args.response, regs, endog, instr,
+                             intercept=not args.no_intercept, method=args.method,
+                             weight=weight_arg(args.weight), horizon=args.horizon)
+    return engine.fit_ols(table, args.response, regs, intercept=not args.no_intercept,
+                          horizon=args.horizon)
+
+
+def cmd_table(args) -> int:
+    from .. import engine
+    from ..engine.compare import compare
+    from ..engine.export import render
+    from ..engine.sweep import flip_summary
+
+    fit = load_and_fit(args)
     bandwidth = args.bandwidth
     if args.lags is not None:
         bandwidth = args.lags + 1.0
     comp = compare(fit, level=args.level, reference=args.reference, kernel=args.kernel,
                    bandwidth=bandwidth)
-    extra = []
-    from ..engine.sweep import flip_summary
     extra = flip_summary(fit, args.kernel or "bartlett", level=args.level)
-    try:
-        from ..engine.diagnostics import diagnose
-        report = diagnose(fit)
-        extra = list(extra) + ["", "Residual diagnostics"] + report.lines()
-    except ImportError:
-        pass
+    if isinstance(fit, engine.IVFit):
+        extra = list(extra) + iv_lines(fit, weight_arg(args.weight), args.level)
+    else:
+        try:
+            extra = list(extra) + ["", "Residual diagnostics"] + engine.diagnose(fit).lines()
+        except engine.LagwiseError as exc:
+            extra = list(extra) + ["", f"Residual diagnostics not available: {exc}"]
     if args.format == "text":
         out = render_text(fit, comp, args.level, extra)
     else:
@@ -109,6 +129,31 @@ def cmd_table(args) -> int:
     else:
         sys.stdout.write(out)
     return 0
+
+
+def iv_lines(fit, est, level) -> list[str]:
+    """Instrument strength and specification, in plain lines."""
+    from .. import engine
+    lines = ["", f"Instruments ({fit.describe_method()}; S for the tests: {est.label})"]
+    first = fit.first_step or fit
+    fs = first.first_stage(est)
+    for name, r in fs.table.iterrows():
+        lines.append(f"  first stage for {name}: F = {r.robust_f:.4g} (chosen S), "
+                     f"{r.homoskedastic_f:.4g} (homoskedastic), partial R^2 = {r.partial_r2:.3f}")
+    for name, item in fs.strength.items():
+        lines.append(f"  {name} = {item['value']:.4g}; compare with {item['compare_with']:g} "
+                     f"({item['source']})")
+    lines.append("  " + fit.j_test().summary())
+    for z in fit.core.excluded if fit.overidentification > 0 else []:
+        try:
+            lines.append(f"  difference-in-J for {z}: " + fit.difference_j([z], est).summary())
+        except engine.LagwiseError:
+            continue
+    if len(fit.core.endogenous) == 1:
+        ar = first.anderson_rubin(fit.core.endogenous[0], est, level)
+        lines.append(f"  Anderson-Rubin {level:.0%} set for {ar.term}: {ar.text()}")
+        lines.append(f"  {ar.reading}")
+    return lines
 
 
 def cmd_serve(args) -> int:
@@ -126,6 +171,13 @@ def build_parser() -> argparse.ArgumentParser:
     t.add_argument("--response", required=True, help="response column")
     t.add_argument("--regressors", default="", help="comma-separated regressor columns")
     t.add_argument("--no-intercept", action="store_true", help="leave out the constant term")
+    t.add_argument("--endogenous", default="", help="regressors to instrument (comma-separated)")
+    t.add_argument("--instruments", default="", help="excluded instruments (comma-separated)")
+    t.add_argument("--method", default="2sls", choices=["2sls", "two-step", "iterated", "cue"],
+                   help="IV/GMM estimation (default 2sls)")
+    t.add_argument("--weight", default="hc0",
+                   help="estimator of S for GMM weighting and the instrument tests: hc0, hc1, "
+                        "ewc, var, or KERNEL:BANDWIDTH such as bartlett:13 or parzen:andrews")
     t.add_argument("--transform", action="append", metavar="KIND:COLUMN[:P]",
                    help="add a transformed column first, e.g. sum-next:exret_1m:12 or lag:x:1 "
                         "(kinds: lag, lead, difference, log, log-difference, sum-next); "

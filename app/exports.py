@@ -14,8 +14,8 @@ from .. import engine
 from ..engine.export import (FORMATS, SETTINGS_VERSION, load_settings, render,
                              settings_json)
 from . import views as V
-from .callbacks import (comparison_for, diagnostics_for, guarded, make_estimator, param_values,
-                        stored)
+from .callbacks import (comparison_for, diagnostics_for, guarded, is_gmm, make_estimator,
+                        param_values, stored, strength_for, view_inference)
 from .layout import CHART_FORMATS
 from .state import STORE, key_for, spec_hash
 
@@ -24,12 +24,12 @@ _EXPORT_LOCK = threading.Lock()
 _KALEIDO = {"started": False}
 GRAPHS = ["sens-graph", "interval-graph", "resid-graph", "acf-graph", "scatter-graph",
           "score-graph"]
-TABLES = ["coef-table", "compare-table", "diag-table"]
+TABLES = ["coef-table", "compare-table", "diag-table", "spec-table"]
 VIEW_STATE = [State("session", "data"), State("fit-key", "data"), State("est-name", "value"),
               State({"type": "est-param", "name": ALL}, "value"),
               State({"type": "est-param", "name": ALL}, "id"), State("tune-rule", "value"),
               State("tune-slider", "value"), State("reference", "value"),
-              State("level", "value"), State("focus", "value")]
+              State("level", "value"), State("focus", "value"), State("iv-method", "value")]
 
 
 def callback(*args, message: int | None = None, **kwargs):
@@ -56,13 +56,16 @@ def export_figure(fig: go.Figure, fmt: str) -> bytes:
             return pio.to_image(fig, format=fmt, scale=2 if fmt == "png" else 1)
 
 
-def current_view(session, fkey, name, values, ids, rule, slider, reference, level, focus):
-    """(model, Inference) of what the screen shows; raises LagwiseError when there is none."""
+def current_view(session, fkey, name, values, ids, rule, slider, reference, level, focus,
+                 method="2sls"):
+    """(model shown, Inference, base fit, estimator) of what the screen shows; raises
+    LagwiseError when there is none."""
     model = stored(session, fkey)
     if model is None:
         raise engine.SpecificationError("nothing to export yet: load data and choose a model")
     est = make_estimator(name, values, ids, rule, slider)
-    return model, model.infer(est, level=level, reference=reference)
+    shown, res = view_inference(session, fkey, model, method, est, level, reference)
+    return shown, res, model, est
 
 
 def conventions(res) -> str:
@@ -71,13 +74,16 @@ def conventions(res) -> str:
             f"{1 - res.level:.0%}; {res.describe()}")
 
 
-def table_frame(target, session, fkey, model, res, focus, reference):
+def table_frame(target, session, fkey, model, res, focus, reference, base=None, est=None,
+                method="2sls"):
     """(frame, caption, notes) for a table, from the engine's numbers."""
     if target == "coef-table":
         frame = res.table.reset_index()
         return frame, f"{model.response}: {res.label}", [conventions(res)] + res.notes
     if target == "compare-table":
-        comp = comparison_for(session, fkey, model, res.level, reference)
+        from .state import spec_hash
+        comp = comparison_for(session, fkey, model, res.level, reference,
+                              spec_hash(est.settings()) if is_gmm(base, method) else "")
         rows = comp[comp.term == focus].copy()
         rows["beta = 0"] = rows.rejects.map(V.verdict)
         frame = rows[["estimator", "bandwidth", "lags", "std_error", "t_stat", "p_value",
@@ -85,6 +91,23 @@ def table_frame(target, session, fkey, model, res, focus, reference):
         return frame, f"{focus}: every estimator", \
             [f"{res.level:.0%} confidence intervals; two-sided tests at {1 - res.level:.0%}; "
              "each row's reference law is stated in its row"]
+    if target == "spec-table":
+        if not isinstance(base, engine.IVFit):
+            raise engine.SpecificationError("the model has no instruments")
+        fs, tests, ar = strength_for(session, fkey, base, method, est, res.level)
+        rows = [{"test": n, "statistic": j.statistic, "df": j.df, "p_value": j.p_value,
+                 "S": j.s_from} for n, j in tests]
+        rows += [{"test": f"first stage F, {e}", "statistic": r.robust_f,
+                  "df": r.instruments, "p_value": r.robust_p, "S": fs.estimator}
+                 for e, r in fs.table.iterrows()]
+        rows += [{"test": name, "statistic": item["value"], "df": None, "p_value": None,
+                  "S": f"compare with {item['compare_with']:g}: {item['source']}"}
+                 for name, item in fs.strength.items()]
+        notes = [] if ar is None else [f"Anderson-Rubin {ar.level:.0%} set for {ar.term}: "
+                                       f"{ar.text()}. {ar.reading}"]
+        import pandas as pd
+        return pd.DataFrame(rows), f"{base.response}: instrument strength and specification", \
+            notes
     rep = diagnostics_for(session, fkey, model)
     frame = rep.tests[["test", "statistic", "df", "df2", "p_value", "null", "method"]]
     return frame, f"{model.response}: residual diagnostics", \
@@ -99,7 +122,7 @@ def on_export(clicks, *states):
     if not isinstance(trig, dict) or not any(c for c in clicks or [] if c):
         return no_update
     figs = dict(zip(GRAPHS, states[: len(GRAPHS)]))
-    session, fkey, name, values, ids, rule, slider, reference, level, focus = \
+    session, fkey, name, values, ids, rule, slider, reference, level, focus, method = \
         states[len(GRAPHS):]
     target, fmt = trig.get("target"), trig.get("fmt")
     try:
@@ -111,9 +134,10 @@ def on_export(clicks, *states):
                     "filename": f"lagwise_{target}.{fmt}"}
         if target not in TABLES or fmt not in FORMATS:
             return no_update
-        model, res = current_view(session, fkey, name, values, ids, rule, slider, reference,
-                                  level, focus)
-        frame, caption, notes = table_frame(target, session, fkey, model, res, focus, reference)
+        model, res, base, est = current_view(session, fkey, name, values, ids, rule, slider,
+                                             reference, level, focus, method)
+        frame, caption, notes = table_frame(target, session, fkey, model, res, focus, reference,
+                                            base, est, method)
         text = render(frame, fmt, index=False, caption=caption, notes=notes)
     except (engine.LagwiseError, ValueError) as exc:
         return {"content": f"export failed: {exc}\n", "filename": "lagwise_export_error.txt"}
@@ -125,15 +149,19 @@ def on_export(clicks, *states):
           *[State(g, "figure") for g in GRAPHS], *VIEW_STATE, prevent_initial_call=True)
 def on_report(_n, *states):
     figs = [go.Figure(f) for f in states[: len(GRAPHS)] if isinstance(f, dict)]
-    session, fkey, name, values, ids, rule, slider, reference, level, focus = \
+    session, fkey, name, values, ids, rule, slider, reference, level, focus, method = \
         states[len(GRAPHS):]
     try:
-        model, res = current_view(session, fkey, name, values, ids, rule, slider, reference,
-                                  level, focus)
+        model, res, base, est = current_view(session, fkey, name, values, ids, rule, slider,
+                                             reference, level, focus, method)
         tables = []
-        for target, title in zip(TABLES, ["Coefficients", "Every estimator, coefficient in "
-                                          "focus", "Diagnostic tests"]):
-            frame, _, _ = table_frame(target, session, fkey, model, res, focus, reference)
+        titles = ["Coefficients", "Every estimator, coefficient in focus", "Diagnostic tests",
+                  "Instruments: strength and specification"]
+        for target, title in zip(TABLES, titles):
+            if target == "spec-table" and not isinstance(base, engine.IVFit):
+                continue
+            frame, _, _ = table_frame(target, session, fkey, model, res, focus, reference,
+                                      base, est, method)
             tables.append((title, frame))
         text = V.report_html(model, figs, tables, res.describe(), conventions(res))
     except engine.LagwiseError as exc:
@@ -147,9 +175,11 @@ def on_report(_n, *states):
           Output("settings-message", "children"), Input("save-settings", "n_clicks"),
           State("dataset-key", "data"), State("response", "value"), State("regressors", "value"),
           State("intercept", "value"), State("horizon", "value"), State("window", "value"),
-          State("chart-mode", "value"), *VIEW_STATE, prevent_initial_call=True, message=1)
-def on_save(_n, dkey, response, regressors, intercept, horizon, window, mode, session, fkey,
-            name, values, ids, rule, slider, reference, level, focus):
+          State("chart-mode", "value"), State("endogenous", "value"),
+          State("instruments", "value"), *VIEW_STATE, prevent_initial_call=True, message=1)
+def on_save(_n, dkey, response, regressors, intercept, horizon, window, mode, endogenous,
+            instruments, session, fkey, name, values, ids, rule, slider, reference, level, focus,
+            method):
     table = stored(session, dkey)
     family = engine.FAMILIES.get(name)
     params = param_values(family, values, ids) if family else {}
@@ -158,7 +188,9 @@ def on_save(_n, dkey, response, regressors, intercept, horizon, window, mode, se
               else [], "response": response, "regressors": regressors,
               "intercept": bool(intercept), "horizon": horizon, "window": window,
               "estimator": name, "params": params, "rule": rule, "value": slider,
-              "reference": reference, "level": level, "focus": focus, "chart_mode": mode}
+              "reference": reference, "level": level, "focus": focus, "chart_mode": mode,
+              "endogenous": endogenous or [], "instruments": instruments or [],
+              "method": method or "2sls"}
     return ({"content": settings_json(record), "filename": "lagwise_settings.json"},
             V.ok_box("settings saved to lagwise_settings.json"))
 
@@ -172,7 +204,10 @@ SETTINGS_OUTPUTS = [Output("settings-message", "children", allow_duplicate=True)
                     Output("tune-slider", "value", allow_duplicate=True),
                     Output("reference", "value"), Output("level", "value"),
                     Output("chart-mode", "value"),
-                    Output("dataset-key", "data", allow_duplicate=True)]
+                    Output("dataset-key", "data", allow_duplicate=True),
+                    Output("endogenous", "value", allow_duplicate=True),
+                    Output("instruments", "value", allow_duplicate=True),
+                    Output("iv-method", "value")]
 
 
 @callback(*SETTINGS_OUTPUTS, Input("load-settings", "contents"), Input("pending-settings", "data"),
@@ -210,7 +245,8 @@ def on_load_settings(contents, pending, filename, dkey, session):
             STORE.put(session, new_key, replayed)
             table = replayed
     cols = set(table.frame.columns) if table is not None else set()
-    wanted = [c for c in [s.get("response")] + list(s.get("regressors") or []) if c]
+    wanted = [c for c in [s.get("response")] + list(s.get("regressors") or [])
+              + list(s.get("instruments") or []) if c]
     missing = [c for c in wanted if cols and c not in cols]
     if missing:
         return (V.error_box(f"settings refer to column(s) {', '.join(map(repr, missing))}, which "
@@ -221,4 +257,5 @@ def on_load_settings(contents, pending, filename, dkey, session):
             ["on"] if s.get("intercept", True) else [], s.get("horizon"),
             s.get("estimator", "kernel"), s.get("rule", "fixed"),
             s.get("value") if s.get("value") is not None else no_update,
-            s.get("reference", "auto"), s.get("level", 0.95), s.get("chart_mode", "t"), new_key)
+            s.get("reference", "auto"), s.get("level", 0.95), s.get("chart_mode", "t"), new_key,
+            s.get("endogenous", []), s.get("instruments", []), s.get("method", "2sls"))

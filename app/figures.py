@@ -89,12 +89,40 @@ def sensitivity_figure(sweep, term: str, mode: str = "t", level: float = 0.95,
     if rng is not None:
         fig.update_yaxes(range=rng)
     ylab = {"t": f"t statistic of {term}", "se": f"standard error of {term}",
-            "ci": f"{level:.0%} interval for {term}"}[mode]
-    fig.update_xaxes(title_text=sweep.axis.title + (
-        " (lags used = ceil(b) - 1 for finite kernels)" if sweep.axis.symbol == "b" else ""))
+            "estimate": f"estimate of {term}", "ci": f"{level:.0%} interval for {term}"}[mode]
+    xlab = sweep.axis.title + (" (lags used = ceil(b) - 1 for finite kernels)"
+                               if sweep.axis.symbol == "b" else "")
+    fig.update_xaxes(title_text=xlab)
     fig.update_yaxes(title_text=ylab)
     what = "bandwidth" if sweep.axis.symbol == "b" else sweep.axis.title
+    if "j_p_value" in sweep.extras and np.isfinite(sweep.extras["j_p_value"]).any():
+        fig = _with_j_panel(fig, sweep, current_curve, xlab)
+        return _base(fig, f"How {term} and the J test depend on the {what}", 520)
     return _base(fig, f"How {term} depends on the {what}", 400)
+
+
+def _with_j_panel(fig, sweep, current_curve, xlab):
+    """The same chart above a second panel: the p-value of Hansen's J at each point."""
+    out = make_subplots(rows=2, cols=1, shared_xaxes=True, row_heights=[0.7, 0.3],
+                        vertical_spacing=0.08)
+    for trace in fig.data:
+        out.add_trace(trace, row=1, col=1)
+    out.layout.shapes = fig.layout.shapes            # the current-value line stays shape 0
+    out.layout.annotations = fig.layout.annotations
+    out.update_yaxes(range=fig.layout.yaxis.range, title_text=fig.layout.yaxis.title.text,
+                     row=1, col=1)
+    p = sweep.extras["j_p_value"]
+    for c in range(len(sweep.labels)):
+        color, short, width = _curve_style(sweep, c, c == current_curve)
+        out.add_trace(go.Scatter(x=sweep.values, y=p[c], mode="lines", name=f"{short}: J p",
+                                 line={"color": color, "width": width}, showlegend=False,
+                                 hovertemplate=f"{short}<br>%{{x}}<br>J p-value %{{y:.3f}}"
+                                               "<extra></extra>"), row=2, col=1)
+    out.add_hline(y=0.05, line={"color": MUTED, "width": 1, "dash": "dash"}, row=2, col=1)
+    out.update_yaxes(title_text=f"J p-value ({sweep.extras['j_df']} df)", range=[0, 1],
+                     row=2, col=1)
+    out.update_xaxes(title_text=xlab, row=2, col=1)
+    return out
 
 
 def _curve_style(sweep, c, current: bool):
@@ -122,7 +150,7 @@ def _add_curve(fig, sweep, c, j, mode, cv, current):
                                  line={"color": color, "width": width, "dash": "dash"},
                                  showlegend=False))
         return np.r_[y, y2], np.r_[~odd, ~odd]
-    y = se if mode == "se" else sweep.t_stat[c, :, j]
+    y = se if mode == "se" else est if mode == "estimate" else sweep.t_stat[c, :, j]
     fig.add_trace(go.Scatter(x=x, y=np.where(odd, np.nan, y), mode="lines", name=short,
                              line={"color": color, "width": width},
                              hovertemplate=f"{short}<br>{sweep.axis.symbol}=%{{x}}<br>%{{y:.3f}}"
@@ -171,6 +199,8 @@ def _add_marks(fig, sweep, j, mode, cv, marks):
             continue
         if mode == "se":
             series = sweep.std_error[c, :, j]
+        elif mode == "estimate":
+            series = sweep.estimate[c, :, j]
         elif mode == "ci":
             series = sweep.estimate[c, :, j] + cv[c] * sweep.std_error[c, :, j]
         else:

@@ -7,6 +7,7 @@ import dash_ag_grid as dag
 from dash import dcc, html
 
 from ..engine import FAMILIES, KERNELS, TRANSFORMS
+from ..engine.gmm import METHODS
 from ..engine.covariance import Param
 from ..engine.laws import REQUESTS
 from .state import MAX_UPLOAD_BYTES
@@ -38,6 +39,10 @@ HELP = {
                  "sum of the next h values (an overlapping h-period response, whose errors are "
                  "MA(h-1)).",
     "window": "Sample window over the time index (both ends included).",
+    "iv": "Mark regressors as endogenous and choose excluded instruments (the exogenous "
+          "regressors instrument themselves). Two-step, iterated and continuously updated GMM "
+          "weight the moments by the estimator chosen in the Sensitivity card, so the estimate "
+          "itself moves with the kernel and bandwidth.",
     "headline": "All numbers assume a correctly specified linear model and stationary data; "
                 "the p-value is only as good as the reference law and bandwidth behind it. "
                 "Choose the estimator before looking at the results, and report the range "
@@ -162,6 +167,18 @@ def sidebar(initial_horizon=None, where: str = "this computer"):
         dcc.Checklist(id="intercept", options=[{"label": " intercept", "value": "on"}],
                       value=["on"], className="lw-check"),
         html.Details([
+            html.Summary("Instruments (IV / GMM)"),
+            html.P(HELP["iv"], className="lw-help"),
+            html.Label("endogenous regressors", className="lw-label"),
+            dcc.Dropdown(id="endogenous", multi=True, placeholder="none: least squares"),
+            html.Label("excluded instruments", className="lw-label"),
+            dcc.Dropdown(id="instruments", multi=True),
+            html.Label("estimation", className="lw-label"),
+            dcc.Dropdown(id="iv-method", options=[{"label": v.split(" (")[0], "value": k,
+                                                   "title": v} for k, v in METHODS.items()],
+                         value="2sls", clearable=False)],
+            className="lw-details", id="iv-details"),
+        html.Details([
             html.Summary("Transforms"),
             html.P(HELP["transform"], className="lw-help"),
             html.Div([
@@ -241,6 +258,21 @@ def sensitivity_card():
                 export=export_menu("sens-graph", CHART_FORMATS))
 
 
+def strength_card():
+    """Instrument strength and specification (shown for IV / GMM fits)."""
+    return html.Div(card("Instruments: strength and specification", [
+        html.P("First-stage strength and the J test use the estimator of S chosen above. "
+               "Rules of thumb are common practice, not tests with a known size; the "
+               "Anderson-Rubin set is valid however weak the instruments are.",
+               className="lw-help"),
+        grid("first-stage-table", views.FIRST_STAGE_COLUMNS),
+        html.Ul(id="strength-list", className="lw-reading-list"),
+        grid("spec-table", views.SPEC_COLUMNS),
+        html.Div(id="ar-text", className="lw-reading")],
+        export=export_menu("spec-table", TABLE_FORMATS, copy=True)),
+        id="strength-card", style={"display": "none"})
+
+
 def main_area():
     return html.Main([
         html.Section([
@@ -265,6 +297,7 @@ def main_area():
                             type="dot", color="#0e6e64")],
                  export=export_menu("compare-table", TABLE_FORMATS, copy=True)),
         ], className="lw-results"),
+        strength_card(),
         card("Interval across estimators", [graph("interval-graph", 420)],
              export=export_menu("interval-graph", CHART_FORMATS)),
         html.H2("Residual diagnostics", className="lw-section-title"),

@@ -19,7 +19,7 @@ from .layout import build_layout
 from .state import MAX_UPLOAD_BYTES, STORE, CapacityError
 
 DEMO_SPEC = {"response": "exret_12m", "regressors": ["rate_capacity", "credit_spread"],
-             "horizon": 12}
+             "horizon": 12, "horizons": {"exret_12m": 12, "exret_36m": 36}}
 LOOPBACK = ("127.0.0.1", "localhost", "::1", "[::1]")
 
 

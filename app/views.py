@@ -78,6 +78,14 @@ DIAG_COLUMNS = [column("test", "test", text=False, left=True, width=190),
                 column("statistic", "statistic"), column("df", "df", text=False),
                 column("p_value", "p"), column("null", "null hypothesis", text=False, width=200),
                 column("method", "method", text=False, width=220)]
+FIRST_STAGE_COLUMNS = [column("endogenous", "endogenous", text=False, left=True, width=150),
+                       column("robust_f", "F (chosen S)"), column("robust_p", "p"),
+                       column("homoskedastic_f", "F (homoskedastic)"),
+                       column("partial_r2", "partial R²")]
+SPEC_COLUMNS = [column("test", "test", text=False, left=True, width=220),
+                column("statistic", "statistic"), column("df", "df", text=False),
+                column("p_value", "p"), column("about", "what it uses", text=False, left=True,
+                                               width=260)]
 SUMMARY_COLUMNS = [column("column", "column", text=False, left=True),
                    column("count", "count"), column("missing", "missing"),
                    column("mean", "mean"), column("sd", "sd")]
@@ -166,6 +174,33 @@ def tsv(records: list[dict], columns: list[dict]) -> str:
     lines = ["\t".join(c.get("headerName", c["field"]) for c in columns)]
     lines += ["\t".join(cell(r, c) for c in columns) for r in records or []]
     return "\n".join(lines) + "\n"
+
+
+def first_stage_records(fs) -> list[dict]:
+    return [_with_text({"endogenous": name},
+                       {"robust_f": (r.robust_f, fmt(r.robust_f, 3)),
+                        "robust_p": (r.robust_p, fmt_p(r.robust_p)),
+                        "homoskedastic_f": (r.homoskedastic_f, fmt(r.homoskedastic_f, 3)),
+                        "partial_r2": (r.partial_r2, fmt(r.partial_r2, 3))})
+            for name, r in fs.table.iterrows()]
+
+
+def strength_lines(fs) -> list:
+    out = []
+    for name, item in fs.strength.items():
+        below = item["value"] < item["compare_with"]
+        out.append(html.Li(f"{name} = {fmt(item['value'], 3)}: "
+                           + ("below" if below else "above")
+                           + f" {fmt(item['compare_with'], 3)} ({item['source']})."))
+    return out
+
+
+def spec_records(tests) -> list[dict]:
+    """tests: [(name, JTest)]."""
+    return [_with_text({"test": name, "df": str(j.df), "about": j.s_from},
+                       {"statistic": (j.statistic, fmt(j.statistic, 4)),
+                        "p_value": (j.p_value, fmt_p(j.p_value) if j.df else "n/a")})
+            for name, j in tests]
 
 
 # --------------------------------------------------------------------------- words

@@ -10,9 +10,21 @@ index. Monthly, 1989-01 to 2023-12. Columns:
   rate_capacity  a persistent valuation ratio (log of freight rates over fleet capacity)
   credit_spread  a credit spread of carriers' bonds (percentage points)
 
+  rate_growth          growth of the index's charter rates over the month (percent)
+  utilization_survey   fleet utilization as reported by a monthly survey: the true utilization
+                       (not in the file) measured with error, so it is endogenous in a
+                       regression of rate_growth on it (least squares is biased towards zero)
+  port_congestion      a congestion index driven by the true utilization: a strong instrument
+  scrap_rate           ship scrapping: only weakly related to utilization (a weak instrument)
+  bunker_spread        a fuel-price spread: weakly related to utilization (a weak instrument)
+
 The 12-month regression on rate_capacity is built so that its slope looks clearly significant
 with classical or White standard errors, while under HAC its significance depends on the lag
-choice: the point the demo makes. Run `python demo_data/make_demo.py` to rebuild the CSV.
+choice: the point the demo makes. The second block is built for instrumental variables:
+rate_growth on utilization_survey is attenuated by least squares, 2SLS with port_congestion is
+reasonable, and with only scrap_rate and bunker_spread the Anderson-Rubin set is much wider than
+the Wald interval. The second block comes from its own random stream, so the first block's
+numbers do not depend on it. Run `python demo_data/make_demo.py` to rebuild the CSV.
 """
 
 from pathlib import Path
@@ -49,8 +61,33 @@ def generate(seed: int = SEED, nobs: int = T) -> pd.DataFrame:
     for h in (12, 36):
         frame[f"exret_{h}m"] = ret[::-1].rolling(h).sum()[::-1].shift(-1)
     frame = frame.iloc[:nobs]
-    return frame[["month", "exret_1m", "exret_12m", "exret_36m", "rate_capacity",
-                  "credit_spread"]].round(4)
+    frame = frame[["month", "exret_1m", "exret_12m", "exret_36m", "rate_capacity",
+                   "credit_spread"]].round(4)
+    return pd.concat([frame, utilization_block(seed + 1, len(frame))], axis=1)
+
+
+def utilization_block(seed: int, nobs: int) -> pd.DataFrame:
+    """The instrumental-variables scenario (its own random stream)."""
+    rng = np.random.default_rng(seed)
+    burn = 100
+    n = nobs + burn
+    true = np.empty(n)
+    err = np.empty(n)
+    true[0], err[0] = 0.0, 0.0
+    shocks = rng.standard_normal((n, 6))
+    for t in range(1, n):
+        true[t] = 0.8 * true[t - 1] + 0.6 * shocks[t, 0]
+        err[t] = 0.4 * err[t - 1] + shocks[t, 1]
+    true, err, shocks = true[burn:], err[burn:], shocks[burn:]
+    scale = 1.0 + 0.4 * np.abs(true)
+    growth = 0.5 + 1.5 * true + 1.2 * err * scale
+    survey = true + 0.9 * shocks[:, 2]
+    congestion = 0.9 * true + 0.5 * shocks[:, 3]
+    scrap = 0.10 * true + 1.0 * shocks[:, 4]
+    bunker = 0.08 * true + 1.0 * shocks[:, 5]
+    return pd.DataFrame({"rate_growth": growth, "utilization_survey": survey,
+                         "port_congestion": congestion, "scrap_rate": scrap,
+                         "bunker_spread": bunker}).round(4)
 
 
 def write(path: Path | None = None, seed: int = SEED) -> Path:

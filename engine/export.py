@@ -163,6 +163,9 @@ _FIELDS = {
     "level": ((float, int), "level"),
     "focus": ((str, type(None)), None),
     "chart_mode": ((str,), None),
+    "endogenous": ((list,), "names"),
+    "instruments": ((list,), "names"),
+    "method": ((str,), None),
 }
 #: names used by version 1 files
 _OLD_KEYS = {"bandwidth": "value"}
@@ -248,7 +251,7 @@ def validate_settings(data: dict) -> dict:
             raise DataError(f"settings: '{key}' is too long")
         if check == "names" and (len(value) > 200 or not all(isinstance(v, str) and len(v) < 500
                                                              for v in value)):
-            raise DataError("settings: 'regressors' must be a short list of column names")
+            raise DataError(f"settings: '{key}' must be a short list of column names")
         if check == "positive" and value is not None and value < 1:
             raise DataError("settings: 'horizon' must be a whole number >= 1")
         if check == "level" and not 0.5 <= float(value) < 1:
@@ -287,6 +290,9 @@ def validate_settings(data: dict) -> dict:
         if data.get("rule", "fixed") not in rules | {"fixed"}:
             raise DataError(f"settings: rule {data.get('rule')!r} does not belong to "
                             f"{family.title}")
-    if data.get("chart_mode", "t") not in ("t", "se", "ci"):
-        raise DataError("settings: 'chart_mode' is t, se or ci")
+    if data.get("chart_mode", "t") not in ("t", "se", "ci", "estimate"):
+        raise DataError("settings: 'chart_mode' is t, estimate, se or ci")
+    from .gmm import METHODS
+    if data.get("method", "2sls") not in METHODS:
+        raise DataError(f"settings: unknown estimation method {data.get('method')!r}")
     return data

@@ -460,10 +460,20 @@ class IVFit(MomentModel):
         standard error and J at every (kernel, bandwidth), each from the first step's cached
         autocovariances (no pass over the data per grid point)."""
         from .sweep import sweep_kernels
+        from .weakiv import gmm_sweep, with_j
         if self.method == "2sls":
-            return sweep_kernels(self, kernels, bandwidths, small_sample, repair, prewhiten)
-        from .weakiv import gmm_sweep
+            return with_j(self, sweep_kernels(self, kernels, bandwidths, small_sample, repair,
+                                              prewhiten))
         return gmm_sweep(self, kernels, bandwidths, small_sample, repair)
+
+    def sweep_axis(self, estimator, values=None):
+        """One estimator along its family's tuning axis. For a GMM fit the weighting follows
+        the estimator: the two-step estimate at each value (efficient form), with J."""
+        from .sweep import sweep
+        from .weakiv import gmm_axis_sweep, with_j
+        if self.method == "2sls":
+            return with_j(self, sweep(self, [estimator], values))
+        return gmm_axis_sweep(self, as_estimator(estimator), values)
 
     def __repr__(self):
         return (f"IVFit(response={self.response!r}, terms={self.terms}, instruments="

@@ -57,7 +57,8 @@ def heteroskedasticity_robust(model, kind: str) -> LongRun:
         h = model.leverage
         if h is None:
             raise EstimationError(f"{kind.upper()} needs the leverage of each observation, which "
-                                  f"is not defined for a {model.kind} model; use HC0 or HC1")
+                                  f"is not defined for this model ({model.kind}); use HC0 or "
+                                  "HC1")
         bad = np.flatnonzero(h > 1.0 - LEVERAGE_TOL)
         if bad.size:
             from .model import index_label

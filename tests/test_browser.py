@@ -288,3 +288,39 @@ def test_twenty_concurrent_sessions_see_only_their_own_data(browser, live_server
         expect(cells(page, "coef-table", "estimate").nth(1)).to_have_text(fmt(est))
     for c in contexts:
         c.close()
+
+
+def test_instrumental_variables_in_the_page(page: Page, live_server):
+    """Mark a regressor endogenous, add instruments, choose two-step GMM: the estimate, the J
+    test and the Anderson-Rubin set appear, and moving the slider moves the estimate."""
+    open_app(page, live_server)
+    choose(page, "response", "rate_growth")
+    choose(page, "regressors", "rate_capacity")          # off
+    choose(page, "regressors", "credit_spread")          # off
+    choose(page, "regressors", "utilization_survey")
+    expect(cells(page, "coef-table", "term")).to_have_text(["intercept", "utilization_survey"],
+                                                           timeout=20_000)
+    page.locator("#iv-details summary").click()
+    choose(page, "endogenous", "utilization_survey")
+    choose(page, "instruments", "scrap_rate")
+    choose(page, "instruments", "bunker_spread")
+    expect(page.locator("#strength-card")).to_be_visible(timeout=20_000)
+    expect(page.locator("#ar-text")).to_contain_text("Anderson-Rubin 95% set", timeout=20_000)
+    expect(cells(page, "spec-table", "test").first).to_contain_text("Hansen J")
+    choose(page, "iv-method", "two-step efficient GMM")
+    thumb = page.locator("#tune-slider [role=slider]")
+    thumb.focus()
+    page.keyboard.press("End")
+    t = lagwise.load_table(DEMO)
+    base = lagwise.fit_iv(t, "rate_growth", ["utilization_survey"], ["utilization_survey"],
+                          ["scrap_rate", "bunker_spread"])
+    top = int(thumb.get_attribute("aria-valuenow"))
+    two = base.two_step(lagwise.estimator("kernel", kernel="bartlett", bandwidth=float(top)))
+    expect(cells(page, "coef-table", "estimate").nth(1)).to_have_text(
+        fmt(two.beta[1]), timeout=20_000)
+    expect(page.locator("#coef-caption")).to_contain_text("efficient form")
+    expect(cells(page, "spec-table", "statistic").first).to_have_text(
+        fmt(two.j_test().statistic), timeout=20_000)
+    page.wait_for_function(
+        "() => document.getElementById('sens-graph').querySelector('.js-plotly-plot')"
+        ".layout.title.text.includes('J test')")
