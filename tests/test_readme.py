@@ -57,3 +57,19 @@ def test_readme_demo_claims_hold(demo_comparison):
     for name in not_rejected + ["Truncated (uniform), b = 12", "EWC, B = 22",
                                 "VAR-HAC, order by BIC"]:
         assert bool(rows.loc[name, "rejects"]) is False, name
+
+
+def test_readme_iv_demo_claims_hold():
+    t = lagwise.load_table(lagwise.demo_file())
+    ols = lagwise.fit_ols(t, "rate_growth", ["utilization_survey"]).params["utilization_survey"]
+    iv = lagwise.fit_iv(t, "rate_growth", ["utilization_survey"], ["utilization_survey"],
+                        ["port_congestion", "scrap_rate", "bunker_spread"])
+    assert round(ols, 2) == 0.87 and round(iv.params["utilization_survey"], 1) == 1.6
+    weak = lagwise.fit_iv(t, "rate_growth", ["utilization_survey"], ["utilization_survey"],
+                          ["scrap_rate", "bunker_spread"])
+    est = lagwise.estimator("kernel", kernel="bartlett", bandwidth="andrews")
+    wald = weak.infer(est).table.loc["utilization_survey"]
+    assert wald.ci_low > 0 or wald.ci_high < 0
+    ar = weak.anderson_rubin("utilization_survey", est)
+    (lo, hi), = ar.intervals
+    assert lo < 0 < hi and round(lo, 2) == -0.42 and round(hi, 2) == 3.26
