@@ -16,6 +16,7 @@ from .kernels import KERNELS, Kernel, get_kernel, register_kernel
 from .laws import EWCLaw, FixedB, Law, Normal, StudentT
 from .model import MomentModel, OLSFit, SeriesModel, fit_ols, INTERCEPT
 from .gmm import IVFit, fit_iv
+from .panel import FamaMacBethFit, PanelFit, fit_fama_macbeth, fit_panel
 from .covariance import (FAMILIES, Estimator, Family, Param, TuningAxis, estimator, estimators,
                          register_family)
 from .bandwidth import RULES as BANDWIDTH_RULES, select_bandwidth, BandwidthChoice
@@ -31,6 +32,7 @@ __all__ = [
     "KERNELS", "Kernel", "get_kernel", "register_kernel",
     "Law", "Normal", "StudentT", "EWCLaw", "FixedB",
     "MomentModel", "OLSFit", "SeriesModel", "fit_ols", "INTERCEPT", "IVFit", "fit_iv",
+    "PanelFit", "FamaMacBethFit", "fit_panel", "fit_fama_macbeth",
     "FAMILIES", "Estimator", "Family", "Param", "TuningAxis", "estimator", "estimators",
     "register_family",
     "BANDWIDTH_RULES", "select_bandwidth", "BandwidthChoice",

@@ -307,6 +307,22 @@ def bandwidth_grid(model) -> np.ndarray:
     return np.arange(1, top + 1, dtype=float)
 
 
+def _time_series_only(model) -> str | None:
+    """Why a time-series estimator does not apply to a stacked panel (None when it does)."""
+    if getattr(model, "panel", None) is not None:
+        return ("the rows of a stacked panel are not one time series: use Driscoll-Kraay (a "
+                "kernel over the per-period sums), clustering, or clustering by entity with a "
+                "kernel over time")
+    return None
+
+
+def _panel_only(model) -> str | None:
+    if getattr(model, "panel", None) is None:
+        return ("this estimator groups the moment contributions by entity and period: it needs "
+                "a panel fit (lagwise.fit_panel)")
+    return None
+
+
 # --------------------------------------------------------------------------- classical, HC
 
 register_family(Family(
@@ -335,7 +351,9 @@ register_family(Family(
                   choices=("hc0", "hc1", "hc2", "hc3"), title="variant"),),
     long_run=lambda model, kind: longrun.heteroskedasticity_robust(model, kind),
     psd=lambda p: True, label=lambda p, lr: p["kind"].upper(), group="hc",
-    presets=lambda model, kernel, bandwidth: [estimator(k) for k in ("hc0", "hc1", "hc2", "hc3")]),
+    presets=lambda model, kernel, bandwidth: [
+        estimator(k) for k in ("hc0", "hc1", "hc2", "hc3")
+        if k in ("hc0", "hc1") or getattr(model, "leverage", None) is not None]),
     shorthands={k: {"kind": k} for k in ("hc0", "hc1", "hc2", "hc3")})
 
 
@@ -374,7 +392,7 @@ def _kernel_curve(p) -> str:
 def _kernel_fixed_b(p, lr, info):
     if p.get("prewhiten"):
         raise SpecificationError("fixed-b critical values here assume no prewhitening")
-    return laws.FixedB(p["kernel"], lr.bandwidth / info.nobs)
+    return laws.FixedB(p["kernel"], lr.bandwidth / (lr.span or info.nobs))
 
 
 def _kernel_presets(model, kernel=None, bandwidth=None) -> list:
@@ -432,7 +450,8 @@ register_family(Family(
                     help="lag j gets weight k(j/b); kernels vanishing beyond |x| = 1 use "
                          "ceil(b) - 1 lags",
                     rules={k: (v[0], {"bandwidth": k}) for k, v in RULES.items()}),
-    fixed_b=_kernel_fixed_b, sweep=_kernel_sweep, presets=_kernel_presets, curve=_kernel_curve))
+    fixed_b=_kernel_fixed_b, sweep=_kernel_sweep, presets=_kernel_presets, curve=_kernel_curve,
+    applies=lambda model: _time_series_only(model)))
 
 
 # --------------------------------------------------------------------------- VAR-HAC
@@ -474,7 +493,8 @@ register_family(Family(
                     rules={"bic": ("order by BIC", {"criterion": "bic", "max_order": None}),
                            "aic": ("order by AIC", {"criterion": "aic", "max_order": None})}),
     presets=lambda model, kernel, bandwidth: [estimator("var"),
-                                              estimator("var", max_order=1, criterion="fixed")]))
+                                              estimator("var", max_order=1, criterion="fixed")],
+    applies=lambda model: _time_series_only(model)))
 
 
 # --------------------------------------------------------------------------- EWC
@@ -509,4 +529,171 @@ register_family(Family(
     axis=TuningAxis("cosines", "B", "cosine terms B", _ewc_grid,
                     help="S averages the first B cosine-weighted sums; the law is t(B)",
                     rules={"llsw": ("LLSW (2018), floor(0.4 T^(2/3))", {"cosines": "llsw"})}),
-    presets=lambda model, kernel, bandwidth: [estimator("ewc")]))
+    presets=lambda model, kernel, bandwidth: [estimator("ewc")],
+    applies=lambda model: _time_series_only(model)))
+
+
+# --------------------------------------------------------------------------- panels
+
+_CLUSTER_TITLES = {"entity": "Clustered by entity", "time": "Clustered by time",
+                   "both": "Clustered by entity and time"}
+
+register_family(Family(
+    name="cluster", title="Clustered (panel)",
+    citation="Liang & Zeger (1986); Arellano (1987); two-way: Cameron, Gelbach & Miller (2011), "
+             "JBES 29(2)",
+    assumptions="Clusters are independent of each other, with any correlation and "
+                "heteroskedasticity inside a cluster; needs many clusters (the reference law is "
+                "t(G - 1)). By entity: a firm's errors may be correlated over time. By time: "
+                "firms' errors may be correlated within a period. Both: either, but not across "
+                "different firms in different periods.",
+    params=(
+        Param("by", "choice", "entity", "entity: clusters are entities; time: clusters are "
+              "periods; both: two-way (entity + time - intersection)",
+              choices=("entity", "time", "both"), title="cluster by"),
+        Param("small_sample", "bool", True,
+              "multiply each term by G/(G-1) x (N-1)/(N-K) (the usual CRV1 practice; K counts "
+              "coefficients and absorbed effects)",
+              title="small-sample factor G/(G-1) x (N-1)/(N-K)"),
+    ),
+    long_run=lambda model, by, small_sample: longrun.cluster(model, by, small_sample),
+    psd=lambda p: True,
+    label=lambda p, lr: _CLUSTER_TITLES[p["by"]]
+    + ("" if p["small_sample"] else ", no small-sample factor"),
+    group="cluster", applies=_panel_only,
+    presets=lambda model, kernel, bandwidth: [estimator("cluster", by=b)
+                                              for b in ("entity", "time", "both")]))
+
+
+def _period_grid(model) -> np.ndarray:
+    return bandwidth_grid(model.period_model)
+
+
+def _dk_long_run(model, *, kernel, bandwidth, small_sample, repair):
+    view = model.period_model
+    lr = _kernel_long_run(view, kernel=kernel, bandwidth=bandwidth, small_sample=small_sample,
+                          repair=repair)
+    lr.S = lr.S * view.scale
+    lr.span = view.nobs
+    lr.notes.insert(0, f"Driscoll-Kraay: {get_kernel(kernel).label} kernel over the sums of the "
+                       f"moment contributions in each of {view.nobs} periods")
+    return lr
+
+
+def _dk_label(p, lr) -> str:
+    k = get_kernel(p["kernel"])
+    text = f"Driscoll-Kraay, {k.label}, {rule_title(p['bandwidth'])}"
+    if not k.psd and not p.get("repair", True):
+        text += ", unrepaired"
+    return text + (", N/(N-K)" if p.get("small_sample") else "")
+
+
+def _dk_curve(p) -> str:
+    k = get_kernel(p["kernel"])
+    return f"Driscoll-Kraay, {k.label}" + (", N/(N-K)" if p.get("small_sample") else "")
+
+
+def _dk_sweep(model, estimators, values):
+    from .sweep import kernel_curves
+    view = model.period_model
+    ests = [estimator("kernel", kernel=e.params["kernel"], bandwidth=1.0,
+                      small_sample=e.params["small_sample"], repair=e.params["repair"])
+            for e in estimators]
+    parts = kernel_curves(view, ests, values)
+    for row in parts["long_runs"]:
+        for lr in row:
+            lr.span = view.nobs
+    return parts
+
+
+def _dk_presets(model, kernel=None, bandwidth=None) -> list:
+    if kernel or bandwidth is not None:
+        return [estimator("driscoll_kraay", kernel=kernel or "bartlett",
+                          bandwidth=bandwidth if bandwidth is not None else "andrews")]
+    out = [estimator("driscoll_kraay", kernel="bartlett", bandwidth="andrews"),
+           estimator("driscoll_kraay", kernel="bartlett", bandwidth="newey-west"),
+           estimator("driscoll_kraay", kernel="quadratic_spectral", bandwidth="andrews")]
+    out.append((estimator("driscoll_kraay", kernel="bartlett", bandwidth="andrews"), "fixed-b",
+                "fixed-b critical values account for b relative to the number of periods"))
+    return out
+
+
+_PERIOD_BANDWIDTH = Param(
+    "bandwidth", "bandwidth", "andrews",
+    "bandwidth b in periods (weights k(j/b) on lag j of the per-period sums); or a rule name, "
+    "applied to the per-period sums: " + ", ".join(RULES), choices=tuple(RULES))
+
+register_family(Family(
+    name="driscoll_kraay", title="Driscoll-Kraay (panel)",
+    citation="Driscoll & Kraay (1998), Review of Economics and Statistics 80(4); fixed-b: "
+             "Vogelsang (2012), J. Econometrics 166",
+    assumptions="Errors may be correlated across entities within a period and over time (any "
+                "cross-sectional dependence), with the autocorrelation of the per-period sums "
+                "dying out within the bandwidth. Large-T theory: needs many periods, not many "
+                "entities.",
+    params=(
+        Param("kernel", "kernel", "bartlett", "weight function over lags of the per-period "
+              "sums"),
+        _PERIOD_BANDWIDTH,
+        Param("small_sample", "bool", False, "multiply S by N/(N-K)",
+              title="small-sample factor N/(N-K)"),
+        Param("repair", "bool", True, "set negative eigenvalues of S to zero for kernels that "
+              "are not PSD by construction (flagged)", title="eigenvalue repair"),
+    ),
+    long_run=_dk_long_run, psd=lambda p: get_kernel(p["kernel"]).psd or p["repair"],
+    label=_dk_label, group="panel kernel", applies=_panel_only,
+    axis=TuningAxis("bandwidth", "b", "bandwidth b (periods)", _period_grid,
+                    help="lag j of the per-period sums gets weight k(j/b)",
+                    rules={k: (v[0], {"bandwidth": k}) for k, v in RULES.items()}),
+    fixed_b=_kernel_fixed_b, sweep=_dk_sweep, presets=_dk_presets, curve=_dk_curve))
+
+
+def _ck_long_run(model, *, kernel, bandwidth, small_sample):
+    kern = get_kernel(kernel)
+    view = model.period_model
+    choice = resolve_bandwidth(view, kern, bandwidth)
+    b = choice.b
+    s_e, groups, fe = longrun._one_way(model, "entity", small_sample)
+    s_dk, lags, _, status = longrun.kernel_many(view, kern, [b], repair=False)
+    if status[0] == "collapsed":
+        raise EstimationError(f"the {kern.label} estimate over the per-period sums is zero at "
+                              f"b = {b:g}; choose a smaller bandwidth")
+    s_w = longrun.within_kernel(model, kern, b)
+    fk = model.small_sample_factor if small_sample else 1.0
+    out = longrun.LongRun(S=None, bandwidth=float(b), lags=int(lags[0]), factor=fe,
+                          how=choice.explanation, tuning=float(b), span=view.nobs)
+    out.S = longrun.clip_to_psd(s_e + fk * (s_dk[0] * view.scale - s_w),
+                                "entity-cluster plus time-kernel", out)
+    out.flags |= choice.flags
+    out.notes = [f"clustered by entity ({groups} clusters) plus a {kern.label} kernel over time "
+                 f"across entities (b = {b:.3g} periods), minus the within-entity overlap"] \
+        + choice.notes + out.notes
+    return out
+
+
+register_family(Family(
+    name="cluster_kernel", title="Entity clusters + time kernel (panel)",
+    citation="Thompson (2011), J. Financial Economics 99(1); Cameron, Gelbach & Miller (2011)",
+    assumptions="A firm's errors may be correlated over any horizon (clustered by entity); "
+                "errors of different firms may be correlated within a period and at nearby "
+                "periods, dying out within the bandwidth (a kernel over time). Needs many "
+                "entities and many periods.",
+    params=(
+        Param("kernel", "kernel", "bartlett", "weight function over lags in time"),
+        _PERIOD_BANDWIDTH,
+        Param("small_sample", "bool", True,
+              "entity term times G/(G-1) x (N-1)/(N-K), time-kernel terms times N/(N-K)",
+              title="small-sample factors"),
+    ),
+    long_run=_ck_long_run, psd=lambda p: True,
+    label=lambda p, lr: f"Entity clusters + {get_kernel(p['kernel']).label} over time, "
+                        f"{rule_title(p['bandwidth'])}"
+                        + ("" if p["small_sample"] else ", no small-sample factors"),
+    group="panel kernel", applies=_panel_only,
+    axis=TuningAxis("bandwidth", "b", "bandwidth b (periods)", _period_grid,
+                    help="lag j in time across entities gets weight k(j/b)",
+                    rules={k: (v[0], {"bandwidth": k}) for k, v in RULES.items()}),
+    curve=lambda p: f"Entity clusters + {get_kernel(p['kernel']).label} over time",
+    presets=lambda model, kernel, bandwidth: [estimator(
+        "cluster_kernel", kernel=kernel or "bartlett",
+        bandwidth=bandwidth if bandwidth is not None else "andrews")]))

@@ -87,8 +87,9 @@ class Inference:
             parts[0] += f" (b = {lr.bandwidth:.4g}, {lr.lags} lags)"
         if lr.how and not lr.how.startswith("fixed bandwidth"):
             parts.append(lr.how)
-        if any(p.name == "small_sample" for p in self.estimator.family.params):
-            parts.append("small-sample factor T/(T-k) applied" if lr.factor != 1.0
+        small = [p for p in self.estimator.family.params if p.name == "small_sample"]
+        if small:
+            parts.append(f"{small[0].title} applied" if self.estimator.params.get("small_sample")
                          else "no small-sample factor")
         parts.append(f"reference law: {self.law.describe()}")
         if self.method:

@@ -37,11 +37,13 @@ class LongRun:
     flags: set[str] = field(default_factory=set)
     law: Law | None = None                  # the law the estimator's theory gives (None: normal)
     tuning: float | None = None             # the value on the family's tuning axis
+    span: int | None = None                 # periods b is relative to (default: the model's T)
 
 
 def classical(model) -> LongRun:
     """S = s^2 (1/T) sum w_t w_t' (OLS: V = s^2 (X'X)^-1), t(T - k) reference."""
-    return LongRun(S=model.homoskedastic_long_run(), law=StudentT(model.df_resid, "T - k"),
+    law = StudentT(model.df_resid, getattr(model, "df_reason", "T - k"))
+    return LongRun(S=model.homoskedastic_long_run(), law=law,
                    notes=["assumes errors uncorrelated with constant variance"])
 
 
@@ -52,10 +54,9 @@ def heteroskedasticity_robust(model, kind: str) -> LongRun:
     if kind in ("hc0", "hc1"):
         g = model.working_contributions
         return LongRun(S=g.T @ g / model.nobs * factor, factor=factor)
-    e2 = model.resid**2
+    h = getattr(model, "leverage", None)
     if kind in ("hc2", "hc3"):
-        h = model.leverage
-        if h is None:
+        if h is None or getattr(model, "resid", None) is None:
             raise EstimationError(f"{kind.upper()} needs the leverage of each observation, which "
                                   f"is not defined for this model ({model.kind}); use HC0 or "
                                   "HC1")
@@ -67,7 +68,7 @@ def heteroskedasticity_robust(model, kind: str) -> LongRun:
                 f"{kind.upper()} is undefined: {bad.size} observation(s) have leverage 1 "
                 f"(rows {rows}); each is fitted exactly, e.g. by a dummy for one row. "
                 "Use HC0/HC1 or drop those rows.")
-        omega = e2 / (1.0 - h) ** (1 if kind == "hc2" else 2)
+        omega = model.resid**2 / (1.0 - h) ** (1 if kind == "hc2" else 2)
     w = model.working_design
     s = (w * omega[:, None]).T @ w / model.nobs * factor
     return LongRun(S=s, factor=factor)
@@ -304,3 +305,102 @@ def ewc(model, *, cosines="llsw", small_sample=False) -> LongRun:
     factor = model.small_sample_factor if small_sample else 1.0
     return LongRun(S=s * factor, factor=factor, how=how, law=EWCLaw(b), tuning=float(b),
                    notes=[f"EWC with {how}; reference law t({b})"])
+
+
+# --------------------------------------------------------------------------- panels
+
+def _require_clusters(model, dim: str, groups: int) -> None:
+    if groups < 2:
+        raise EstimationError(f"clustering by {dim} needs at least two clusters; this sample has "
+                              f"{groups}")
+    if groups <= model.k:
+        raise EstimationError(
+            f"clustering by {dim} needs more clusters than coefficients: {groups} clusters, "
+            f"{model.k} coefficients. The clustered S has rank below k, so some standard errors "
+            "would be zero or undefined; cluster by the other dimension, use Driscoll-Kraay, or "
+            "drop regressors")
+
+
+def cluster_factor(model, groups: int, nested: bool = False) -> float:
+    """G/(G-1) x (N-1)/(N-K), the usual small-sample factor of a one-way cluster estimate. K
+    counts the coefficients and the effect parameters absorbed, except fixed effects nested in
+    the clusters (entity effects with clusters by entity), which are not counted (the
+    convention of Cameron & Miller 2015, J. Human Resources 50(2), and linearmodels): K is then
+    the coefficients plus one for the overall level the effects absorb."""
+    n, kk = model.nobs, model.nobs - model.df_resid
+    if nested:
+        kk = model.k + 1
+    return groups / (groups - 1.0) * (n - 1.0) / (n - kk)
+
+
+def _nested(model, dim: str) -> bool:
+    """The model's only fixed effects are those of the clusters' dimension."""
+    return tuple(getattr(getattr(model, "panel", None), "effects", ())) == (dim,)
+
+
+def _one_way(model, dim: str, small_sample: bool, nested: bool = False):
+    s = model.group_sums(dim)
+    groups = s.shape[0]
+    _require_clusters(model, dim, groups)
+    factor = cluster_factor(model, groups, nested) if small_sample else 1.0
+    return s.T @ s / model.nobs * factor, groups, factor
+
+
+def clip_to_psd(s: np.ndarray, what: str, out: LongRun) -> np.ndarray:
+    """Set negative eigenvalues of a symmetric estimate to zero, flagging and noting it."""
+    s = 0.5 * (s + s.T)
+    vals, vecs = np.linalg.eigh(s)
+    scale = max(float(np.abs(vals).max()), np.finfo(float).tiny)
+    if vals[0] < -1e-12 * scale:
+        out.flags.add("psd_repaired")
+        out.notes.append(f"the {what} estimate of S was not positive semi-definite (smallest "
+                         f"eigenvalue {vals[0]:.3g}); negative eigenvalues were set to zero")
+        s = (vecs * np.clip(vals, 0.0, None)) @ vecs.T
+    return s
+
+
+def cluster(model, by: str, small_sample: bool = True) -> LongRun:
+    """Cluster-robust S: (1/N) sum_g s_g s_g' for the sums s_g of the moment contributions in each
+    cluster (by entity or by period), with the factor G/(G-1)(N-1)/(N-K) when asked for. Two-way
+    (Cameron, Gelbach & Miller 2011): S_entity + S_time - S_cell, each term with its own G (a
+    cell is one row, so the last term is the heteroskedasticity-only S), repaired to PSD by
+    eigenvalue clipping (flagged) when the difference is not PSD. Reference law t(G - 1), with
+    the smaller G for two-way."""
+    if by in ("entity", "time"):
+        nested = _nested(model, by)
+        s, groups, factor = _one_way(model, by, small_sample, nested)
+        return LongRun(S=s, factor=factor, law=StudentT(groups - 1, f"G - 1, G = {groups} "
+                                                        f"{'entities' if by == 'entity' else 'periods'}"),
+                       notes=[f"clustered by {by}: {groups} clusters"
+                              + (f", small-sample factor {factor:.4g}" if small_sample else
+                                 ", no small-sample factor")
+                              + ("; the {0} effects are nested in the clusters and not counted "
+                                 "in K".format(by) if nested and small_sample else "")])
+    se, ge, fe = _one_way(model, "entity", small_sample)
+    st, gt, ft = _one_way(model, "time", small_sample)
+    n = model.nobs
+    fc = n / (n - (n - model.df_resid)) if small_sample else 1.0
+    out = LongRun(S=None, factor=fe)
+    s = se + st - model.outer() / n * fc
+    out.S = clip_to_psd(s, "two-way clustered", out)
+    g = min(ge, gt)
+    out.law = StudentT(g - 1, f"G - 1 with the smaller dimension, G = {g}")
+    out.notes.insert(0, f"clustered by entity ({ge} clusters) and by time ({gt} clusters): "
+                        "entity + time - intersection"
+                     + (", each term with its own small-sample factor" if small_sample else
+                        ", no small-sample factor"))
+    return out
+
+
+def within_kernel(model, kernel: Kernel, bandwidth: float) -> np.ndarray:
+    """(1/N) sum_i [W_0 + sum_j k(j/b) (W_j + W_j')] with W_j = sum_t g_it g_i,t-j' within each
+    entity: a kernel over time inside each entity (the overlap of clustering by entity and a
+    time kernel)."""
+    w = model.within_lags()
+    lags = kernel.lags_used(bandwidth, w.shape[0])
+    weights = kernel.weights([bandwidth], lags + 1)[0]
+    s = w[0].copy()
+    if lags:
+        part = np.tensordot(weights[1:], w[1:lags + 1], axes=(0, 0))
+        s += part + part.T
+    return s / model.nobs

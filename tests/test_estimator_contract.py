@@ -13,7 +13,7 @@ import lagwise
 from lagwise.engine.bandwidth import RULES
 from lagwise.engine.covariance import FAMILIES, SHORTHANDS
 from lagwise.engine.laws import REQUESTS
-from tests.helpers import regression_frame
+from tests.helpers import panel_frame, regression_frame
 
 FAMS = list(FAMILIES.values())
 
@@ -24,11 +24,35 @@ def df():
 
 
 @pytest.fixture(scope="module")
-def fits(df):
+def series_fits(df):
     regs = ["x1", "x2", "x3"]
     return {"base": lagwise.fit_ols(df, "y", regs),
             "scaled": lagwise.fit_ols(df.assign(y=-3.0 * df.y), "y", regs),
             "permuted": lagwise.fit_ols(df, "y", ["x3", "x1", "x2"])}
+
+
+@pytest.fixture(scope="module")
+def panel_fits():
+    frame = panel_frame(seed=22, entities=30, periods=40, k=3, drop=0.1)
+
+    def fit(data, regs, **kw):
+        return lagwise.fit_panel(data, "y", regs, entity="firm", time="month", **kw)
+    regs = ["x1", "x2", "x3"]
+    return {"base": fit(frame, regs), "scaled": fit(frame.assign(y=-3.0 * frame.y), regs),
+            "permuted": fit(frame, ["x3", "x1", "x2"])}
+
+
+@pytest.fixture
+def fits(request, series_fits, panel_fits):
+    """The fits a family applies to: time series, or (for the panel families) panels."""
+    family = request.node.callspec.params["family"]
+    return series_fits if family.applies(series_fits["base"]) is None else panel_fits
+
+
+def test_every_family_applies_to_a_time_series_or_a_panel(series_fits, panel_fits):
+    for family in FAMS:
+        assert family.applies(series_fits["base"]) is None \
+            or family.applies(panel_fits["base"]) is None, family.name
 
 
 def options(p):
