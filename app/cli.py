@@ -1,4 +1,5 @@
-"""Command line: `lagwise table FILE ...` (estimator comparison) and `lagwise serve [FILE]`."""
+"""Command line: `lagwise table FILE ...` (estimator comparison), `lagwise panel FILE_OR_FOLDER
+...` (panel estimators; a folder of Parquet files runs on Dask) and `lagwise serve [FILE]`."""
 
 from __future__ import annotations
 
@@ -25,8 +26,11 @@ def _p(x):
 def render_text(fit, comp, level: float, extra_lines=()) -> str:
     """Our own plain-text layout: one block per coefficient, one line per estimator."""
     pct = f"{level * 100:g}%"
+    panel = getattr(fit, "panel", None)
+    size = (f"N = {fit.nobs} rows, {panel.n_entities} entities x {panel.n_periods} periods"
+            if panel is not None else f"T = {fit.nobs}")
     head = (f"Lagwise comparison: {fit.response} on {', '.join(fit.terms)}\n"
-            f"T = {fit.nobs} ({fit.sample.first} .. {fit.sample.last}), {pct} intervals"
+            f"{size} ({fit.sample.first} .. {fit.sample.last}), {pct} intervals"
             + (f", overlapping {fit.horizon}-period response" if fit.horizon else ""))
     lines = [head]
     lines += [f"  note: {n}" for n in fit.sample.notes]
@@ -156,6 +160,73 @@ def iv_lines(fit, est, level) -> list[str]:
     return lines
 
 
+def panel_flip_lines(fit, kernel: str = "bartlett", level: float = 0.95) -> list[str]:
+    """Where each slope's conclusion changes along the Driscoll-Kraay bandwidth."""
+    from .. import engine
+    sw = fit.sweep([kernel])
+    lines = ["", f"Where the conclusion changes (Driscoll-Kraay, {engine.get_kernel(kernel).label} "
+                 f"kernel, b = {sw.values[0]:g}..{sw.values[-1]:g} periods)"]
+    refs = ["normal"] + (["fixed-b"] if engine.fixedb.available(kernel) else [])
+    for term in fit.terms:
+        if term == "intercept":
+            continue
+        for ref in refs:
+            lines.append("  " + engine.significance_flip(fit, term, level=level, reference=ref,
+                                                         sweep_result=sw).sentence())
+    return lines
+
+
+def cmd_panel(args) -> int:
+    from .. import engine
+    from ..engine.distributed import is_distributed
+    from ..engine.export import render
+    from ..engine.model import as_list
+
+    effects = {"none": (), "entity": ("entity",), "time": ("time",),
+               "both": ("entity", "time")}[args.effects]
+    regs = as_list(args.regressors)
+    client = cluster = None
+    if is_distributed(args.source):
+        data = args.source
+        from distributed import Client, LocalCluster
+        if args.scheduler:
+            client = Client(args.scheduler)
+            where = f"the Dask cluster at {args.scheduler}"
+        else:
+            cluster = LocalCluster(n_workers=args.workers, threads_per_worker=1,
+                                   host="127.0.0.1", dashboard_address=None,
+                                   silence_logs=40)
+            client = Client(cluster)
+            where = f"a local Dask cluster ({args.workers} workers on 127.0.0.1)"
+        print(f"reading the Parquet files in {args.source} on {where}", file=sys.stderr)
+    else:
+        data = engine.load_table(args.source)
+    try:
+        fit = engine.fit_panel(data, args.response, regs, entity=args.entity, time=args.time,
+                               effects=effects, intercept=not args.no_intercept, client=client)
+        comp = fit.compare(level=args.level, reference=args.reference,
+                           fama_macbeth=not args.no_fama_macbeth)
+        extra = panel_flip_lines(fit, level=args.level)
+    finally:
+        if client is not None:
+            client.close()
+        if cluster is not None:
+            cluster.close()
+    if args.format == "text":
+        out = render_text(fit, comp, args.level, extra)
+    else:
+        cols = ["term", "estimator", "estimate", "std_error", "t_stat", "p_value", "ci_low",
+                "ci_high", "bandwidth", "lags", "reference", "rejects", "note"]
+        out = render(comp[cols], args.format, index=False,
+                     caption=f"{fit.response}: standard errors across panel estimators")
+    if args.output:
+        Path(args.output).write_text(out)
+        print(f"wrote {args.output}", file=sys.stderr)
+    else:
+        sys.stdout.write(out)
+    return 0
+
+
 def cmd_serve(args) -> int:
     from .main import serve
     return serve(args.file, host=args.host, port=args.port, debug=args.debug,
@@ -195,6 +266,29 @@ def build_parser() -> argparse.ArgumentParser:
                                                         "html"])
     t.add_argument("--output", default=None, help="write to this file instead of stdout")
     t.set_defaults(func=cmd_table)
+    q = sub.add_parser("panel", help="compare panel estimators (clustered, Driscoll-Kraay, "
+                                     "Fama-MacBeth); a folder of Parquet files runs on Dask")
+    q.add_argument("source", help="CSV or Parquet file, or a folder of Parquet files")
+    q.add_argument("--entity", required=True, help="entity (firm, fund) identifier column")
+    q.add_argument("--time", required=True, help="period column (dates or whole numbers)")
+    q.add_argument("--response", required=True, help="response column")
+    q.add_argument("--regressors", default="", help="comma-separated regressor columns")
+    q.add_argument("--effects", default="none", choices=["none", "entity", "time", "both"],
+                   help="fixed effects removed by the within transformation")
+    q.add_argument("--no-intercept", action="store_true", help="leave out the constant term")
+    q.add_argument("--no-fama-macbeth", action="store_true",
+                   help="leave the Fama-MacBeth rows out of the comparison")
+    q.add_argument("--scheduler", default=None, metavar="ADDRESS",
+                   help="a dask.distributed scheduler (tcp://host:port); default: a local "
+                        "cluster on this machine (folders only)")
+    q.add_argument("--workers", type=int, default=2,
+                   help="workers of the local Dask cluster (default 2)")
+    q.add_argument("--level", type=float, default=0.95, help="confidence level (default 0.95)")
+    q.add_argument("--reference", default="auto", help="auto, normal, t or fixed-b")
+    q.add_argument("--format", default="text", choices=["text", "csv", "markdown", "latex",
+                                                        "html"])
+    q.add_argument("--output", default=None, help="write to this file instead of stdout")
+    q.set_defaults(func=cmd_panel)
     s = sub.add_parser("serve", help="open the dashboard in the browser (local only)")
     s.add_argument("file", nargs="?", default=None, help="data file (default: the demo data)")
     s.add_argument("--host", default="127.0.0.1",

@@ -147,6 +147,8 @@ class Inference:
 
 def exact_fit(model) -> bool:
     """Every residual (or, for a series model, every moment contribution) zero to rounding."""
+    if hasattr(model, "fits_exactly"):
+        return bool(model.fits_exactly())
     if getattr(model, "resid", None) is None:
         return bool(not np.any(model.working_contributions))
     scale = float(np.abs(getattr(model, "y", model.resid)).max()) or 1.0

@@ -52,8 +52,13 @@ def heteroskedasticity_robust(model, kind: str) -> LongRun:
     HC1 are (1/T) sum g_t g_t' of the moment contributions, for any moment model."""
     factor = model.small_sample_factor if kind == "hc1" else 1.0
     if kind in ("hc0", "hc1"):
-        g = model.working_contributions
-        return LongRun(S=g.T @ g / model.nobs * factor, factor=factor)
+        outer = getattr(model, "outer", None)
+        if outer is not None:
+            gg = outer()
+        else:
+            g = model.working_contributions
+            gg = g.T @ g
+        return LongRun(S=gg / model.nobs * factor, factor=factor)
     h = getattr(model, "leverage", None)
     if kind in ("hc2", "hc3"):
         if h is None or getattr(model, "resid", None) is None:

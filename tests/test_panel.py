@@ -230,3 +230,84 @@ def test_fama_macbeth_sweep_moves_along_the_slope_series():
     assert fm.infer("classical").law.df == 59
     with pytest.raises(lagwise.EstimationError, match="HC3 needs the leverage"):
         fm.infer("hc3")
+
+
+# --------------------------------------------------------------------------- diagnostics, sweep
+
+def test_pesaran_cd_equals_its_definition_and_is_standard_normal_without_dependence():
+    from lagwise.engine.panel import pesaran_cd
+    frame = panel_frame(seed=40, entities=12, periods=20, drop=0.2)
+    f = fit(frame)
+    p = f.panel
+    cd, used, pairs = pesaran_cd(f.resid, p.entity_codes, p.time_codes, p.n_entities,
+                                 p.n_periods)
+    # the definition, pair by pair (Pesaran 2004): correlations over common periods of the
+    # entity-demeaned residuals
+    e = pd.Series(f.resid, index=f.index)
+    e = e - e.groupby(level=0).transform("mean")
+    wide = e.unstack(level=0)
+    total, count = 0.0, 0
+    cols = list(wide.columns)
+    for a in range(len(cols)):
+        for b in range(a + 1, len(cols)):
+            both = wide[[cols[a], cols[b]]].dropna()
+            if len(both) < 3:
+                continue
+            x, y = both.iloc[:, 0].to_numpy(), both.iloc[:, 1].to_numpy()
+            total += np.sqrt(len(both)) * (x @ y) / np.sqrt((x @ x) * (y @ y))
+            count += 1
+    assert pairs == count
+    assert cd == pytest.approx(np.sqrt(2.0 / (used * (used - 1))) * total, rel=1e-10)
+    # simulation with known truth: independent entities give CD close to N(0,1)
+    rng = np.random.default_rng(41)
+    draws = []
+    for _ in range(200):
+        r = rng.standard_normal(30 * 25)
+        draws.append(pesaran_cd(r, np.repeat(np.arange(30), 25), np.tile(np.arange(25), 30),
+                                30, 25)[0])
+    assert abs(np.mean(draws)) < 0.25 and 0.8 < np.std(draws) < 1.2
+
+
+def test_wooldridge_test_rejects_serial_correlation_and_not_its_absence():
+    rng = np.random.default_rng(42)
+    rejections = {0.0: 0, 0.5: 0}
+    for rho in rejections:
+        for _ in range(60):
+            n_e, n_t = 60, 10
+            e = np.repeat(np.arange(n_e), n_t)
+            t = np.tile(np.arange(n_t), n_e)
+            u = np.zeros((n_e, n_t))
+            shocks = rng.standard_normal((n_e, n_t))
+            u[:, 0] = shocks[:, 0]
+            for s in range(1, n_t):
+                u[:, s] = rho * u[:, s - 1] + shocks[:, s]
+            x = rng.standard_normal(n_e * n_t) + rng.standard_normal(n_e)[e]
+            y = x + rng.standard_normal(n_e)[e] + u.ravel()
+            frame = pd.DataFrame({"firm": e, "month": t, "x": x, "y": y})
+            f = lagwise.fit_panel(frame, "y", ["x"], entity="firm", time="month",
+                                  effects="entity")
+            from lagwise.engine.panel import wooldridge_serial
+            rejections[rho] += wooldridge_serial(f)[3] < 0.05
+    assert rejections[0.0] <= 9            # about 5% of 60 (3), Monte Carlo s.e. about 1.7
+    assert rejections[0.5] >= 50
+
+
+def test_panel_diagnostics_and_sweep_on_the_demo():
+    from lagwise.engine.panel import diagnose_panel, panel_sweep
+    table = lagwise.load_table(lagwise.demo_file("shipping_panel.csv"))
+    f = lagwise.fit_panel(table, "exret", ["book_to_market", "fleet_age", "charter_cover"])
+    rep = diagnose_panel(f)
+    assert set(rep.tests.test) >= {"Pesaran CD", "Wooldridge serial correlation",
+                                   "Period means of residuals", "Entity means of residuals"}
+    assert any("correlated across entities within a period" in s for s in rep.reading)
+    sw = panel_sweep(f, values=[1.0, 3.0, 8.0])
+    assert sw.extras["curve_group"][-1] == "Fama-MacBeth" and len(sw.labels) == \
+        len(lagwise.KERNELS) + 1
+    fm = f.fama_macbeth()
+    for i, b in enumerate([1.0, 3.0, 8.0]):
+        res = fm.infer(lagwise.estimator("kernel", bandwidth=b, small_sample=True))
+        np.testing.assert_allclose(sw.std_error[-1, i], res.table.std_error[f.terms],
+                                   rtol=1e-10)
+        np.testing.assert_allclose(sw.estimate[-1, i], fm.beta, rtol=1e-12)
+        dk = f.infer(lagwise.estimator("driscoll_kraay", kernel="parzen", bandwidth=b))
+        np.testing.assert_allclose(sw.std_error[1, i], dk.table.std_error, rtol=1e-10)
