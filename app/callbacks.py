@@ -21,6 +21,8 @@ from dash.exceptions import PreventUpdate
 from .. import engine
 from ..engine.covariance import FAMILIES
 from ..engine.model import index_label
+from ..engine.panel import diagnose_panel, panel_sweep, periods_of
+import pandas as pd
 from . import figures as F
 from . import views as V
 from .layout import estimator_controls, rule_options
@@ -65,8 +67,8 @@ def guarded(fn, args, message):
 
 
 def register(app):
-    from . import exports  # noqa: F401 - its callbacks are recorded on import
-    for args, kwargs, fn in CALLBACKS + exports.CALLBACKS:
+    from . import exports, studies  # noqa: F401 - their callbacks are recorded on import
+    for args, kwargs, fn in CALLBACKS + exports.CALLBACKS + studies.CALLBACKS:
         app.callback(*args, **kwargs)(fn)
 
 
@@ -130,6 +132,12 @@ def sweep_for(session, fkey, model, est, method="2sls"):
     fit the weighting follows the estimator (two-step estimates along the axis)."""
     from ..engine.weakiv import gmm_axis_sweep, gmm_sweep
     family = est.family
+    if getattr(model, "panel", None) is not None and family.name != "cluster_kernel":
+        p = est.params if family.name == "driscoll_kraay" else {}
+        small, repair = bool(p.get("small_sample", False)), bool(p.get("repair", True))
+        key = key_for(fkey, "panel-sweep", small, repair)
+        return STORE.derived(session, key, lambda: panel_sweep(model, small_sample=small,
+                                                               repair=repair))
     if family.axis is None:
         family, est = FAMILIES["kernel"], engine.estimator("kernel", bandwidth=1.0)
     gmm = is_gmm(model, method)
@@ -174,8 +182,29 @@ def view_inference(session, fkey, model, method, est, level, reference):
 
 def comparison_for(session, fkey, model, level, reference, extra=""):
     key = key_for(fkey, "compare", level, reference, extra)
-    return STORE.derived(session, key, lambda: engine.compare(model, level=level,
-                                                              reference=reference))
+    return STORE.derived(session, key, lambda: model.compare(level=level, reference=reference))
+
+
+PANEL_REFERENCE = (("cluster", {"by": "entity"}, "clustered by entity"),
+                   ("cluster", {"by": "time"}, "clustered by time"),
+                   ("cluster", {"by": "both"}, "two-way clustered"))
+
+
+def panel_reference_lines(session, fkey, model, focus, col, level, skip=""):
+    """Horizontal lines on the panel chart: the clustered results for the coefficient."""
+    def build():
+        out = []
+        for name, params, title in PANEL_REFERENCE:
+            est = engine.estimator(name, **params)
+            try:
+                out.append((est.label, title, model.infer(est, level=level).table))
+            except engine.LagwiseError:
+                continue
+        return out
+    rows = STORE.derived(session, key_for(fkey, "panel-lines", level), build)
+    return [(f"{title}: {V.fmt(float(table.loc[focus, col]), 3)}", float(table.loc[focus, col]))
+            for label, title, table in rows if label != skip
+            and np.isfinite(table.loc[focus, col])]
 
 
 def rule_marks(session, fkey, model, est, sweep):
@@ -217,15 +246,16 @@ def no_model_message(session, key) -> str:
 @callback(Output("dataset-key", "data"), Output("upload-message", "children"),
           Output("upload", "contents"), Output("horizon", "value", allow_duplicate=True),
           Input("upload", "contents"), Input("load-demo", "n_clicks"),
+          Input("load-demo-panel", "n_clicks"),
           State("upload", "filename"), State("session", "data"), prevent_initial_call=True,
           message=1)
-def on_upload(contents, _demo, filename, session):
+def on_upload(contents, _demo, _panel_demo, filename, session):
     """A new file replaces the data and resets what belonged to the old one (the horizon);
     the file's bytes are not kept in the browser once the server has them."""
     name = filename if isinstance(filename, str) else "upload"
     try:
-        if ctx.triggered_id == "load-demo":
-            path = engine_demo()
+        if ctx.triggered_id in ("load-demo", "load-demo-panel"):
+            path = engine_demo(ctx.triggered_id == "load-demo-panel")
             key, table = dataset_from_bytes(session, path.read_bytes(), path.name)
             return key, V.ok_box(f"loaded the demo data ({len(table.frame)} rows, simulated)"), \
                 None, no_update
@@ -245,9 +275,15 @@ def on_upload(contents, _demo, filename, session):
                          f"{len(table.frame.columns)} numeric columns"), None, None
 
 
-def engine_demo():
+def engine_demo(panel: bool = False):
     from .._files import demo_file
-    return demo_file()
+    return demo_file(PANEL_DEMO if panel else "freight_index.csv")
+
+
+#: The simulated panel demo and the model it opens with.
+PANEL_DEMO = "shipping_panel.csv"
+PANEL_DEMO_SPEC = {"response": "exret",
+                   "regressors": ["book_to_market", "fleet_age", "charter_cover"]}
 
 
 @callback(Output("load-report", "children"), Output("preview", "rowData"),
@@ -255,28 +291,47 @@ def engine_demo():
           Output("response", "options"), Output("regressors", "options"),
           Output("tf-column", "options"), Output("response", "value"),
           Output("regressors", "value"), Output("window", "max"), Output("window", "value"),
+          Output("entity", "options"), Output("entity", "value"), Output("time-col", "options"),
+          Output("time-col", "value"), Output("panel-details", "open"),
+          Output("one-period", "options"),
           Input("dataset-key", "data"), State("session", "data"), State("response", "value"),
-          State("regressors", "value"), State("initial-spec", "data"), message=0)
-def on_dataset(key, session, response, regressors, initial):
+          State("regressors", "value"), State("initial-spec", "data"),
+          State("pending-settings", "data"), message=0)
+def on_dataset(key, session, response, regressors, initial, pending):
     table = stored(session, key)
     if table is None:
         return ([html.Li(no_model_message(session, key))] if key else []), [], [], [], [], [], \
-            [], None, [], 1, [0, 1]
+            [], None, [], 1, [0, 1], [], None, [], None, False, []
     frame = table.frame
     cols = [str(c) for c in frame.columns]
     opts = [{"label": c, "value": c} for c in cols]
+    labels = [str(c) for c in (table.labels.columns if table.labels is not None else [])]
+    id_opts = [{"label": c, "value": c} for c in labels + cols]
     records, columns = V.preview(table)
     regressors = regressors if isinstance(regressors, list) else []
+    settings = pending if isinstance(pending, dict) else {}
+    panel = table.report.panel
+    if settings.get("entity") in labels + cols and settings.get("time") in labels + cols:
+        panel = (settings["entity"], settings["time"])
     if response not in cols or any(r not in cols for r in regressors):
         spec = initial if isinstance(initial, dict) else {}
+        if table.report.source == PANEL_DEMO and not settings:
+            spec = PANEL_DEMO_SPEC
         if spec.get("response") in cols:
             response = spec["response"]
             regressors = [r for r in spec.get("regressors", []) if r in cols]
         else:
             response, regressors = cols[0], cols[1:2]
     n = len(frame)
+    if panel:
+        try:
+            n = len(periods_of(table, panel[1]))
+        except engine.LagwiseError:
+            panel = None
+    entity, time = panel if panel else (None, None)
     return ([html.Li(line) for line in table.report.lines()], records, columns,
-            V.summary_records(table), opts, opts, opts, response, regressors, n - 1, [0, n - 1])
+            V.summary_records(table), opts, opts, opts, response, regressors, n - 1, [0, n - 1],
+            id_opts, entity, id_opts, time, bool(panel), opts)
 
 
 @callback(Output("dataset-key", "data", allow_duplicate=True), Output("tf-message", "children"),
@@ -319,21 +374,33 @@ def on_iv_options(columns, response, regressors, endogenous, instruments):
 @callback(Output("fit-key", "data"), Output("fit-message", "children"),
           Output("focus", "options"), Output("focus", "value"),
           Output("window-text", "children"), Output("horizon", "value"),
+          Output("one-period", "value"),
           Input("dataset-key", "data"), Input("response", "value"), Input("regressors", "value"),
           Input("intercept", "value"), Input("horizon", "value"), Input("window", "value"),
           Input("endogenous", "value"), Input("instruments", "value"),
+          Input("entity", "value"), Input("time-col", "value"), Input("effects", "value"),
+          Input("one-period", "value"),
           State("focus", "value"), State("session", "data"), State("initial-spec", "data"),
           message=1)
 def on_spec(key, response, regressors, intercept, horizon, window, endogenous, instruments,
-            focus, session, initial):
+            entity, time, effects, one_period, focus, session, initial):
     table = stored(session, key)
     if table is None or not isinstance(response, str) or not response:
-        return None, "", [], None, "", no_update
+        return None, "", [], None, "", no_update, no_update
+    if isinstance(entity, str) and entity and isinstance(time, str) and time:
+        return (*_panel_spec(table, key, response, regressors, intercept, window, endogenous,
+                             instruments, entity, time, effects, focus, session), None)
     sample, text = _window(table.frame, window)
-    if ctx.triggered_id == "response":
-        # the horizon belongs to the response: the one recorded for it, or none
-        known = (initial or {}).get("horizons", {}) if isinstance(initial, dict) else {}
-        horizon = table.horizons.get(response) or known.get(response)
+    triggered = ctx.triggered_id
+    if triggered in ("response", "dataset-key") or (triggered is None and one_period is None):
+        # the horizon and the one-period series belong to the response: the ones recorded for
+        # it (by a transform, the demo or a settings file), or none
+        spec = initial if isinstance(initial, dict) else {}
+        if triggered == "response":
+            horizon = table.horizons.get(response) or spec.get("horizons", {}).get(response)
+        one_period = spec.get("one_period", {}).get(response)
+    if one_period not in table.frame.columns:
+        one_period = None
     regs = regressors if isinstance(regressors, list) else []
     endo = endogenous if isinstance(endogenous, list) else []
     inst = instruments if isinstance(instruments, list) else []
@@ -344,12 +411,13 @@ def on_spec(key, response, regressors, intercept, horizon, window, endogenous, i
                                   sample=sample, horizon=h)
         else:
             model = engine.fit_ols(table, response, regs, intercept=bool(intercept),
-                                   sample=sample, horizon=h)
+                                   sample=sample, horizon=h,
+                                   one_period=one_period if h else None)
         fkey = key_for("fit", spec_hash([key, response, regs, bool(intercept), sample, h,
-                                         endo, inst]))
+                                         endo, inst, one_period if h else None]))
         STORE.put(session, fkey, model)
     except (engine.LagwiseError, ValueError, TypeError) as exc:
-        return None, V.error_box(str(exc)), [], None, text, no_update
+        return None, V.error_box(str(exc)), [], None, text, no_update, no_update
     slopes = [t for t in model.terms if t != engine.INTERCEPT] or model.terms
     focus = focus if focus in model.terms else slopes[0]
     msg = [f"T = {model.nobs}, k = {model.k}, R² = {V.fmt(model.r_squared, 3) or 'n/a'}"]
@@ -359,9 +427,45 @@ def on_spec(key, response, regressors, intercept, horizon, window, endogenous, i
     if model.horizon:
         msg.append(f"overlapping {model.horizon}-period response: errors are MA("
                    f"{model.horizon - 1}) by construction")
+    spacing = table.report.spacing or ""
+    if "gap" in spacing or spacing == "irregular":
+        msg.append(f"the dates are {spacing}: kernel estimators treat the rows as equally "
+                   "spaced periods")
+    msg += model.sample.notes
+    known = getattr(model, "one_period", None)
+    return (fkey, html.Div([html.Div(m) for m in msg], className="lw-ok"),
+            [{"label": t, "value": t} for t in model.terms], focus, text, h,
+            known.name if known is not None else None)
+
+
+def _panel_spec(table, key, response, regressors, intercept, window, endogenous, instruments,
+                entity, time, effects, focus, session):
+    regs = regressors if isinstance(regressors, list) else []
+    eff = tuple(e for e in ("entity", "time") if isinstance(effects, list) and e in effects)
+    try:
+        if (isinstance(endogenous, list) and endogenous) or \
+                (isinstance(instruments, list) and instruments):
+            raise engine.SpecificationError("instruments are not offered for panels; clear the "
+                                            "endogenous regressors and instruments, or the "
+                                            "panel columns")
+        periods = periods_of(table, time)
+        sample, text = _window(pd.DataFrame(index=periods), window)
+        model = engine.fit_panel(table, response, regs, entity=entity, time=time, effects=eff,
+                                 intercept=bool(intercept), sample=sample)
+        fkey = key_for("fit", spec_hash([key, response, regs, bool(intercept), str(sample),
+                                         "panel", entity, time, list(eff)]))
+        STORE.put(session, fkey, model)
+    except (engine.LagwiseError, ValueError, TypeError) as exc:
+        return None, V.error_box(str(exc)), [], None, "", no_update
+    p = model.panel
+    focus = focus if focus in model.terms else \
+        ([t for t in model.terms if t != engine.INTERCEPT] or model.terms)[0]
+    r2 = V.fmt(model.r_squared, 3) or "n/a"
+    msg = [f"N = {model.nobs} rows: {p.n_entities} entities x {p.n_periods} periods; k = "
+           f"{model.k}; {'within ' if p.effects else ''}R² = {r2}", model.describe_method()]
     msg += model.sample.notes
     return (fkey, html.Div([html.Div(m) for m in msg], className="lw-ok"),
-            [{"label": t, "value": t} for t in model.terms], focus, text, h)
+            [{"label": t, "value": t} for t in model.terms], focus, text, None)
 
 
 def _window(frame, window):
@@ -377,6 +481,29 @@ def _window(frame, window):
 
 
 # --------------------------------------------------------------------------- estimator controls
+
+def applies(name, model) -> bool:
+    family = FAMILIES.get(name)
+    return family is not None and model is not None and family.applies(model) is None
+
+
+@callback(Output("est-name", "options"), Output("est-name", "value", allow_duplicate=True),
+          Input("fit-key", "data"), State("est-name", "value"), State("pending-settings", "data"),
+          State("session", "data"), prevent_initial_call=True)
+def on_family_options(fkey, name, pending, session):
+    """The estimator picker offers the families that apply to the model: time-series estimators
+    for a time series, the panel estimators for a panel."""
+    model = stored(session, fkey)
+    if model is None:
+        raise PreventUpdate
+    names = [f.name for f in FAMILIES.values() if f.applies(model) is None]
+    options = [{"label": FAMILIES[n].title, "value": n} for n in names]
+    if name in names:
+        return options, no_update
+    wanted = pending.get("estimator") if isinstance(pending, dict) else None
+    panel = getattr(model, "panel", None) is not None
+    return options, wanted if wanted in names else ("driscoll_kraay" if panel else "kernel")
+
 
 @callback(Output("est-params", "children"), Input("est-name", "value"),
           Input("pending-settings", "data"))
@@ -405,7 +532,8 @@ def on_axis(fkey, name, rule, pending, session):
     if ctx.triggered_id == "est-name" or rule not in keys:
         wanted = pending.get("rule") if isinstance(pending, dict) \
             and pending.get("estimator") == name else None
-        rule = wanted if wanted in keys else (keys[1] if len(keys) > 1 else "fixed")
+        rule = wanted if wanted in keys else ("andrews" if "andrews" in keys else
+                                             keys[1] if len(keys) > 1 else "fixed")
     if family.axis is None:
         return no_update, no_update, True, "no tuning value", \
             "This estimator has no tuning value; the chart shows the kernel estimators for " \
@@ -444,6 +572,8 @@ def on_inference(fkey, name, values, rule, slider, reference, level, focus, meth
     if model is None or focus not in getattr(model, "terms", []):
         msg = no_model_message(session, fkey) if fkey else "Load data and choose a model."
         return [], "", [], msg, "", [], out_rule, out_slider, None
+    if not applies(name, model):
+        raise PreventUpdate          # the picker is switching to a family that applies
     try:
         est = make_estimator(name, values, ids, rule, slider)
         shown_model, res = view_inference(session, fkey, model, method, est, level, reference)
@@ -519,15 +649,20 @@ def on_sensitivity(fkey, reference, level, focus, mode, name, values, rule, meth
         empty = F.empty_figure(no_model_message(session, fkey) if fkey else
                                "Load data and choose a model to see the sensitivity chart.")
         return empty, "", F.empty_figure("")
+    if not applies(name, model):
+        raise PreventUpdate
     try:
         est = make_estimator(name, values, ids, rule, slider)
         sweep = sweep_for(session, fkey, model, est, method)
         shown_model, res = view_inference(session, fkey, model, method, est, level, reference)
         lines = []
+        col = {"t": "t_stat", "se": "std_error", "estimate": "estimate"}.get(mode, "t_stat")
         if est.family.axis is None and mode != "ci":
-            col = {"t": "t_stat", "se": "std_error", "estimate": "estimate"}.get(mode, "t_stat")
             value = res.table.loc[focus, col]
             lines = [(f"{res.label}: {V.fmt(value, 3)}", float(value))]
+        if getattr(model, "panel", None) is not None and mode in ("t", "se"):
+            lines += panel_reference_lines(session, fkey, model, focus, col, level,
+                                           skip=res.label)
         ref = reference if np.isfinite(sweep.critical_values(level, reference)).any() else "auto"
         fig = F.sensitivity_figure(sweep, focus, mode or "t", level, ref, slider,
                                    _current_curve(sweep, est) if sweep.family is est.family
@@ -563,7 +698,9 @@ def on_diagnostics(fkey, session):
         e = F.empty_figure(str(exc))
         return e, e, e, e, [], V.error_box(str(exc)), ""
     reading = html.Ul([html.Li(s) for s in rep.reading + rep.notes])
-    return (F.residual_figure(model), F.acf_figure(rep), F.fitted_scatter_figure(model),
+    resid = F.panel_residual_figure(model) if getattr(model, "panel", None) is not None \
+        else F.residual_figure(model)
+    return (resid, F.acf_figure(rep), F.fitted_scatter_figure(model),
             F.score_acf_figure(rep), V.diagnostics_records(rep), reading,
             f"ACF: {rep.bands['acf']}.")
 
@@ -572,6 +709,8 @@ def diagnostics_for(session, fkey, model):
     def build():
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
+            if getattr(model, "panel", None) is not None:
+                return diagnose_panel(model)
             return engine.diagnose(model)
     return STORE.derived(session, key_for(fkey, "diagnostics"), build)
 

@@ -23,8 +23,8 @@ CALLBACKS: list = []
 _EXPORT_LOCK = threading.Lock()
 _KALEIDO = {"started": False}
 GRAPHS = ["sens-graph", "interval-graph", "resid-graph", "acf-graph", "scatter-graph",
-          "score-graph"]
-TABLES = ["coef-table", "compare-table", "diag-table", "spec-table"]
+          "score-graph", "horizon-graph", "size-graph"]
+TABLES = ["coef-table", "compare-table", "diag-table", "spec-table", "persistence-table"]
 VIEW_STATE = [State("session", "data"), State("fit-key", "data"), State("est-name", "value"),
               State({"type": "est-param", "name": ALL}, "value"),
               State({"type": "est-param", "name": ALL}, "id"), State("tune-rule", "value"),
@@ -86,8 +86,8 @@ def table_frame(target, session, fkey, model, res, focus, reference, base=None, 
                               spec_hash(est.settings()) if is_gmm(base, method) else "")
         rows = comp[comp.term == focus].copy()
         rows["beta = 0"] = rows.rejects.map(V.verdict)
-        frame = rows[["estimator", "bandwidth", "lags", "std_error", "t_stat", "p_value",
-                      "ci_low", "ci_high", "reference", "beta = 0", "note"]]
+        frame = rows[["estimator", "estimate", "bandwidth", "lags", "std_error", "t_stat",
+                      "p_value", "ci_low", "ci_high", "reference", "beta = 0", "note"]]
         return frame, f"{focus}: every estimator", \
             [f"{res.level:.0%} confidence intervals; two-sided tests at {1 - res.level:.0%}; "
              "each row's reference law is stated in its row"]
@@ -108,6 +108,15 @@ def table_frame(target, session, fkey, model, res, focus, reference, base=None, 
         import pandas as pd
         return pd.DataFrame(rows), f"{base.response}: instrument strength and specification", \
             notes
+    if target == "persistence-table":
+        from ..engine.predictive import persistence_report
+        rep = persistence_report(base if base is not None else model,
+                                 focus if focus != engine.INTERCEPT else None, level=res.level)
+        rows = [{"quantity": r["quantity"], "value": r["value"], "detail": r["detail"]}
+                for r in V.persistence_records(rep)]
+        import pandas as pd
+        return pd.DataFrame(rows), f"{model.response}: persistence of {rep.predictor}", \
+            rep.reading + rep.notes
     rep = diagnostics_for(session, fkey, model)
     frame = rep.tests[["test", "statistic", "df", "df2", "p_value", "null", "method"]]
     return frame, f"{model.response}: residual diagnostics", \
@@ -156,10 +165,12 @@ def on_report(_n, *states):
                                              reference, level, focus, method)
         tables = []
         titles = ["Coefficients", "Every estimator, coefficient in focus", "Diagnostic tests",
-                  "Instruments: strength and specification"]
+                  "Instruments: strength and specification", "Persistence of the predictor"]
         for target, title in zip(TABLES, titles):
             if target == "spec-table" and not isinstance(base, engine.IVFit):
                 continue
+            if target == "persistence-table":
+                continue                      # its chart is in the report; the table on request
             frame, _, _ = table_frame(target, session, fkey, model, res, focus, reference,
                                       base, est, method)
             tables.append((title, frame))
@@ -176,10 +187,11 @@ def on_report(_n, *states):
           State("dataset-key", "data"), State("response", "value"), State("regressors", "value"),
           State("intercept", "value"), State("horizon", "value"), State("window", "value"),
           State("chart-mode", "value"), State("endogenous", "value"),
-          State("instruments", "value"), *VIEW_STATE, prevent_initial_call=True, message=1)
+          State("instruments", "value"), State("entity", "value"), State("time-col", "value"),
+          State("effects", "value"), *VIEW_STATE, prevent_initial_call=True, message=1)
 def on_save(_n, dkey, response, regressors, intercept, horizon, window, mode, endogenous,
-            instruments, session, fkey, name, values, ids, rule, slider, reference, level, focus,
-            method):
+            instruments, entity, time, effects, session, fkey, name, values, ids, rule, slider,
+            reference, level, focus, method):
     table = stored(session, dkey)
     family = engine.FAMILIES.get(name)
     params = param_values(family, values, ids) if family else {}
@@ -190,7 +202,8 @@ def on_save(_n, dkey, response, regressors, intercept, horizon, window, mode, en
               "estimator": name, "params": params, "rule": rule, "value": slider,
               "reference": reference, "level": level, "focus": focus, "chart_mode": mode,
               "endogenous": endogenous or [], "instruments": instruments or [],
-              "method": method or "2sls"}
+              "method": method or "2sls", "entity": entity or None, "time": time or None,
+              "effects": [e for e in (effects or []) if e in ("entity", "time")]}
     return ({"content": settings_json(record), "filename": "lagwise_settings.json"},
             V.ok_box("settings saved to lagwise_settings.json"))
 
@@ -207,7 +220,10 @@ SETTINGS_OUTPUTS = [Output("settings-message", "children", allow_duplicate=True)
                     Output("dataset-key", "data", allow_duplicate=True),
                     Output("endogenous", "value", allow_duplicate=True),
                     Output("instruments", "value", allow_duplicate=True),
-                    Output("iv-method", "value")]
+                    Output("iv-method", "value"),
+                    Output("entity", "value", allow_duplicate=True),
+                    Output("time-col", "value", allow_duplicate=True),
+                    Output("effects", "value")]
 
 
 @callback(*SETTINGS_OUTPUTS, Input("load-settings", "contents"), Input("pending-settings", "data"),
@@ -258,4 +274,5 @@ def on_load_settings(contents, pending, filename, dkey, session):
             s.get("estimator", "kernel"), s.get("rule", "fixed"),
             s.get("value") if s.get("value") is not None else no_update,
             s.get("reference", "auto"), s.get("level", 0.95), s.get("chart_mode", "t"), new_key,
-            s.get("endogenous", []), s.get("instruments", []), s.get("method", "2sls"))
+            s.get("endogenous", []), s.get("instruments", []), s.get("method", "2sls"),
+            s.get("entity"), s.get("time"), s.get("effects", []))

@@ -74,10 +74,6 @@ def sensitivity_figure(sweep, term: str, mode: str = "t", level: float = 0.95,
     shown = [_add_curve(fig, sweep, c, j, mode, cv, c == current_curve)
              for c in range(len(sweep.labels))]
     _add_critical_lines(fig, cv, mode, reference)
-    for label, value in reference_lines or []:
-        fig.add_hline(y=value, line={"color": INK, "width": 1, "dash": "dot"})
-        fig.add_annotation(x=0, xref="paper", y=value, showarrow=False, xanchor="left",
-                           yanchor="bottom", text=label, font={"size": 11, "color": INK})
     _add_marks(fig, sweep, j, mode, cv, marks)
     if horizon and horizon > 1 and sweep.axis.symbol == "b" and sweep.values[0] <= horizon - 1:
         fig.add_vrect(x0=sweep.values[0], x1=horizon - 1, fillcolor="rgba(29,39,51,0.06)",
@@ -86,6 +82,7 @@ def sensitivity_figure(sweep, term: str, mode: str = "t", level: float = 0.95,
                       annotation_font={"size": 10, "color": MUTED})
     rng = _finite_range(np.concatenate([a for a, _ in shown]),
                         np.concatenate([k for _, k in shown]))
+    rng = _add_reference_lines(fig, reference_lines or [], rng)
     if rng is not None:
         fig.update_yaxes(range=rng)
     ylab = {"t": f"t statistic of {term}", "se": f"standard error of {term}",
@@ -99,6 +96,37 @@ def sensitivity_figure(sweep, term: str, mode: str = "t", level: float = 0.95,
         fig = _with_j_panel(fig, sweep, current_curve, xlab)
         return _base(fig, f"How {term} and the J test depend on the {what}", 520)
     return _base(fig, f"How {term} depends on the {what}", 400)
+
+
+def _add_reference_lines(fig, lines, rng):
+    """Horizontal lines for results without a tuning axis (e.g. clustered standard errors),
+    labelled at the right; lines with the same value share a label. A line far outside the
+    curves' range is named in a note at the top instead of squeezing the curves."""
+    merged: dict = {}
+    for label, value in lines:
+        if np.isfinite(value):
+            key = float(f"{value:.3g}")          # lines that read the same share a label
+            merged.setdefault(key, []).append(label)
+    if not merged:
+        return rng
+    lo, hi = rng if rng is not None else (min(merged), max(merged))
+    span = max(hi - lo, 1e-12)
+    off = []
+    for n, (value, labels) in enumerate(sorted(merged.items())):
+        text = "; ".join(labels)
+        if not (lo - 0.6 * span <= value <= hi + 0.6 * span):
+            off.append(text)
+            continue
+        lo, hi = min(lo, value - 0.05 * span), max(hi, value + 0.05 * span)
+        fig.add_hline(y=value, line={"color": INK, "width": 1, "dash": "dot"})
+        fig.add_annotation(x=1, xref="paper", y=value, showarrow=False, xanchor="right",
+                           yanchor="bottom" if n % 2 == 0 else "top", text=text,
+                           font={"size": 10, "color": INK}, bgcolor="rgba(255,255,255,0.8)")
+    if off:
+        fig.add_annotation(x=0, xref="paper", y=1, yref="paper", showarrow=False,
+                           xanchor="left", yanchor="top", text="off the chart: " + "; ".join(off),
+                           font={"size": 10, "color": MUTED}, bgcolor="rgba(255,255,255,0.8)")
+    return [lo, hi]
 
 
 def _with_j_panel(fig, sweep, current_curve, xlab):
@@ -126,10 +154,21 @@ def _with_j_panel(fig, sweep, current_curve, xlab):
 
 
 def _curve_style(sweep, c, current: bool):
+    """(colour, legend name, width) of a curve; a curve of another group than the first (the
+    Fama-MacBeth curve of a panel sweep) is named by its group and drawn in ink."""
     from ..engine.kernels import KERNELS
     kern = KERNELS.get(sweep.estimators[c].params.get("kernel", ""))
     color = kern.color if kern else PALETTE[c % len(PALETTE)]
-    return color, (kern.short if kern else sweep.labels[c]), 3 if current else 1.6
+    short = kern.short if kern else sweep.labels[c]
+    groups = sweep.extras.get("curve_group")
+    if groups and groups[c] != groups[0]:
+        color, short = INK, f"{groups[c]} ({short})"
+    return color, short, 3 if current else 1.6
+
+
+def _curve_dash(sweep, c) -> str:
+    groups = sweep.extras.get("curve_group")
+    return "dashdot" if groups and groups[c] != groups[0] else "solid"
 
 
 def _add_curve(fig, sweep, c, j, mode, cv, current):
@@ -152,7 +191,8 @@ def _add_curve(fig, sweep, c, j, mode, cv, current):
         return np.r_[y, y2], np.r_[~odd, ~odd]
     y = se if mode == "se" else est if mode == "estimate" else sweep.t_stat[c, :, j]
     fig.add_trace(go.Scatter(x=x, y=np.where(odd, np.nan, y), mode="lines", name=short,
-                             line={"color": color, "width": width},
+                             line={"color": color, "width": width,
+                                   "dash": _curve_dash(sweep, c)},
                              hovertemplate=f"{short}<br>{sweep.axis.symbol}=%{{x}}<br>%{{y:.3f}}"
                                            "<extra></extra>"))
     if odd.any():
@@ -268,8 +308,8 @@ def residual_figure(fit) -> go.Figure:
 
 
 def acf_figure(report) -> go.Figure:
-    fig = make_subplots(rows=1, cols=2, subplot_titles=("ACF of residuals",
-                                                       "ACF of squared residuals"))
+    titles = report.bands.get("titles", ("ACF of residuals", "ACF of squared residuals"))
+    fig = make_subplots(rows=1, cols=2, subplot_titles=tuple(titles))
     for col, (name, band) in enumerate((("resid", "resid_band"), ("resid_sq", "resid_sq_band")),
                                        start=1):
         lags = report.acf.index.to_numpy()
@@ -310,5 +350,81 @@ def score_acf_figure(report) -> go.Figure:
                                  marker={"size": 4}))
     fig.add_hline(y=0, line={"color": MUTED, "width": 1})
     fig.update_xaxes(title_text="lag")
-    fig.update_yaxes(title_text="autocorrelation of x_t e_t")
-    return _base(fig, "What HAC corrects for: autocorrelation of each moment contribution", 280)
+    fig.update_yaxes(title_text=report.bands.get("score_axis", "autocorrelation of x_t e_t"))
+    return _base(fig, report.bands.get(
+        "score_title", "What HAC corrects for: autocorrelation of each moment contribution"), 280)
+
+
+def panel_residual_figure(fit) -> go.Figure:
+    """A panel's residuals by period: the cross-sectional mean and the 10-90% range."""
+    p = fit.panel
+    frame = pd.DataFrame({"t": p.time_codes, "e": fit.resid})
+    g = frame.groupby("t").e
+    stats = pd.DataFrame({"mean": g.mean(), "lo": g.quantile(0.1), "hi": g.quantile(0.9)})
+    x = p.periods[stats.index.to_numpy()]
+    x = x if isinstance(x, pd.DatetimeIndex) else x.astype(str)
+    fig = go.Figure()
+    fig.add_trace(go.Scatter(x=np.r_[x, x[::-1]], y=np.r_[stats.hi, stats.lo[::-1]],
+                             fill="toself", fillcolor="rgba(14,110,100,0.15)",
+                             line={"width": 0}, name="10-90% across entities",
+                             hoverinfo="skip"))
+    fig.add_trace(go.Scatter(x=x, y=stats["mean"], mode="lines",
+                             line={"color": ACCENT, "width": 1.5}, name="mean across entities"))
+    fig.add_hline(y=0, line={"color": MUTED, "width": 1})
+    fig.update_yaxes(title_text="residual")
+    return _base(fig, "Residuals by period (a common component moves the mean)", 280)
+
+
+def horizon_figure(sweep, term: str, level: float) -> go.Figure:
+    """The slope at every horizon h with each estimator's interval as a band."""
+    frame = sweep.term(term)
+    fig = go.Figure()
+    if frame.empty:
+        return empty_figure("no horizons to show")
+    palette = [ACCENT, WARN, "#3b5b92", "#8a6d1d", "#7a3b69"]
+    for i, label in enumerate(sweep.estimators):
+        rows = frame[frame.estimator == label].sort_values("h")
+        color = palette[i % len(palette)]
+        rgb = tuple(int(color[k:k + 2], 16) for k in (1, 3, 5))
+        ok = rows.ci_low.notna()
+        fig.add_trace(go.Scatter(
+            x=np.r_[rows.h[ok], rows.h[ok][::-1]], y=np.r_[rows.ci_high[ok], rows.ci_low[ok][::-1]],
+            fill="toself", fillcolor=f"rgba({rgb[0]},{rgb[1]},{rgb[2]},0.08)",
+            line={"color": color, "width": 1.5, "dash": ["solid", "dash", "dot"][i % 3]},
+            name=f"{level:.0%} interval, {label}",
+            hoverinfo="skip"))
+    first = frame[frame.estimator == sweep.estimators[0]].sort_values("h")
+    fig.add_trace(go.Scatter(x=first.h, y=first.estimate, mode="lines+markers", name="slope",
+                             line={"color": INK, "width": 2}, marker={"size": 4},
+                             hovertemplate="h = %{x}<br>slope %{y:.4g}<extra></extra>"))
+    fig.add_hline(y=0, line={"color": MUTED, "width": 1})
+    fig.update_xaxes(title_text="horizon h (periods summed by the response)")
+    fig.update_yaxes(title_text=f"slope on {term}")
+    return _base(fig, f"The slope on {term} at every horizon, with intervals", 380)
+
+
+def size_figure(frame: pd.DataFrame, nominal: float, done: int, nobs: int) -> go.Figure:
+    """Actual rejection rate of each nominal test (with its Monte Carlo interval) against the
+    nominal rate: a rate above the nominal line over-rejects."""
+    rows = frame.iloc[::-1]
+    over = rows.ci_low > nominal
+    under = rows.ci_high < nominal
+    colors = [WARN if o else (ACCENT if u else INK) for o, u in zip(over, under)]
+    fig = go.Figure(go.Scatter(
+        x=rows.rejection_rate, y=rows.estimator, mode="markers",
+        marker={"color": colors, "size": 9},
+        error_x={"type": "data", "symmetric": False, "array": rows.ci_high - rows.rejection_rate,
+                 "arrayminus": rows.rejection_rate - rows.ci_low, "color": MUTED,
+                 "thickness": 1.5},
+        customdata=np.c_[rows.ci_low, rows.ci_high, rows.size_adjusted_critical_value],
+        hovertemplate="%{y}<br>rejects %{x:.3f} [%{customdata[0]:.3f}, %{customdata[1]:.3f}]"
+                      "<br>size-adjusted |t| %{customdata[2]:.3f}<extra></extra>",
+        showlegend=False))
+    fig.add_vline(x=nominal, line={"color": INK, "width": 1.2, "dash": "dash"},
+                  annotation_text=f"nominal {nominal:.0%}", annotation_position="top",
+                  annotation_font={"size": 11, "color": INK})
+    fig.update_xaxes(title_text="actual rejection rate of a true null (orange: above nominal "
+                                "beyond Monte Carlo error; teal: below)", rangemode="tozero")
+    return _base(fig, f"How often each nominal {nominal:.0%} test rejects a true null at "
+                      f"T = {nobs} ({done} simulated samples)",
+                 min(640, max(320, 24 * len(rows) + 110)))

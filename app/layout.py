@@ -38,11 +38,30 @@ HELP = {
     "transform": "Adds a column: lag/lead p, first difference, log, log difference, or the "
                  "sum of the next h values (an overlapping h-period response, whose errors are "
                  "MA(h-1)).",
-    "window": "Sample window over the time index (both ends included).",
+    "window": "Sample window over the time index, or over the periods of a panel (both ends "
+              "included).",
     "iv": "Mark regressors as endogenous and choose excluded instruments (the exogenous "
           "regressors instrument themselves). Two-step, iterated and continuously updated GMM "
           "weight the moments by the estimator chosen in the Sensitivity card, so the estimate "
           "itself moves with the kernel and bandwidth.",
+    "panel": "A stacked panel has one row per entity (a firm, a fund) and period. Choose both "
+             "columns to fit a panel: the estimators then include clustering by entity, by time "
+             "or both, Driscoll-Kraay (a kernel over periods applied to the per-period sums) and "
+             "Fama-MacBeth, side by side. Fixed effects are removed by demeaning (the intercept "
+             "is then absorbed; the degrees of freedom they use are stated). The sample window "
+             "runs over periods.",
+    "persistence": "A persistent predictor whose innovations are correlated with the "
+                   "response's errors biases the least-squares slope in small samples and "
+                   "distorts its t test whatever the kernel. The reduced-bias slope corrects "
+                   "the bias; IVX tests no predictability validly whether the predictor is "
+                   "stationary, near a unit root or integrated. The chart fits the regression "
+                   "at every horizon from the one-period series.",
+    "size": "Simulates data like yours under beta = 0 for the coefficient in focus, at your T, "
+            "and counts how often each estimator's nominal test rejects: from a VAR of the "
+            "regressors and the estimated errors (the errors not predicted by past regressors), "
+            "or by resampling blocks of the data. An overlapping response keeps its overlap. "
+            "Each run is seeded, so it repeats exactly; the Monte Carlo interval says how "
+            "precise each rate is. The simulation is only as close to your data as its model.",
     "headline": "All numbers assume a correctly specified linear model and stationary data; "
                 "the p-value is only as good as the reference law and bandwidth behind it. "
                 "Choose the estimator before looking at the results, and report the range "
@@ -152,7 +171,10 @@ def sidebar(initial_horizon=None, where: str = "this computer"):
         html.Div(id="upload-limit-note", className="lw-message", role="alert"),
         html.P(HELP["upload"] + f" The file goes to the Lagwise server on {where}.",
                className="lw-help", id="upload-help"),
-        html.Button("Use the demo data", id="load-demo", n_clicks=0, className="lw-btn-quiet"),
+        html.Div([html.Button("Use the demo data", id="load-demo", n_clicks=0,
+                              className="lw-btn-quiet"),
+                  html.Button("Use the panel demo", id="load-demo-panel", n_clicks=0,
+                              className="lw-btn-quiet")], className="lw-row"),
         dcc.Loading(html.Div(id="upload-message", className="lw-message"), type="dot",
                     color="#0e6e64"),
         html.Ul(id="load-report", className="lw-report"),
@@ -166,6 +188,18 @@ def sidebar(initial_horizon=None, where: str = "this computer"):
         dcc.Dropdown(id="regressors", multi=True),
         dcc.Checklist(id="intercept", options=[{"label": " intercept", "value": "on"}],
                       value=["on"], className="lw-check"),
+        html.Details([
+            html.Summary("Panel (entity by time)"),
+            html.P(HELP["panel"], className="lw-help"),
+            html.Label("entity column", className="lw-label"),
+            dcc.Dropdown(id="entity", placeholder="none: one time series"),
+            html.Label("time column", className="lw-label"),
+            dcc.Dropdown(id="time-col", placeholder="none"),
+            dcc.Checklist(id="effects", options=[
+                {"label": " entity fixed effects", "value": "entity"},
+                {"label": " time fixed effects", "value": "time"}], value=[],
+                className="lw-check")],
+            className="lw-details", id="panel-details"),
         html.Details([
             html.Summary("Instruments (IV / GMM)"),
             html.P(HELP["iv"], className="lw-help"),
@@ -196,6 +230,9 @@ def sidebar(initial_horizon=None, where: str = "this computer"):
         html.Label("overlap horizon h (periods summed by the response)", className="lw-label"),
         dcc.Input(id="horizon", type="number", min=1, step=1, debounce=True,
                   placeholder="none", className="lw-input", value=initial_horizon),
+        html.Label("one-period series (its sum over the next h periods is the response)",
+                   className="lw-label"),
+        dcc.Dropdown(id="one-period", placeholder="not known", className="lw-input"),
         html.Label("sample window", className="lw-label"),
         dcc.RangeSlider(id="window", min=0, max=1, step=1, value=[0, 1], allowCross=False,
                         marks=None, tooltip=None, className="lw-window"),
@@ -273,6 +310,54 @@ def strength_card():
         id="strength-card", style={"display": "none"})
 
 
+def predictive_cards():
+    """Persistence and horizon (shown for overlapping responses and persistent predictors)."""
+    return html.Div([
+        card("Persistence of the predictor", [
+            html.P(HELP["persistence"], className="lw-help"),
+            grid("persistence-table", views.PERSIST_COLUMNS),
+            html.Ul(id="persistence-reading", className="lw-reading-list")],
+            export=export_menu("persistence-table", TABLE_FORMATS, copy=True)),
+        card("Slope across horizons", [graph("horizon-graph", 380),
+                                       html.Ul(id="horizon-notes", className="lw-notes")],
+             export=export_menu("horizon-graph", CHART_FORMATS)),
+    ], id="predictive-card", className="lw-results", style={"display": "none"})
+
+
+def size_card():
+    return card("Size at this sample", [
+        html.P(HELP["size"], className="lw-help"),
+        html.Div([
+            html.Div([html.Label("replications", className="lw-label"),
+                      dcc.Dropdown(id="size-reps", options=[
+                          {"label": str(n), "value": n} for n in (200, 500, 1000, 2000)],
+                          value=500, clearable=False)], className="lw-field"),
+            html.Div([html.Label("simulated from", className="lw-label"),
+                      dcc.Dropdown(id="size-method", options=[
+                          {"label": "a VAR of the regressors and errors", "value": "var"},
+                          {"label": "blocks of the data", "value": "block"}],
+                          value="var", clearable=False)], className="lw-field"),
+        ], className="lw-grid"),
+        html.Div([html.Button("run the size check", id="size-run", n_clicks=0,
+                              className="lw-btn"),
+                  html.Button("cancel", id="size-cancel", n_clicks=0, disabled=True,
+                              className="lw-btn-quiet")], className="lw-row"),
+        html.Progress(id="size-progress", value="0", max="1", className="lw-progress"),
+        html.Div(id="size-progress-text", className="lw-help", **{"aria-live": "polite"}),
+        html.Div(id="size-status", className="lw-message"),
+        graph("size-graph", 660),
+        grid("size-table", views.SIZE_COLUMNS),
+        dcc.Store(id="size-job"), dcc.Store(id="size-data")],
+        export=html.Div([export_menu("size-graph", CHART_FORMATS),
+                         html.Div([html.Span("table", className="lw-export-label")] + [
+                             html.Button(f.upper() if f != "markdown" else "MD",
+                                         id={"type": "export-size", "fmt": f}, n_clicks=0,
+                                         className="lw-export-btn")
+                             for f in TABLE_FORMATS], className="lw-export")],
+            className="lw-row"),
+        card_id="size-card")
+
+
 def main_area():
     return html.Main([
         html.Section([
@@ -298,6 +383,7 @@ def main_area():
                  export=export_menu("compare-table", TABLE_FORMATS, copy=True)),
         ], className="lw-results"),
         strength_card(),
+        predictive_cards(),
         card("Interval across estimators", [graph("interval-graph", 420)],
              export=export_menu("interval-graph", CHART_FORMATS)),
         html.H2("Residual diagnostics", className="lw-section-title"),
@@ -315,6 +401,7 @@ def main_area():
         ], className="lw-diag-grid"),
         card("Diagnostic tests", [grid("diag-table", views.DIAG_COLUMNS)],
              export=export_menu("diag-table", TABLE_FORMATS, copy=True)),
+        size_card(),
         html.Div([html.Button("download an HTML report of this view", id="export-report",
                               n_clicks=0, className="lw-btn")], className="lw-report-row"),
     ], className="lw-main")

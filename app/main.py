@@ -19,7 +19,8 @@ from .layout import build_layout
 from .state import MAX_UPLOAD_BYTES, STORE, CapacityError
 
 DEMO_SPEC = {"response": "exret_12m", "regressors": ["rate_capacity", "credit_spread"],
-             "horizon": 12, "horizons": {"exret_12m": 12, "exret_36m": 36}}
+             "horizon": 12, "horizons": {"exret_12m": 12, "exret_36m": 36},
+             "one_period": {"exret_12m": "exret_1m", "exret_36m": "exret_1m"}}
 LOOPBACK = ("127.0.0.1", "localhost", "::1", "[::1]")
 
 
@@ -50,8 +51,10 @@ def create_app(data_path: str | Path | None = None, settings: dict | None = None
     if settings and settings.get("response"):
         spec = {"response": settings["response"], "regressors": settings.get("regressors", []),
                 "horizon": settings.get("horizon")}
+    from .studies import job_manager
     app = Dash(__name__, assets_folder=str(assets_dir()), title="Lagwise",
-               update_title=None, suppress_callback_exceptions=True)
+               update_title=None, suppress_callback_exceptions=True,
+               background_callback_manager=job_manager())
     # bound request bodies (an upload arrives base64-encoded, about 4/3 of the file)
     app.server.config["MAX_CONTENT_LENGTH"] = int(MAX_UPLOAD_BYTES * 1.4) + 1_000_000
     local = host in LOOPBACK

@@ -5,8 +5,9 @@ index. Monthly, 1989-01 to 2023-12. Columns:
 
   month          end of month
   exret_1m       the index's excess return over the month (percent)
-  exret_12m      excess return over the next 12 months, x_{t+1} + ... + x_{t+12} (overlapping)
-  exret_36m      excess return over the next 36 months (overlapping)
+  exret_12m      excess return over the next 12 months, x_{t+1} + ... + x_{t+12} (overlapping;
+                 missing for the last 12 months)
+  exret_36m      excess return over the next 36 months (overlapping; missing for the last 36)
   rate_capacity  a persistent valuation ratio (log of freight rates over fleet capacity)
   credit_spread  a credit spread of carriers' bonds (percentage points)
 
@@ -57,10 +58,12 @@ def generate(seed: int = SEED, nobs: int = T) -> pd.DataFrame:
     months = pd.period_range("1989-01", periods=len(r), freq="M").to_timestamp(how="end").normalize()
     frame = pd.DataFrame({"month": months.strftime("%Y-%m-%d"), "exret_1m": r,
                           "rate_capacity": -0.35 + v, "credit_spread": s})
-    ret = pd.Series(r)
+    frame = frame.iloc[:nobs].copy()
+    # the forward sums use only the months in the file, so they are missing for the last h rows
+    # (as they would be in real data), and sum the rounded monthly values exactly
+    ret = frame["exret_1m"].round(4)
     for h in (12, 36):
         frame[f"exret_{h}m"] = ret[::-1].rolling(h).sum()[::-1].shift(-1)
-    frame = frame.iloc[:nobs]
     frame = frame[["month", "exret_1m", "exret_12m", "exret_36m", "rate_capacity",
                    "credit_spread"]].round(4)
     return pd.concat([frame, utilization_block(seed + 1, len(frame))], axis=1)

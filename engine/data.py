@@ -57,6 +57,10 @@ class LoadReport:
         for col, how in self.converted.items():
             out.append(f"column '{col}' read as numbers after {how}")
         for col, example in self.non_numeric.items():
+            if self.panel and col in self.panel:
+                what = "entity" if col == self.panel[0] else "time"
+                out.append(f"column '{col}' kept as the panel's {what} labels (e.g. '{example}')")
+                continue
             out.append(f"column '{col}' left out: not numeric (e.g. '{example}')")
         for col, n in self.missing.items():
             if n:
@@ -638,6 +642,8 @@ def _report_panel(frame, kinds, text, rejected, report) -> None:
             pairs = pd.DataFrame({"i": ids.to_numpy(), "t": dates.to_numpy()})
             if not pairs.duplicated().any():
                 report.panel = (icol, dcol)
+                report.notes = [n for n in report.notes if not n.startswith(
+                    f"column '{dcol}' holds dates with repeated values")]
                 report.notes.append(
                     f"a stacked panel: entity '{icol}' ({ids.nunique()} entities) by time "
                     f"'{dcol}' ({dates.nunique()} periods); the rows are not one time series")

@@ -166,6 +166,9 @@ _FIELDS = {
     "endogenous": ((list,), "names"),
     "instruments": ((list,), "names"),
     "method": ((str,), None),
+    "entity": ((str, type(None)), None),
+    "time": ((str, type(None)), None),
+    "effects": ((list,), "effects"),
 }
 #: names used by version 1 files
 _OLD_KEYS = {"bandwidth": "value"}
@@ -252,6 +255,8 @@ def validate_settings(data: dict) -> dict:
         if check == "names" and (len(value) > 200 or not all(isinstance(v, str) and len(v) < 500
                                                              for v in value)):
             raise DataError(f"settings: '{key}' must be a short list of column names")
+        if check == "effects" and not all(v in ("entity", "time") for v in value):
+            raise DataError("settings: 'effects' may hold 'entity' and 'time' only")
         if check == "positive" and value is not None and value < 1:
             raise DataError("settings: 'horizon' must be a whole number >= 1")
         if check == "level" and not 0.5 <= float(value) < 1:

@@ -14,6 +14,8 @@ analyst's request ("auto", "normal", "t", "fixed-b") into a law, in this one pla
 
 from __future__ import annotations
 
+import functools
+
 from dataclasses import dataclass
 
 import numpy as np
@@ -89,13 +91,18 @@ def _finite_or_nan(t, p):
     return np.where(np.isfinite(t), p, np.nan)
 
 
+@functools.lru_cache(maxsize=256)
+def _normal_critical(level: float, restrictions: int) -> float:
+    if restrictions == 1:
+        return float(stats.norm.ppf(0.5 + level / 2))
+    return float(stats.chi2.ppf(level, restrictions))
+
+
 class Normal(Law):
     key = "normal"
 
     def critical_value(self, level, restrictions=1):
-        if restrictions == 1:
-            return float(stats.norm.ppf(0.5 + level / 2))
-        return float(stats.chi2.ppf(level, restrictions))
+        return _normal_critical(float(level), int(restrictions))
 
     def p_values(self, t):
         a = np.abs(np.asarray(t, dtype=float))

@@ -515,14 +515,18 @@ def check_horizon(horizon):
 
 
 def fit_ols(data, response: str, regressors=None, intercept: bool = True,
-            sample: tuple | None = None, horizon: int | None = None) -> OLSFit:
+            sample: tuple | None = None, horizon: int | None = None,
+            one_period: str | None = None) -> OLSFit:
     """Fit y = X beta + e by least squares.
 
     data: a `Table` or a DataFrame. regressors: list of column names (or "x1,x2").
     intercept: add a constant term named "intercept" (first). sample: optional (start, end)
     labels of the index (dates or row numbers), both inclusive; None keeps every row.
     horizon: the number of periods h an overlapping response sums (errors MA(h-1)); taken from
-    the table when the response was made by the forward-sum transform.
+    the table when the response was made by the forward-sum transform. one_period: the column
+    whose sum over the next h periods is the response (known automatically for a response made
+    by the forward-sum transform); Hodrick (1992) standard errors and the predictive-regression
+    tools need it.
 
     Rows with a missing value in any used column are dropped and counted in `fit.sample`.
     Raises DataError for unusable columns, SpecificationError for an impossible model.
@@ -573,8 +577,46 @@ def fit_ols(data, response: str, regressors=None, intercept: bool = True,
     horizon = check_horizon(horizon)
     if horizon is None:
         horizon = horizons.get(response)
-    return OLSFit(X=X, y=y, terms=terms, index=index, response=response, sample=info,
-                  horizon=horizon, table=table)
+    fit = OLSFit(X=X, y=y, terms=terms, index=index, response=response, sample=info,
+                 horizon=horizon, table=table)
+    fit.one_period = one_period_source(table, frame, response, horizon, one_period)
+    return fit
+
+
+#: The named one-period series must sum to the response within this fraction of the response's
+#: standard deviation (rounding in a file, e.g. four decimals per value, stays far below it).
+ONE_PERIOD_TOLERANCE = 1e-3
+
+
+def one_period_source(table, frame, response, horizon, one_period):
+    """The one-period series whose forward sum over the next h periods is the response, as a
+    Series over the whole table (named by its column), or None when not known."""
+    if one_period is None and table is not None:
+        from .data import transform_name
+        for kind, column, p in table.transforms:
+            if kind == "sum-next" and transform_name(kind, column, p) == response:
+                one_period = column
+    if one_period is None:
+        return None
+    if not isinstance(one_period, str) or one_period not in frame.columns:
+        raise SpecificationError(f"no column named {one_period!r} for the one-period series")
+    if not horizon or horizon < 1:
+        raise SpecificationError("give the horizon h of the response with its one-period "
+                                 "series (horizon=h)")
+    x = frame[one_period].astype(float)
+    ahead = x[::-1].rolling(horizon, min_periods=horizon).sum()[::-1].shift(-1)
+    y = frame[response].astype(float)
+    both = ahead.notna() & y.notna()
+    if not both.any():
+        raise SpecificationError(f"'{one_period}' and '{response}' have no rows in common")
+    gap = float((ahead[both] - y[both]).abs().max())
+    scale = float(y[both].std()) or 1.0
+    if gap > ONE_PERIOD_TOLERANCE * scale:
+        raise SpecificationError(
+            f"'{response}' is not the sum of the next {horizon} values of '{one_period}' (they "
+            f"differ by up to {gap:.3g}); name the one-period series whose forward sum is the "
+            "response, or leave it out")
+    return x.rename(one_period)
 
 
 class SeriesModel(MomentModel):

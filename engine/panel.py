@@ -350,6 +350,16 @@ def panel_data(data, response, regs, entity, time, sample=None) -> PanelData:
                      index=index, sample=info, table=table, horizon=horizon)
 
 
+def periods_of(data, time: str) -> pd.Index:
+    """The distinct periods of a panel's time column, parsed and in time order."""
+    frame, get, _, _ = _columns_of(data, [time])
+    s = get(time)
+    if s is None:
+        raise SpecificationError(f"no time column named '{time}'")
+    values = _time_values(s, time).dropna()
+    return pd.Index(np.sort(pd.unique(values)), name=time)
+
+
 def _same_kind(value, series):
     if pd.api.types.is_datetime64_any_dtype(series):
         return pd.Timestamp(value)
@@ -1136,10 +1146,8 @@ def _panel_correlograms(fit, notes):
     persistence = pd.DataFrame({"rho1": score_acf.iloc[0]}).assign(andrews_bartlett_b=andrews.b)
     bands = {"acf": f"95% bands +-1.96/sqrt(N) within entities and +-1.96/sqrt(T_p) for the "
                     f"period average (T_p = {t})",
-             "titles": ("Residual autocorrelation within entities",
-                        "Autocorrelation of the period-average residual"),
-             "score_title": "What Driscoll-Kraay corrects for: autocorrelation of the "
-                            "per-period sums of each moment contribution",
+             "titles": ("Residual ACF within entities", "ACF of the period-average residual"),
+             "score_title": "What Driscoll-Kraay corrects for: ACF of per-period sums",
              "score_axis": "autocorrelation of sum_i x_it e_it"}
     return acf_df, score_acf, persistence, bands
 

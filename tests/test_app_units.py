@@ -103,7 +103,7 @@ def test_interval_figure_and_comparison_records(fit):
     assert by["HC0"]["differs"] is False and by["HC0"]["verdict"] == "rejected"
     assert by["Parzen, Andrews (1991) bandwidth"]["differs"] is True
     assert by["Parzen, Andrews (1991) bandwidth"]["verdict"] == "not rejected"
-    assert by["Classical (iid)"]["law"] == "t(417)"
+    assert by["Classical (iid)"]["law"] == "t(405)"
     assert "MA(11)" in by["Truncated (uniform), b = 12"]["note"]
     assert "fewer than h - 1 = 11" in by["Bartlett, rule-of-thumb bandwidth"]["note"]
     # numbers for sorting, text for display

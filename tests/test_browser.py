@@ -145,7 +145,9 @@ def test_exports_chart_and_table(page: Page, live_server, tmp_path):
         card(page, "coef-table").locator("button", has_text="CSV").click()
     csv_text = Path(info.value.path()).read_text()
     row = [ln for ln in csv_text.splitlines() if ln.startswith("rate_capacity,")][0]
-    assert row.split(",")[1].startswith("-23.7")          # a number, not text
+    shown = lagwise.fit_ols(lagwise.load_table(DEMO), "exret_12m",
+                            ["rate_capacity", "credit_spread"]).params["rate_capacity"]
+    assert float(row.split(",")[1]) == pytest.approx(shown, rel=1e-8)   # a number, not text
     assert csv_text.startswith("# ") and "reference law" in csv_text.splitlines()[1]
     with page.expect_download(timeout=30_000) as info:
         card(page, "compare-table").locator("button", has_text="CSV").click()
@@ -324,3 +326,117 @@ def test_instrumental_variables_in_the_page(page: Page, live_server):
     page.wait_for_function(
         "() => document.getElementById('sens-graph').querySelector('.js-plotly-plot')"
         ".layout.title.text.includes('J test')")
+
+
+def test_panel_demo_in_the_page(page: Page, live_server, tmp_path):
+    """Load the panel demo: the panel is recognised and fitted, the estimator picker offers the
+    panel families (Driscoll-Kraay by default, at the Andrews bandwidth over periods), the
+    comparison lists clustering, Driscoll-Kraay and Fama-MacBeth with their own estimates,
+    moving the slider matches the engine, effects refit, and panel diagnostics are shown."""
+    errors = open_app(page, live_server)
+    page.locator("#load-demo-panel").click()
+    expect(page.locator("#upload-message")).to_contain_text("loaded the demo data",
+                                                            timeout=20_000)
+    expect(page.locator("#fit-message")).to_contain_text("240 entities x 156 periods",
+                                                         timeout=30_000)
+    expect(page.locator("#load-report")).to_contain_text("kept as the panel's entity labels")
+    expect(page.locator("#entity")).to_contain_text("company")
+    expect(page.locator("#time-col")).to_contain_text("month")
+    table = lagwise.load_table(demo_file("shipping_panel.csv"))
+    regs = ["book_to_market", "fleet_age", "charter_cover"]
+    fit = lagwise.fit_panel(table, "exret", regs)
+    expect(page.locator("#est-name")).to_contain_text("Driscoll-Kraay", timeout=20_000)
+    dk = fit.infer(lagwise.estimator("driscoll_kraay", bandwidth="andrews"))
+    expect(se_cell(page, 1)).to_have_text(fmt(dk.table.std_error.iloc[1]), timeout=30_000)
+    expect(page.locator("#tune-title")).to_have_text("bandwidth b (periods)")
+    expect(page.locator("#tune-text")).to_contain_text("156 periods")
+    names = cells(page, "compare-table", "estimator")
+    expect(names.filter(has_text="Clustered by entity and time")).to_have_count(1,
+                                                                                 timeout=30_000)
+    expect(names.filter(has_text="Fama-MacBeth, Classical")).to_have_count(1)
+    fm = fit.fama_macbeth().infer("classical")
+    row = page.locator("#compare-table .ag-row", has=page.locator(
+        "[col-id='estimator']", has_text="Fama-MacBeth, Classical"))
+    expect(row.locator("[col-id='estimate']")).to_have_text(fmt(fm.table.estimate.iloc[1]))
+    # a value set by hand
+    thumb = page.locator("#tune-slider [role=slider]")
+    thumb.focus()
+    page.keyboard.press("Home")
+    for _ in range(9):
+        page.keyboard.press("ArrowRight")
+    expect(thumb).to_have_attribute("aria-valuenow", "10")
+    at10 = fit.infer(lagwise.estimator("driscoll_kraay", bandwidth=10.0))
+    expect(se_cell(page, 1)).to_have_text(fmt(at10.table.std_error.iloc[1]), timeout=20_000)
+    page.wait_for_function(
+        "() => document.getElementById('sens-graph').querySelector('.js-plotly-plot')"
+        ".data.some(t => (t.name || '').startsWith('Fama-MacBeth'))")
+    # clustering by time: no tuning value, the table follows
+    choose(page, "est-name", "Clustered (panel)")
+    expect(page.locator("#tune-title")).to_have_text("no tuning value", timeout=20_000)
+    cl = fit.infer(lagwise.estimator("cluster", by="entity"))
+    expect(se_cell(page, 1)).to_have_text(fmt(cl.table.std_error.iloc[1]), timeout=20_000)
+    expect(page.locator("#coef-caption")).to_contain_text("G - 1, G = 240 entities")
+    # diagnostics for panels
+    expect(cells(page, "diag-table", "test").first).to_have_text("Pesaran CD", timeout=30_000)
+    # entity fixed effects: the intercept is absorbed and the degrees of freedom stated
+    expect(page.locator("#panel-details")).to_have_attribute("open", "")   # opened for a panel
+    page.get_by_label("entity fixed effects").check()
+    expect(page.locator("#fit-message")).to_contain_text("entity fixed effects",
+                                                         timeout=30_000)
+    expect(cells(page, "coef-table", "term")).to_have_text(regs, timeout=20_000)
+    fe = lagwise.fit_panel(table, "exret", regs, effects="entity")
+    expect(se_cell(page, 0)).to_have_text(
+        fmt(fe.infer(lagwise.estimator("cluster", by="entity")).table.std_error.iloc[0]),
+        timeout=20_000)
+    # settings keep the panel
+    with page.expect_download() as dl:
+        page.locator("#save-settings").click()
+    saved = json.loads(Path(dl.value.path()).read_text())
+    assert saved["entity"] == "company" and saved["time"] == "month"
+    assert saved["effects"] == ["entity"] and saved["estimator"] == "cluster"
+    assert not [e for e in errors if "Error" in e], errors
+
+
+def test_persistence_card_and_size_check_with_progress_and_cancel(page: Page, live_server):
+    """The demo's 12-month regression shows the persistence card (IVX, bias, horizon chart);
+    the size check runs with a progress bar and fills its chart and table; a long run can be
+    cancelled (the button comes back and the result is not replaced)."""
+    errors = open_app(page, live_server)
+    expect(page.locator("#predictive-card")).to_be_visible(timeout=30_000)
+    fit = lagwise.fit_ols(lagwise.load_table(DEMO), "exret_12m", ["rate_capacity",
+                                                                   "credit_spread"],
+                          horizon=12, one_period="exret_1m")
+    rep = lagwise.engine.predictive.persistence_report(fit, "rate_capacity")
+    expect(cells(page, "persistence-table", "value").first).to_have_text(fmt(rep.rho, 4),
+                                                                         timeout=20_000)
+    expect(page.locator("#persistence-reading")).to_contain_text("IVX")
+    page.wait_for_function(
+        "() => document.getElementById('horizon-graph').querySelector('.js-plotly-plot')"
+        ".data.length >= 4")
+    choose(page, "size-reps", "200")
+    page.locator("#size-run").click()
+    expect(page.locator("#size-progress-text")).to_contain_text("of 200 replications",
+                                                                timeout=60_000)
+    expect(cells(page, "size-table", "estimator").first).to_have_text("Classical (iid)",
+                                                                      timeout=120_000)
+    expect(page.locator("#size-progress-text")).to_have_text("200 of 200 replications")
+    expect(page.locator("#size-status")).to_contain_text("200 replications at T = 408")
+    ref = lagwise.engine.simulate.size_check(
+        lagwise.app.studies.lean_copy(fit), reps=200, seed=0, focus="rate_capacity",
+        workers=1).frame
+    expect(cells(page, "size-table", "rejection_rate").first).to_have_text(
+        f"{ref.rejection_rate.iloc[0]:.3f}")
+    # cancel a long run
+    choose(page, "size-reps", "2000")
+    page.locator("#size-run").click()
+    expect(page.locator("#size-cancel")).to_be_enabled(timeout=20_000)
+    expect(page.locator("#size-progress-text")).not_to_have_text("200 of 200 replications",
+                                                                 timeout=60_000)
+    page.locator("#size-cancel").click()
+    expect(page.locator("#size-run")).to_be_enabled(timeout=20_000)
+    expect(page.locator("#size-status")).to_contain_text("cancelled")
+    page.wait_for_timeout(3000)
+    assert "of 2000" not in page.locator("#size-status").inner_text()
+    expect(cells(page, "size-table", "rejection_rate").first).to_have_text(
+        f"{ref.rejection_rate.iloc[0]:.3f}")                 # the completed run stays
+    assert not [e for e in errors if "Error" in e], errors

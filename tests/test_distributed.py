@@ -2,6 +2,8 @@
 (2 workers on loopback, started and shut down here) gives the same numbers as the in-memory
 path to 1e-10, for every estimator it offers; what it cannot offer is a typed error."""
 
+from pathlib import Path
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -150,3 +152,21 @@ def test_cli_panel_command_on_the_cluster(client, frame, folder, tmp_path, capsy
     assert set(a.estimator[gone]) == {e for e in a.estimator if e.startswith("Entity clusters")}
     assert a.note[gone].str.contains("each entity's rows together").all()
     np.testing.assert_allclose(a.std_error[~gone], b.std_error[~gone], rtol=1e-9)
+
+
+def test_cli_starts_its_own_local_cluster(folder, tmp_path):
+    """`lagwise panel FOLDER` without --scheduler, as a user runs it: a local cluster on
+    127.0.0.1 is started and shut down by the command."""
+    import shutil
+    import subprocess
+    import sys
+    exe = shutil.which("lagwise") or str(Path(sys.executable).with_name("lagwise"))
+    out = tmp_path / "out.md"
+    res = subprocess.run([exe, "panel", str(folder), "--entity", "firm", "--time", "month",
+                          "--response", "y", "--regressors", "x1,x2,x3", "--effects", "entity",
+                          "--format", "markdown", "--output", str(out)],
+                         capture_output=True, text=True, timeout=300)
+    assert res.returncode == 0, res.stderr[-2000:]
+    assert "local Dask cluster (2 workers on 127.0.0.1)" in res.stderr
+    text = out.read_text()
+    assert "Driscoll-Kraay" in text and "Clustered by entity and time" in text

@@ -42,17 +42,34 @@ def panel_fits():
             "permuted": fit(frame, ["x3", "x1", "x2"])}
 
 
+@pytest.fixture(scope="module")
+def horizon_fits(df):
+    """An overlapping 6-period response built from its one-period series (Hodrick needs it)."""
+    regs = ["x1", "x2", "x3"]
+    out = {}
+    for name, frame, order in (("base", df, regs), ("scaled", df.assign(y=-3.0 * df.y), regs),
+                               ("permuted", df, ["x3", "x1", "x2"])):
+        table = lagwise.engine.data.Table(frame=frame.copy())
+        table, y = table.with_transform("sum-next", "y", 6)
+        out[name] = lagwise.fit_ols(table, y, order)
+    return out
+
+
 @pytest.fixture
-def fits(request, series_fits, panel_fits):
-    """The fits a family applies to: time series, or (for the panel families) panels."""
+def fits(request, series_fits, panel_fits, horizon_fits):
+    """The fits a family applies to: time series, panels, or overlapping responses with their
+    one-period series."""
     family = request.node.callspec.params["family"]
-    return series_fits if family.applies(series_fits["base"]) is None else panel_fits
+    for kind in (series_fits, panel_fits, horizon_fits):
+        if family.applies(kind["base"]) is None:
+            return kind
+    raise AssertionError(f"{family.name} applies to none of the test fits")
 
 
-def test_every_family_applies_to_a_time_series_or_a_panel(series_fits, panel_fits):
+def test_every_family_applies_to_some_fit(series_fits, panel_fits, horizon_fits):
     for family in FAMS:
-        assert family.applies(series_fits["base"]) is None \
-            or family.applies(panel_fits["base"]) is None, family.name
+        assert any(family.applies(kind["base"]) is None
+                   for kind in (series_fits, panel_fits, horizon_fits)), family.name
 
 
 def options(p):

@@ -114,8 +114,8 @@ def run_pipeline(table_or_frame):
         if fam.axis is None:
             continue
         try:
-            sw = lagwise.sweep(model, [lagwise.estimator(fam.name)],
-                               fam.axis.grid(model)[:6])
+            grid = fam.axis.grid(model)[:6]
+            sw = lagwise.sweep(model, [lagwise.estimator(fam.name)], grid)
         except lagwise.LagwiseError:
             continue
         ok = np.isfinite(sw.std_error).all(axis=2) | (sw.status != "")

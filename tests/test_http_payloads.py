@@ -62,7 +62,7 @@ def test_no_callback_answers_a_malformed_payload_with_500(app_and_session):
     client = app.server.test_client()
     rng = random.Random(20261202)
     statuses = {}
-    for key, spec in app.callback_map.items():
+    for key, spec in list(app.callback_map.items()):
         for _ in range(12):
             payload = _payload(key, spec, rng, session)
             res = client.post("/_dash-update-component", json=payload,

@@ -1,0 +1,212 @@
+"""The predictive-regression cards: persistence and horizons (computed with the fit), and the
+size check (a background job with progress and cancel: Dash background callbacks with a disk
+cache manager). The job reads a lean copy of the fit from the job cache, not the session store,
+so a forked job never touches the store's lock."""
+
+from __future__ import annotations
+
+import atexit
+import pickle
+import secrets
+import shutil
+import tempfile
+
+import numpy as np
+import pandas as pd
+from dash import ALL, Input, Output, State, ctx, html, no_update
+from dash.exceptions import PreventUpdate
+
+from .. import engine
+from ..engine.model import INTERCEPT, OLSFit, SampleInfo
+from ..engine.predictive import PERSISTENCE_THRESHOLD, horizon_sweep, persistence_report
+from ..engine.simulate import size_check
+from . import figures as F
+from . import views as V
+from .callbacks import guarded, stored
+from .state import STORE, key_for
+
+CALLBACKS: list = []
+#: The size check's replications are bounded per run.
+MAX_REPS = 2000
+#: Bytes the job cache may hold on disk (entries are removed when a job starts).
+JOB_CACHE_BYTES = 512 * 2**20
+_JOBS = {"cache": None}
+
+
+def callback(*args, message: int | None = None, **kwargs):
+    def deco(fn):
+        CALLBACKS.append((args, kwargs, guarded(fn, args, message)))
+        return fn
+    return deco
+
+
+def job_manager():
+    """The disk-cache manager behind the background callbacks (one temporary folder per
+    process, removed at exit)."""
+    import diskcache
+    from dash import DiskcacheManager
+    if _JOBS["cache"] is None:
+        folder = tempfile.mkdtemp(prefix="lagwise-jobs-")
+        atexit.register(shutil.rmtree, folder, ignore_errors=True)
+        _JOBS["cache"] = diskcache.Cache(folder, size_limit=JOB_CACHE_BYTES)
+    return DiskcacheManager(_JOBS["cache"], expire=3600)
+
+
+def lean_copy(fit) -> OLSFit:
+    """The fit without its table and caches (what the size check needs)."""
+    copy = OLSFit(X=np.array(fit.X), y=np.array(fit.y), terms=fit.terms,
+                  index=pd.RangeIndex(fit.nobs), response=fit.response,
+                  sample=SampleInfo(fit.nobs, fit.nobs), horizon=fit.horizon)
+    if getattr(fit, "one_period", None) is not None:
+        pos = fit.one_period.index.get_indexer(fit.index)
+        src = fit.one_period.to_numpy()
+        if (pos >= 0).all() and (np.diff(pos) == 1).all():
+            copy.one_period = pd.Series(src[pos[0]: pos[0] + fit.nobs + (fit.horizon or 1) + 1],
+                                        name=fit.one_period.name)
+    return copy
+
+
+def _is_time_series_ols(model) -> bool:
+    return isinstance(model, OLSFit) and getattr(model, "panel", None) is None
+
+
+# --------------------------------------------------------------------------- persistence
+
+@callback(Output("predictive-card", "style"), Output("persistence-table", "rowData"),
+          Output("persistence-reading", "children"), Output("horizon-graph", "figure"),
+          Output("horizon-notes", "children"),
+          Input("fit-key", "data"), Input("focus", "value"), Input("level", "value"),
+          State("session", "data"), message=2)
+def on_persistence(fkey, focus, level, session):
+    model = stored(session, fkey)
+    hidden = {"display": "none"}
+    if not _is_time_series_ols(model) or focus not in getattr(model, "terms", []):
+        return hidden, [], [], F.empty_figure(""), []
+    key = key_for(fkey, "persistence", focus, level)
+
+    def build():
+        slopes = [t for t in model.terms if t != INTERCEPT]
+        if not slopes:
+            return None
+        predictor = focus if focus != INTERCEPT else None
+        overlapping = bool(model.horizon and model.horizon > 1)
+        try:
+            rep = persistence_report(model, predictor, level=level)
+        except engine.LagwiseError as exc:
+            if not overlapping:
+                return None
+            return {"error": str(exc)}
+        if not overlapping and not rep.persistent:
+            return None
+        source = model.one_period.name if getattr(model, "one_period", None) is not None \
+            else (model.response if not overlapping else None)
+        sweep = None
+        notes = list(rep.notes)
+        if source is not None and model.table is not None and source in model.table.frame:
+            top = int(min(36, max(12, 3 * (model.horizon or 1)), model.nobs // 5))
+            regs = [t for t in model.terms if t != INTERCEPT]
+            try:
+                sweep = horizon_sweep(model.table, source, regs, horizons=range(1, top + 1),
+                                      intercept=INTERCEPT in model.terms, level=level)
+                notes += sweep.notes
+            except engine.LagwiseError as exc:
+                notes.append(f"horizon chart not available: {exc}")
+        else:
+            notes.append("the horizon chart needs the one-period series: choose it under the "
+                         "overlap horizon")
+        return {"report": rep, "sweep": sweep, "notes": notes}
+    out = STORE.derived(session, key, build)
+    if out is None:
+        return hidden, [], [], F.empty_figure(""), []
+    if "error" in out:
+        return {}, [], [html.Li(out["error"])], F.empty_figure(out["error"]), []
+    rep, sweep = out["report"], out["sweep"]
+    fig = F.horizon_figure(sweep, focus if focus != INTERCEPT else rep.predictor, level) \
+        if sweep is not None else F.empty_figure("choose the one-period series to see horizons")
+    return ({}, V.persistence_records(rep), [html.Li(s) for s in rep.reading], fig,
+            [html.Li(n) for n in out["notes"]])
+
+
+# --------------------------------------------------------------------------- size check
+
+@callback(Output("size-job", "data"), Output("size-status", "children"),
+          Input("size-run", "n_clicks"), State("fit-key", "data"), State("focus", "value"),
+          State("size-reps", "value"), State("size-method", "value"), State("level", "value"),
+          State("session", "data"), prevent_initial_call=True, message=1)
+def on_size_request(_n, fkey, focus, reps, method, level, session):
+    """Put a lean copy of the fit in the job cache and hand the job its token."""
+    model = stored(session, fkey)
+    if not _is_time_series_ols(model):
+        return no_update, V.error_box("the size check is for least-squares time-series fits")
+    if focus not in model.terms or focus == INTERCEPT:
+        return no_update, V.error_box("choose a slope as the coefficient in focus")
+    if not isinstance(reps, int) or not 20 <= reps <= MAX_REPS or method not in ("var", "block"):
+        return no_update, V.error_box("choose the replications and the simulation")
+    token = secrets.token_urlsafe(16)
+    cache = _JOBS["cache"]
+    if cache is None:
+        return no_update, V.error_box("background jobs are not available in this server")
+    cache.set(f"size-input-{token}", pickle.dumps({
+        "fit": lean_copy(model), "focus": focus, "reps": reps, "method": method,
+        "level": float(level)}), expire=3600)
+    return token, html.Div(f"running {reps} replications...", className="lw-help")
+
+
+@callback(Output("size-status", "children", allow_duplicate=True),
+          Input("size-cancel", "n_clicks"), prevent_initial_call=True)
+def on_size_cancel(n):
+    if not n:
+        raise PreventUpdate
+    return V.ok_box("cancelled: the chart and table show the last completed run, if any")
+
+
+@callback(Output("size-graph", "figure"), Output("size-table", "rowData"),
+          Output("size-data", "data"), Output("size-status", "children", allow_duplicate=True),
+          Input("size-job", "data"), background=True,
+          running=[(Output("size-run", "disabled"), True, False),
+                   (Output("size-cancel", "disabled"), False, True)],
+          cancel=[Input("size-cancel", "n_clicks"), Input("fit-key", "data")],
+          progress=[Output("size-progress", "value"), Output("size-progress", "max"),
+                    Output("size-progress-text", "children")],
+          prevent_initial_call=True, message=3)
+def on_size_job(set_progress, token):
+    if not isinstance(token, str):
+        raise PreventUpdate
+    cache = _JOBS["cache"]
+    raw = cache.pop(f"size-input-{token}") if cache is not None else None
+    if raw is None:
+        return no_update, no_update, no_update, V.error_box("the size check's input expired; "
+                                                            "run it again")
+    job = pickle.loads(raw)         # written by this server for this job only
+    fit = job["fit"]
+
+    def progress(done, total):
+        set_progress((str(done), str(total), f"{done} of {total} replications"))
+    res = size_check(fit, reps=job["reps"], method=job["method"], seed=0, level=job["level"],
+                     focus=job["focus"], progress=progress)
+    fig = F.size_figure(res.frame, 1.0 - res.level, res.done, fit.nobs)
+    data = {"frame": res.frame.to_dict("records"), "notes": res.notes, "focus": res.focus,
+            "response": fit.response}
+    return fig, V.size_records(res.frame), data, html.Ul([html.Li(n) for n in res.notes])
+
+
+@callback(Output("download", "data", allow_duplicate=True),
+          Input({"type": "export-size", "fmt": ALL}, "n_clicks"), State("size-data", "data"),
+          prevent_initial_call=True)
+def on_size_export(clicks, data):
+    from ..engine.export import render
+    trig = ctx.triggered_id
+    if not isinstance(trig, dict) or not any(c for c in clicks or [] if c):
+        raise PreventUpdate
+    if not isinstance(data, dict) or not data.get("frame"):
+        return {"content": "export failed: run the size check first\n",
+                "filename": "lagwise_export_error.txt"}
+    fmt = trig.get("fmt")
+    frame = pd.DataFrame(data["frame"])[["estimator", "reference", "nominal", "rejection_rate",
+                                         "ci_low", "ci_high", "size_adjusted_critical_value",
+                                         "typical_critical_value", "replications"]]
+    text = render(frame, fmt, index=False,
+                  caption=f"{data.get('response')}: size of each nominal test of "
+                          f"{data.get('focus')} = 0 at this sample", notes=data.get("notes"))
+    ext = {"csv": "csv", "markdown": "md", "latex": "tex"}.get(fmt, "txt")
+    return {"content": text, "filename": f"lagwise_size_check.{ext}"}
