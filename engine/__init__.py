@@ -17,6 +17,9 @@ from .laws import EWCLaw, FixedB, Law, Normal, StudentT
 from .model import MomentModel, OLSFit, SeriesModel, fit_ols, INTERCEPT
 from .gmm import IVFit, fit_iv
 from .panel import FamaMacBethFit, PanelFit, fit_fama_macbeth, fit_panel
+from .predictive import HorizonSweep, IVXResult, PersistenceReport, horizon_sweep, ivx_test, \
+    persistence_report
+from .simulate import BootstrapResult, SizeCheck, bootstrap, size_check
 from .covariance import (FAMILIES, Estimator, Family, Param, TuningAxis, estimator, estimators,
                          register_family)
 from .bandwidth import RULES as BANDWIDTH_RULES, select_bandwidth, BandwidthChoice
@@ -33,6 +36,8 @@ __all__ = [
     "Law", "Normal", "StudentT", "EWCLaw", "FixedB",
     "MomentModel", "OLSFit", "SeriesModel", "fit_ols", "INTERCEPT", "IVFit", "fit_iv",
     "PanelFit", "FamaMacBethFit", "fit_panel", "fit_fama_macbeth",
+    "persistence_report", "PersistenceReport", "ivx_test", "IVXResult", "horizon_sweep",
+    "HorizonSweep", "bootstrap", "BootstrapResult", "size_check", "SizeCheck",
     "FAMILIES", "Estimator", "Family", "Param", "TuningAxis", "estimator", "estimators",
     "register_family",
     "BANDWIDTH_RULES", "select_bandwidth", "BandwidthChoice",
