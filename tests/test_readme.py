@@ -117,3 +117,23 @@ def test_readme_panel_demo_claims_hold(panel_comparison):
     for name in ["Clustered by time", "Clustered by entity and time"] + \
             [n for n in bm.index if n.startswith("Driscoll-Kraay")]:
         assert 2.1 <= bm.loc[name, "t_stat"] <= 2.5, name
+
+
+def test_readme_predictive_example_and_claims(monkeypatch):
+    text = (ROOT / "README.md").read_text()
+    blocks = re.findall(r"```python\n(.*?)```", text, flags=re.S)
+    block = [b for b in blocks if "persistence_report" in b][0]
+    monkeypatch.chdir(ROOT)
+    ns: dict = {"lagwise": lagwise}
+    exec(compile(block, "README.md", "exec"), ns)      # noqa: S102 - our own docs
+    rep, size = ns["rep"], ns["size"]
+    assert ns["fit"].nobs == 408
+    assert 0.97 < rep.rho < 0.99 and -0.5 < rep.corr_uv < -0.4 and 0.45 < rep.bias < 0.6
+    assert 0.05 < rep.ivx.p_value < 0.07 and 0.02 < rep.ivx_long.p_value < 0.04
+    rates = size.frame.set_index("estimator").rejection_rate
+    assert rates["Classical (iid)"] > 0.5 and rates["HC1"] > 0.5
+    andrews = rates[[n for n in rates.index if "Andrews (1991)" in n]]
+    assert ((andrews > 0.1) & (andrews < 0.25)).all()
+    assert rates["VAR-HAC, order by BIC"] < 0.12 and rates["Hodrick (1992)"] < 0.12
+    assert set(ns["boot"].table.columns) >= {"boot_ci_low", "boot_ci_high", "boot_p_value"}
+    assert ns["hs"].frame.h.max() == 36
