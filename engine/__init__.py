@@ -20,6 +20,7 @@ from .panel import FamaMacBethFit, PanelFit, fit_fama_macbeth, fit_panel
 from .predictive import HorizonSweep, IVXResult, PersistenceReport, horizon_sweep, ivx_test, \
     persistence_report
 from .simulate import BootstrapResult, SizeCheck, bootstrap, size_check
+from .ecosystem import RobustnessTable, fit, from_statsmodels, robustness_table
 from .covariance import (FAMILIES, Estimator, Family, Param, TuningAxis, estimator, estimators,
                          register_family)
 from .bandwidth import RULES as BANDWIDTH_RULES, select_bandwidth, BandwidthChoice
@@ -38,6 +39,7 @@ __all__ = [
     "PanelFit", "FamaMacBethFit", "fit_panel", "fit_fama_macbeth",
     "persistence_report", "PersistenceReport", "ivx_test", "IVXResult", "horizon_sweep",
     "HorizonSweep", "bootstrap", "BootstrapResult", "size_check", "SizeCheck",
+    "fit", "from_statsmodels", "robustness_table", "RobustnessTable",
     "FAMILIES", "Estimator", "Family", "Param", "TuningAxis", "estimator", "estimators",
     "register_family",
     "BANDWIDTH_RULES", "select_bandwidth", "BandwidthChoice",

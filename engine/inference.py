@@ -142,7 +142,55 @@ class Inference:
                         self.law.wald_text(m), labels)
 
     def to_frame(self) -> pd.DataFrame:
-        return self.table.copy()
+        """A tidy frame: one row per coefficient with the estimator, its tuning value, the
+        reference law and the level beside the numbers."""
+        out = self.table.reset_index()
+        lr = self.long_run
+        out["estimator"] = self.label
+        out["bandwidth"] = np.nan if lr.bandwidth is None else lr.bandwidth
+        out["lags"] = np.nan if lr.lags is None else lr.lags
+        out["reference"] = self.law.describe()
+        out["level"] = self.level
+        return out
+
+    def summary(self) -> str:
+        """The result in plain text, in our own layout: what was estimated and how, then one
+        line per coefficient, then the notes."""
+        pct = f"{self.level:.0%}"
+        parts = self.describe().split("; ")
+        lines = [f"{parts[0]}  (N = {self.nobs}, {self.k} coefficients)"]
+        lines += ["  " + part for part in parts[1:]]
+        if self.flags:
+            lines.append("  flags: " + ", ".join(sorted(self.flags)))
+        width = max(len(str(t)) for t in self.table.index) + 2
+        lines.append("")
+        lines.append(f"  {'term':<{width}}{'estimate':>12}{'std error':>12}{'t':>9}{'p':>9}"
+                     f"   {pct + ' interval':<28}")
+        for term, r in self.table.iterrows():
+            p = "n/a" if not np.isfinite(r.p_value) else (
+                "<0.001" if r.p_value < 0.001 else f"{r.p_value:.3f}")
+            ci = f"[{r.ci_low:.4g}, {r.ci_high:.4g}]" if np.isfinite(r.ci_low) else "n/a"
+            lines.append(f"  {str(term):<{width}}{r.estimate:>12.5g}{r.std_error:>12.4g}"
+                         f"{r.t_stat:>9.3f}{p:>9}   {ci:<28}")
+        if self.notes:
+            lines.append("")
+            lines += [f"  note: {n}" for n in self.notes]
+        return "\n".join(lines)
+
+    def __str__(self) -> str:
+        return self.summary()
+
+    def _repr_html_(self) -> str:
+        """Notebook display: the table and the conventions under it."""
+        import html as _html
+        head = _html.escape(self.label)
+        body = self.table.to_html(float_format=lambda v: f"{v:.4g}", border=0,
+                                  classes="lagwise-table")
+        notes = "".join(f"<li>{_html.escape(n)}</li>" for n in self.notes)
+        return (f"<div><strong>{head}</strong><p style='margin:4px 0'>"
+                f"{_html.escape(self.describe())}</p>{body}"
+                + (f"<ul style='color:#6b7480;font-size:90%'>{notes}</ul>" if notes else "")
+                + "</div>")
 
 
 def exact_fit(model) -> bool:
