@@ -85,6 +85,13 @@ def dataset_from_bytes(session: str, raw: bytes, name: str):
     return key, table
 
 
+def dataset_from_table(session: str, table) -> str:
+    """A Table made in Python (lagwise.show) as this session's data."""
+    key = key_for("data", "table", id(table))
+    STORE.put(session, key, table)
+    return key
+
+
 def param_values(family, values, ids) -> dict:
     """Parameter values from the generated controls (unknown or axis-set names ignored)."""
     kinds = {p.name: p for p in family.params}

@@ -39,16 +39,19 @@ def _request_host() -> str:
 
 
 def create_app(data_path: str | Path | None = None, settings: dict | None = None,
-               host: str = "127.0.0.1", allowed_hosts=()) -> Dash:
+               host: str = "127.0.0.1", allowed_hosts=(), table=None,
+               spec: dict | None = None) -> Dash:
     """The Dash app. data_path: a file opened for every new page (default: the demo data);
     settings: a validated settings record applied when the page loads; host: the address the
     server listens on (it decides which Host headers are answered and what the page says about
-    where files go); allowed_hosts: more names to answer to."""
-    path = Path(data_path) if data_path else demo_file()
-    raw = path.read_bytes()
-    name = path.name
-    spec = dict(DEMO_SPEC) if data_path is None else None
-    if settings and settings.get("response"):
+    where files go); allowed_hosts: more names to answer to. table and spec: a Table already
+    in memory and the model to open on (lagwise.show), instead of a file."""
+    if table is None:
+        path = Path(data_path) if data_path else demo_file()
+        raw = path.read_bytes()
+        name = path.name
+        spec = dict(DEMO_SPEC) if data_path is None else spec
+    if settings and settings.get("response") and spec is None:
         spec = {"response": settings["response"], "regressors": settings.get("regressors", []),
                 "horizon": settings.get("horizon")}
     from .studies import job_manager
@@ -68,9 +71,12 @@ def create_app(data_path: str | Path | None = None, settings: dict | None = None
             return build_layout("", {"message": str(exc)}, where, badge)
         key = None
         try:
-            key, _ = callbacks.dataset_from_bytes(session, raw, name)
+            if table is not None:
+                key = callbacks.dataset_from_table(session, table)
+            else:
+                key, _ = callbacks.dataset_from_bytes(session, raw, name)
         except Exception as exc:  # noqa: BLE001 - shown on the page, never a traceback
-            logging.getLogger("lagwise").warning("could not load %s: %s", name, exc)
+            logging.getLogger("lagwise").warning("could not load the data: %s", exc)
         return build_layout(session, {"dataset_key": key, "spec": spec, "settings": settings},
                             where, badge)
 

@@ -40,7 +40,7 @@ class WaldTest:
                 f"p = {self.p_value:.4g} under {self.law}")
 
 
-@dataclass
+@dataclass(repr=False)
 class Inference:
     """Coefficient table and covariance under one estimator and one reference law."""
 
@@ -179,6 +179,9 @@ class Inference:
 
     def __str__(self) -> str:
         return self.summary()
+
+    def __repr__(self) -> str:
+        return f"<Inference: {self.label}; {self.law.label} reference; N = {self.nobs}>"
 
     def _repr_html_(self) -> str:
         """Notebook display: the table and the conventions under it."""

@@ -440,3 +440,28 @@ def test_persistence_card_and_size_check_with_progress_and_cancel(page: Page, li
     expect(cells(page, "size-table", "rejection_rate").first).to_have_text(
         f"{ref.rejection_rate.iloc[0]:.3f}")                 # the completed run stays
     assert not [e for e in errors if "Error" in e], errors
+
+
+def test_show_opens_the_dashboard_on_a_statsmodels_fit(page: Page):
+    """A regression run in statsmodels goes through lagwise.from_statsmodels and lagwise.show
+    into the dashboard, which shows the fit's numbers (no upload)."""
+    import statsmodels.formula.api as smf
+    df = lagwise.load_table(DEMO).frame.reset_index()
+    res = smf.ols("exret_12m ~ rate_capacity + credit_spread", df).fit()
+    fit = lagwise.from_statsmodels(res)
+    shown = lagwise.show(fit, mode="background")
+    try:
+        errors = []
+        page.on("console", lambda m: errors.append(m.text) if m.type == "error" else None)
+        page.goto(shown.url)
+        expect(cells(page, "coef-table", "term")).to_have_text(
+            ["intercept", "rate_capacity", "credit_spread"], timeout=30_000)
+        expected = fit.infer(lagwise.estimator("kernel", bandwidth="andrews"))
+        expect(se_cell(page, 1)).to_have_text(fmt(expected.table.std_error.iloc[1]),
+                                              timeout=20_000)
+        expect(cells(page, "coef-table", "estimate").nth(1)).to_have_text(
+            fmt(res.params["rate_capacity"]))
+        expect(page.locator("#load-report")).to_contain_text("a fit made in Python")
+        assert not [e for e in errors if "Error" in e], errors
+    finally:
+        shown.stop()
