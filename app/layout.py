@@ -403,7 +403,12 @@ def main_area():
              export=export_menu("diag-table", TABLE_FORMATS, copy=True)),
         size_card(),
         html.Div([html.Button("download an HTML report of this view", id="export-report",
-                              n_clicks=0, className="lw-btn")], className="lw-report-row"),
+                              n_clicks=0, className="lw-btn"),
+                  html.Button("download a Python script of this view", id="export-script",
+                              n_clicks=0, className="lw-btn-quiet",
+                              title="a short script using the lagwise API that reproduces "
+                                    "the coefficient table")],
+                 className="lw-report-row"),
     ], className="lw-main")
 
 

@@ -465,3 +465,41 @@ def test_show_opens_the_dashboard_on_a_statsmodels_fit(page: Page):
         assert not [e for e in errors if "Error" in e], errors
     finally:
         shown.stop()
+
+
+def test_exported_script_reproduces_the_screen(page: Page, live_server, tmp_path):
+    """Choose a kernel, a value set by hand and a reference law, download the view as a
+    script, run it in a fresh Python process: its table equals the screen's."""
+    import subprocess
+    import sys
+    open_app(page, live_server)
+    page.locator("""[id*='"name":"kernel"']""").first.click()       # the kernel picker
+    page.get_by_role("option", name="Parzen", exact=True).click()
+    page.keyboard.press("Escape")
+    thumb = page.locator("#tune-slider [role=slider]")
+    thumb.focus()
+    page.keyboard.press("Home")
+    for _ in range(7):
+        page.keyboard.press("ArrowRight")
+    expect(thumb).to_have_attribute("aria-valuenow", "8", timeout=20_000)
+    choose(page, "reference", "fixed-b (Kiefer-Vogelsang)")
+    expect(page.locator("#coef-caption")).to_contain_text("fixed-b", timeout=20_000)
+    with page.expect_download(timeout=30_000) as info:
+        page.locator("#export-script").click()
+    script = tmp_path / "view.py"
+    info.value.save_as(script)
+    text = script.read_text()
+    assert "lagwise.demo_file('freight_index.csv')" in text and "parzen" in text
+    out = subprocess.run([sys.executable, "-c",
+                          "import runpy, sys; ns = runpy.run_path(sys.argv[1]); "
+                          "print('@@' + ns['res'].table.to_json())", str(script)],
+                         capture_output=True, text=True, timeout=120)
+    assert out.returncode == 0, out.stderr[-2000:]
+    assert "Parzen, b = 8" in out.stdout                     # the summary it prints
+    import pandas as pd
+    from io import StringIO
+    table = pd.read_json(StringIO(out.stdout.split("@@", 1)[1]))
+    for i, term in enumerate(table.index):
+        expect(se_cell(page, i)).to_have_text(fmt(table.loc[term, "std_error"]))
+        expect(cells(page, "coef-table", "p_value").nth(i)).to_have_text(
+            lagwise.app.views.fmt_p(table.loc[term, "p_value"]))
