@@ -324,6 +324,37 @@ def predictive_cards():
     ], id="predictive-card", className="lw-results", style={"display": "none"})
 
 
+def memo_card():
+    """A robustness table for a memo or paper: specifications by estimators."""
+    buttons = [html.Button(label, id={"type": "export-memo", "fmt": fmt}, n_clicks=0,
+                           className="lw-export-btn")
+               for fmt, label in (("latex", "LATEX"), ("markdown", "MD"), ("html", "HTML"),
+                                  ("xlsx", "XLSX"))]
+    return card("Memo table", [
+        html.P("Add specifications as you go (each is the model on screen when you add it), "
+               "choose estimators and the statistic shown beneath each estimate; the notes "
+               "state every convention.", className="lw-help"),
+        html.Div([html.Button("add this specification", id="memo-add", n_clicks=0,
+                              className="lw-btn"),
+                  html.Button("clear", id="memo-clear", n_clicks=0,
+                              className="lw-btn-quiet")], className="lw-row"),
+        html.Div(id="memo-message", className="lw-message"),
+        html.Div([
+            html.Div([html.Label("estimators (columns)", className="lw-label"),
+                      dcc.Dropdown(id="memo-ests", multi=True)], className="lw-field"),
+            html.Div([html.Label("beneath each estimate", className="lw-label"),
+                      dcc.RadioItems(id="memo-show", options=[
+                          {"label": " standard error", "value": "se"},
+                          {"label": " t", "value": "t"}, {"label": " p", "value": "p"},
+                          {"label": " interval", "value": "ci"}],
+                          value="se", inline=True, className="lw-radio")],
+                     className="lw-field")], className="lw-grid"),
+        html.Div(id="memo-preview", className="lw-memo"),
+        dcc.Store(id="memo-specs", data=[])],
+        export=html.Div([html.Span("export", className="lw-export-label")] + buttons,
+                        className="lw-export"), card_id="memo-card")
+
+
 def size_card():
     return card("Size at this sample", [
         html.P(HELP["size"], className="lw-help"),
@@ -402,6 +433,7 @@ def main_area():
         card("Diagnostic tests", [grid("diag-table", views.DIAG_COLUMNS)],
              export=export_menu("diag-table", TABLE_FORMATS, copy=True)),
         size_card(),
+        memo_card(),
         html.Div([html.Button("download an HTML report of this view", id="export-report",
                               n_clicks=0, className="lw-btn"),
                   html.Button("download a Python script of this view", id="export-script",

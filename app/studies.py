@@ -210,3 +210,117 @@ def on_size_export(clicks, data):
                           f"{data.get('focus')} = 0 at this sample", notes=data.get("notes"))
     ext = {"csv": "csv", "markdown": "md", "latex": "tex"}.get(fmt, "txt")
     return {"content": text, "filename": f"lagwise_size_check.{ext}"}
+
+
+# --------------------------------------------------------------------------- memo table
+
+def _estimator_options(model) -> list[dict]:
+    import json
+    from ..engine.compare import family_presets
+    seen, out = set(), []
+    for item in family_presets(model):
+        est = item[0] if isinstance(item, tuple) else item
+        key = json.dumps(est.settings(), sort_keys=True)
+        if key in seen:
+            continue
+        seen.add(key)
+        out.append({"label": est.label, "value": key})
+    return out
+
+
+@callback(Output("memo-ests", "options"), Output("memo-ests", "value"),
+          Input("fit-key", "data"), State("memo-ests", "value"), State("session", "data"),
+          message=None)
+def on_memo_options(fkey, chosen, session):
+    model = stored(session, fkey)
+    if model is None:
+        raise PreventUpdate
+    options = _estimator_options(model)
+    values = [o["value"] for o in options]
+    chosen = [c for c in (chosen or []) if c in values]
+    if not chosen:
+        chosen = values[:1] + [v for v in values if '"kernel"' in v][:1]
+    return options, chosen
+
+
+@callback(Output("memo-specs", "data"), Output("memo-message", "children"),
+          Input("memo-add", "n_clicks"), Input("memo-clear", "n_clicks"),
+          State("memo-specs", "data"), State("fit-key", "data"), State("session", "data"),
+          prevent_initial_call=True, message=1)
+def on_memo_specs(_add, _clear, specs, fkey, session):
+    specs = [s for s in (specs or []) if isinstance(s, dict)]
+    if ctx.triggered_id == "memo-clear":
+        return [], ""
+    model = stored(session, fkey)
+    if model is None:
+        return no_update, V.error_box("choose a model first")
+    if any(s.get("key") == fkey for s in specs):
+        return no_update, V.ok_box("this specification is already in the table")
+    if len(specs) >= 8:
+        return no_update, V.error_box("the memo table holds at most 8 specifications")
+    regs = ", ".join(t for t in model.terms if t != INTERCEPT)
+    label = f"{model.response} on {regs}" + (f" (h = {model.horizon})" if model.horizon else "")
+    return specs + [{"key": fkey, "label": label}], ""
+
+
+def memo_table(session, specs, est_values, show, level):
+    import json
+    fits = {}
+    for i, s in enumerate(specs, start=1):
+        model = stored(session, s.get("key"))
+        if model is None:
+            raise engine.SpecificationError(f"specification {i} ({s.get('label')}) is no longer "
+                                            "in this session's memory: add it again")
+        fits[f"[{i}] {s.get('label')}"] = model
+    ests = {}
+    for v in est_values or []:
+        rec = json.loads(v)
+        est = engine.estimator(rec["estimator"], **rec["params"])
+        ests[est.label] = est
+    if not fits or not ests:
+        raise engine.SpecificationError("add a specification and choose at least one estimator")
+    return engine.robustness_table(fits, ests, show=show, level=level)
+
+
+@callback(Output("memo-preview", "children"), Input("memo-specs", "data"),
+          Input("memo-ests", "value"), Input("memo-show", "value"), Input("level", "value"),
+          State("session", "data"), message=0)
+def on_memo_preview(specs, est_values, show, level, session):
+    if not specs:
+        return html.P("Add the current specification, then others, and choose estimators.",
+                      className="lw-help")
+    try:
+        tab = memo_table(session, specs, est_values, show, level)
+    except engine.LagwiseError as exc:
+        return V.error_box(str(exc))
+    grid = tab.grid()
+    head = [html.Tr([html.Th(c) for c in row]) for row in grid[:3]]
+    body = [html.Tr([html.Td(c) for c in row]) for row in grid[3:]]
+    foot = [html.Li(n) for n in tab.foot()]
+    return [html.Table([html.Thead(head), html.Tbody(body)], className="lw-memo-table"),
+            html.Ul(foot, className="lw-notes")]
+
+
+@callback(Output("download", "data", allow_duplicate=True),
+          Input({"type": "export-memo", "fmt": ALL}, "n_clicks"), State("memo-specs", "data"),
+          State("memo-ests", "value"), State("memo-show", "value"), State("level", "value"),
+          State("session", "data"), prevent_initial_call=True)
+def on_memo_export(clicks, specs, est_values, show, level, session):
+    import base64
+    import io
+    trig = ctx.triggered_id
+    if not isinstance(trig, dict) or not any(c for c in clicks or [] if c):
+        raise PreventUpdate
+    try:
+        tab = memo_table(session, specs or [], est_values, show, level)
+    except engine.LagwiseError as exc:
+        return {"content": f"export failed: {exc}\n", "filename": "lagwise_export_error.txt"}
+    fmt = trig.get("fmt")
+    if fmt == "xlsx":
+        buf = io.BytesIO()
+        tab.to_excel(buf)
+        return {"content": base64.b64encode(buf.getvalue()).decode(), "base64": True,
+                "filename": "lagwise_memo_table.xlsx"}
+    text = {"latex": tab.to_latex, "markdown": tab.to_markdown, "html": tab.to_html}[fmt]()
+    ext = {"latex": "tex", "markdown": "md", "html": "html"}[fmt]
+    return {"content": text, "filename": f"lagwise_memo_table.{ext}"}

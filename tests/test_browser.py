@@ -503,3 +503,34 @@ def test_exported_script_reproduces_the_screen(page: Page, live_server, tmp_path
         expect(se_cell(page, i)).to_have_text(fmt(table.loc[term, "std_error"]))
         expect(cells(page, "coef-table", "p_value").nth(i)).to_have_text(
             lagwise.app.views.fmt_p(table.loc[term, "p_value"]))
+
+
+def test_memo_table_builder_previews_and_exports(page: Page, live_server, tmp_path):
+    from openpyxl import load_workbook
+    open_app(page, live_server)
+    page.locator("#memo-add").click()
+    expect(page.locator("#memo-preview table")).to_be_visible(timeout=20_000)
+    choose(page, "regressors", "credit_spread")                 # off: a second specification
+    expect(cells(page, "coef-table", "term")).to_have_text(["intercept", "rate_capacity"],
+                                                           timeout=20_000)
+    page.locator("#memo-add").click()
+    expect(page.locator("#memo-preview")).to_contain_text("[2] exret_12m on rate_capacity",
+                                                          timeout=20_000)
+    preview = page.locator("#memo-preview table")
+    expect(preview.locator("thead tr").nth(2).locator("th")).to_have_count(5)   # 2 x 2 + label
+    with page.expect_download(timeout=30_000) as info:
+        page.locator("""[id*='"fmt":"xlsx"']""").click()
+    path = tmp_path / "memo.xlsx"
+    info.value.save_as(path)
+    numbers = list(load_workbook(path)["numbers"].values)
+    head, rows = numbers[0], numbers[1:]
+    frame = {(r[head.index("column")], r[head.index("term")]): r for r in rows}
+    t = lagwise.load_table(DEMO)
+    second = lagwise.fit_ols(t, "exret_12m", ["rate_capacity"], horizon=12)
+    hc1 = second.infer("classical").table.loc["rate_capacity", "std_error"]   # first column
+    assert frame[("(3)", "rate_capacity")][head.index("std_error")] == pytest.approx(hc1,
+                                                                                    rel=1e-10)
+    with page.expect_download(timeout=30_000) as info:
+        page.locator("""[id*='"fmt":"latex"'][id*='export-memo']""").click()
+    tex = Path(info.value.path()).read_text()
+    assert "\\begin{tabular}{lcccc}" in tex and "rate\\_capacity" in tex
