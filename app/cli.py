@@ -64,6 +64,12 @@ def render_text(fit, comp, level: float, extra_lines=()) -> str:
     return "\n".join(lines) + "\n"
 
 
+def progress_bar(total, desc):
+    """A tqdm bar on stderr, silent when stderr is not a terminal."""
+    from tqdm import tqdm
+    return tqdm(total=total, desc=desc, unit="", leave=False, disable=None, file=sys.stderr)
+
+
 def _bandwidth_arg(text):
     try:
         return float(text)
@@ -81,10 +87,15 @@ def weight_arg(text):
     return engine.estimator(text)
 
 
-def load_and_fit(args):
+def load_and_fit(args, bar=None):
     from .. import engine
     from ..engine.model import as_list
+    if bar is not None:
+        bar.set_description("reading the file")
     table = engine.load_table(args.file)
+    if bar is not None:
+        bar.update(1)
+        bar.set_description("fitting")
     for spec in args.transform or []:
         kind, _, rest = spec.partition(":")
         col, _, p = rest.partition(":")
@@ -97,7 +108,9 @@ def load_and_fit(args):
                              intercept=not args.no_intercept, method=args.method,
                              weight=weight_arg(args.weight), horizon=args.horizon)
     return engine.fit_ols(table, args.response, regs, intercept=not args.no_intercept,
-                          horizon=args.horizon)
+                          horizon=args.horizon,
+                          one_period=getattr(args, "one_period", None) if args.horizon
+                          else None)
 
 
 def cmd_table(args) -> int:
@@ -106,13 +119,18 @@ def cmd_table(args) -> int:
     from ..engine.export import render
     from ..engine.sweep import flip_summary
 
-    fit = load_and_fit(args)
+    bar = progress_bar(4, "reading the file")
+    fit = load_and_fit(args, bar)
+    bar.update(1)
+    bar.set_description("comparing estimators")
     bandwidth = args.bandwidth
     if args.lags is not None:
         bandwidth = args.lags + 1.0
     comp = compare(fit, level=args.level, reference=args.reference, kernel=args.kernel,
                    bandwidth=bandwidth)
     extra = flip_summary(fit, args.kernel or "bartlett", level=args.level)
+    bar.update(1)
+    bar.set_description("residual diagnostics")
     if isinstance(fit, engine.IVFit):
         extra = list(extra) + iv_lines(fit, weight_arg(args.weight), args.level)
     else:
@@ -120,6 +138,9 @@ def cmd_table(args) -> int:
             extra = list(extra) + ["", "Residual diagnostics"] + engine.diagnose(fit).lines()
         except engine.LagwiseError as exc:
             extra = list(extra) + ["", f"Residual diagnostics not available: {exc}"]
+        extra = list(extra) + predictive_lines(fit, args)
+    bar.update(1)
+    bar.close()
     if args.format == "text":
         out = render_text(fit, comp, args.level, extra)
     else:
@@ -133,6 +154,57 @@ def cmd_table(args) -> int:
     else:
         sys.stdout.write(out)
     return 0
+
+
+def predictive_lines(fit, args) -> list[str]:
+    """Persistence, horizons, bootstrap and the size check, as asked for on the command line."""
+    from .. import engine
+    from ..engine.model import INTERCEPT
+    lines = []
+    slopes = [t for t in fit.terms if t != INTERCEPT]
+    focus = args.focus or (slopes[0] if slopes else None)
+    if fit.horizon and fit.horizon > 1 or args.persistence:
+        try:
+            rep = engine.persistence_report(fit, args.focus, level=args.level)
+            lines += ["", f"Persistence of {rep.predictor}"] + [f"  {s}" for s in rep.reading]
+        except engine.LagwiseError as exc:
+            lines += ["", f"Persistence report not available: {exc}"]
+    if args.horizons:
+        source = fit.one_period.name if getattr(fit, "one_period", None) is not None else None
+        if source is None:
+            lines += ["", "Horizons: name the one-period series with --one-period"]
+        else:
+            bar = progress_bar(args.horizons, "horizons")
+            table = fit.table
+            hs = engine.horizon_sweep(table, source, slopes, horizons=range(1, args.horizons + 1),
+                                      level=args.level,
+                                      progress=lambda d, n: (bar.update(d - bar.n)))
+            bar.close()
+            part = hs.term(focus).pivot(index="h", columns="estimator", values="t_stat")
+            lines += ["", f"t statistic of {focus} by horizon h (slope on the sum of the next h "
+                          f"values of {source})", part.round(2).to_string()]
+    if args.bootstrap:
+        res = engine.bootstrap(fit, weight_arg(args.weight) if args.weight != "hc0" else None,
+                               method=args.bootstrap, reps=999, seed=0, level=args.level)
+        lines += ["", f"Bootstrap ({res.method}, {res.reps} replicates): {res.notes[0]}"]
+        for term, r in res.table.iterrows():
+            lines.append(f"  {term}: analytic [{r.ci_low:.4g}, {r.ci_high:.4g}] p "
+                         f"{_p(r.p_value)}; percentile-t [{r.boot_ci_low:.4g}, "
+                         f"{r.boot_ci_high:.4g}] p {_p(r.boot_p_value)}")
+    if args.size_check:
+        bar = progress_bar(args.size_check, "size check")
+        sc = engine.size_check(fit, reps=args.size_check, method=args.size_method, seed=0,
+                               level=args.level, focus=focus,
+                               progress=lambda d, n: bar.update(d - bar.n))
+        bar.close()
+        lines += ["", f"Size of each nominal {1 - args.level:.0%} test of {focus} = 0 at this "
+                      f"sample ({sc.done} simulated samples)"]
+        for _, r in sc.frame.iterrows():
+            lines.append(f"  {r.estimator:<52} rejects {r.rejection_rate:.3f} "
+                         f"[{r.ci_low:.3f}, {r.ci_high:.3f}]; size-adjusted |t| "
+                         f"{r.size_adjusted_critical_value:.2f}")
+        lines += [f"  note: {n}" for n in sc.notes]
+    return lines
 
 
 def iv_lines(fit, est, level) -> list[str]:
@@ -202,8 +274,19 @@ def cmd_panel(args) -> int:
     else:
         data = engine.load_table(args.source)
     try:
+        kw = {}
+        if client is not None:
+            bar = progress_bar(4, "passes over the data")
+
+            def passes(done, total, what):
+                bar.set_description(what)
+                bar.update(done - bar.n)
+            kw["progress"] = passes
         fit = engine.fit_panel(data, args.response, regs, entity=args.entity, time=args.time,
-                               effects=effects, intercept=not args.no_intercept, client=client)
+                               effects=effects, intercept=not args.no_intercept, client=client,
+                               **kw)
+        if client is not None:
+            bar.close()
         comp = fit.compare(level=args.level, reference=args.reference,
                            fama_macbeth=not args.no_fama_macbeth)
         extra = panel_flip_lines(fit, level=args.level)
@@ -255,6 +338,20 @@ def build_parser() -> argparse.ArgumentParser:
                         "repeatable")
     t.add_argument("--horizon", type=int, default=None,
                    help="periods h summed by an overlapping response (errors MA(h-1))")
+    t.add_argument("--one-period", default=None, metavar="COLUMN",
+                   help="the column whose sum over the next h periods is the response "
+                        "(Hodrick standard errors, horizons)")
+    t.add_argument("--focus", default=None, help="the coefficient for the studies below")
+    t.add_argument("--persistence", action="store_true",
+                   help="report the predictor's persistence, bias and IVX (always with --horizon)")
+    t.add_argument("--horizons", type=int, default=0, metavar="H",
+                   help="fit every horizon 1..H from the one-period series")
+    t.add_argument("--bootstrap", default=None,
+                   choices=["moving_block", "stationary", "circular", "wild"],
+                   help="percentile-t bootstrap intervals beside the analytic ones")
+    t.add_argument("--size-check", type=int, default=0, metavar="N",
+                   help="simulate N samples under beta = 0 and report each test's actual size")
+    t.add_argument("--size-method", default="var", choices=["var", "block"])
     t.add_argument("--kernel", default=None, help="restrict kernel rows to one kernel")
     t.add_argument("--bandwidth", type=_bandwidth_arg, default=None,
                    help="real bandwidth b or a rule (andrews, newey-west, rule-of-thumb, "

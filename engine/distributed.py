@@ -233,12 +233,16 @@ def _map(ddf, func, spec):
 
 # --------------------------------------------------------------------------- shared preparation
 
-def _prepare(data, response, regs, entity, time, effects, sample, client, fama_macbeth):
+def _prepare(data, response, regs, entity, time, effects, sample, client, fama_macbeth,
+             progress=None):
+    step = progress or (lambda done, total, what: None)
     cols = [*regs, response]
     ddf = _frame(data, [entity, time, *cols])
     from dask import delayed
+    step(0, 4, "reading the labels")
     parts = [delayed(_labels, pure=True)(p, entity, time) for p in ddf.to_delayed()]
     (labels,) = _compute(client, _tree(parts, _merge_labels))
+    step(1, 4, "counting rows per entity and period")
     ent_raw = pd.Index(labels["entity"])
     tim_raw = pd.Index(labels["time"])
     ent_vals = _id_values(pd.Series(ent_raw.to_numpy()), entity, "entity")
@@ -543,12 +547,16 @@ def _fm_from_sums(sums, periods, terms, regs, response, mean, intercept, sample)
 
 
 def fit_panel_distributed(data, response, regs, entity, time, effects=(), intercept=True,
-                          sample=None, client=None, fama_macbeth=True) -> PanelSummaryFit:
-    """`fit_panel` on a Dask DataFrame or a Parquet folder (see the module docstring)."""
+                          sample=None, client=None, fama_macbeth=True,
+                          progress=None) -> PanelSummaryFit:
+    """`fit_panel` on a Dask DataFrame or a Parquet folder (see the module docstring).
+    progress(done, total, what) is called before each pass over the data."""
+    step = progress or (lambda done, total, what: None)
     ddf, spec, counts, cells, entities, periods, info = _prepare(
-        data, response, regs, entity, time, effects, sample, client, fama_macbeth)
+        data, response, regs, entity, time, effects, sample, client, fama_macbeth, progress)
     k_s = len(regs)
     spec["fama_macbeth"] = fama_macbeth
+    step(2, 4, "cross products")
     (cross,) = _compute(client, _map(ddf, _pass_cross, spec))
     zz = cross["zz"]
     before, after = np.sqrt(cross["centred_ss"]), np.sqrt(np.diag(zz))
@@ -587,7 +595,9 @@ def fit_panel_distributed(data, response, regs, entity, time, effects=(), interc
         raise SpecificationError(f"{n} rows are too few for {k} coefficients and {absorbed} "
                                  "effect parameters")
     spec.update(slopes=slopes, n_slopes=k_s, intercept=intercept, fama_macbeth=False)
+    step(3, 4, "sums of the moment contributions")
     (scores,) = _compute(client, _map(ddf, _pass_scores, spec))
+    step(4, 4, "done")
     beta = np.r_[mean[k_s] - mean[:k_s] @ slopes, slopes] if intercept else slopes
     panel = _Structure(cells, entity=entity, time=time, entities=entities, periods=periods,
                        effects=effects, absorbed=absorbed, components=1, iterations=0)
@@ -615,11 +625,11 @@ def fit_panel_distributed(data, response, regs, entity, time, effects=(), interc
 
 
 def fit_fama_macbeth_distributed(data, response, regs, entity, time, intercept=True,
-                                 sample=None, client=None) -> FamaMacBethFit:
+                                 sample=None, client=None, progress=None) -> FamaMacBethFit:
     """`fit_fama_macbeth` on a Dask DataFrame or a Parquet folder: one pass for the labels, one
     for counts and means, one for the per-period cross products."""
     ddf, spec, counts, cells, entities, periods, info = _prepare(
-        data, response, regs, entity, time, (), sample, client, True)
+        data, response, regs, entity, time, (), sample, client, True, progress)
     spec["fama_macbeth"] = True
     (cross,) = _compute(client, _map(ddf, _pass_cross, spec))
     info.first, info.last = index_label(periods[0]), index_label(periods[-1])

@@ -320,7 +320,8 @@ def default_horizon_estimators():
 
 
 def horizon_sweep(data, response: str, predictors, horizons=range(1, 37), estimators=None,
-                  intercept: bool = True, sample=None, level: float = 0.95) -> HorizonSweep:
+                  intercept: bool = True, sample=None, level: float = 0.95,
+                  progress=None) -> HorizonSweep:
     """The predictive regression at every horizon h: the sum of the next h values of the
     one-period `response` on `predictors`, with each estimator (default: Bartlett with L = h,
     Hodrick 1992, EWC). estimators: a list of (label, function h -> Estimator) or of
@@ -341,7 +342,9 @@ def horizon_sweep(data, response: str, predictors, horizons=range(1, 37), estima
     n = len(r)
     rows = []
     notes = []
-    for h in hs:
+    for step, h in enumerate(hs, start=1):
+        if progress:
+            progress(step - 1, len(hs))
         if h >= n - 2:
             notes.append(f"h = {h} is too long for {n} rows; stopped")
             break
@@ -369,6 +372,8 @@ def horizon_sweep(data, response: str, predictors, horizons=range(1, 37), estima
             for term, row in res.table.iterrows():
                 rows.append({"h": h, "estimator": label, "term": term, **row.to_dict(),
                              "note": ""})
+    if progress:
+        progress(len(hs), len(hs))
     frame = pd.DataFrame(rows)
     return HorizonSweep(frame=frame, horizons=hs, estimators=[lab for lab, _ in ests],
                         notes=notes)

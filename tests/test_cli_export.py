@@ -154,3 +154,32 @@ def test_bad_settings_get_one_clear_message(record, message):
         load_settings(json.dumps({"lagwise_settings": 2, **record}))
     with pytest.raises(lagwise.DataError, match="at most"):
         load_settings(b"{" + b" " * 200_000 + b"}")
+
+
+def test_cli_studies_and_progress_bars_silent_without_a_terminal(tmp_path, monkeypatch):
+    """--horizons, --bootstrap and --size-check run from the command line; their progress bars
+    (tqdm) draw on a terminal and stay silent when stderr is not one."""
+    import io
+    import subprocess
+    import sys
+    from lagwise.app import cli
+    out = subprocess.run([sys.executable, "-m", "lagwise.app.cli", "table", DEMO, "--response",
+                          "exret_12m", "--regressors", "rate_capacity", "--horizon", "12",
+                          "--one-period", "exret_1m", "--horizons", "6", "--size-check", "40",
+                          "--bootstrap", "wild"], capture_output=True, text=True, timeout=300)
+    assert out.returncode == 0, out.stderr[-2000:]
+    assert "t statistic of rate_capacity by horizon h" in out.stdout
+    assert "Size of each nominal 5% test of rate_capacity = 0" in out.stdout
+    assert "percentile-t" in out.stdout and "IVX" in out.stdout
+    assert "size check" not in out.stderr and "%|" not in out.stderr      # no bar: not a tty
+
+    class Terminal(io.StringIO):
+        def isatty(self):
+            return True
+    for tty, drawn in ((True, True), (False, False)):
+        buf = Terminal() if tty else io.StringIO()
+        monkeypatch.setattr(sys, "stderr", buf)
+        bar = cli.progress_bar(10, "size check")
+        bar.update(5)
+        bar.close()
+        assert ("size check" in buf.getvalue()) is drawn
