@@ -18,7 +18,8 @@ def test_readme_engine_example_runs(monkeypatch):
     assert blocks, "README has no python example"
     monkeypatch.chdir(ROOT)
     namespace: dict = {}
-    exec(compile(blocks[0], "README.md", "exec"), namespace)   # noqa: S102 - our own docs
+    engine_block = [b for b in blocks if "fit.sweep(kernels" in b][0]
+    exec(compile(engine_block, "README.md", "exec"), namespace)   # noqa: S102 - our own docs
     res, sw, report = namespace["res"], namespace["sw"], namespace["report"]
     assert list(res.table.columns) == ["estimate", "std_error", "t_stat", "p_value", "ci_low",
                                        "ci_high"]
@@ -137,3 +138,15 @@ def test_readme_predictive_example_and_claims(monkeypatch):
     assert rates["VAR-HAC, order by BIC"] < 0.12 and rates["Hodrick (1992)"] < 0.12
     assert set(ns["boot"].table.columns) >= {"boot_ci_low", "boot_ci_high", "boot_p_value"}
     assert ns["hs"].frame.h.max() == 36
+
+
+def test_readme_notebook_statsmodels_paper_example_runs(monkeypatch, tmp_path):
+    text = (ROOT / "README.md").read_text()
+    blocks = re.findall(r"```python\n(.*?)```", text, flags=re.S)
+    block = [b for b in blocks if "from_statsmodels" in b][0]
+    monkeypatch.chdir(tmp_path)
+    ns: dict = {}
+    exec(compile(block, "README.md", "exec"), ns)      # noqa: S102 - our own docs
+    assert (tmp_path / "robustness.xlsx").stat().st_size > 1000
+    assert "\\begin{tabular}" in ns["latex"]
+    assert ns["tab"].columns == ["(1)", "(2)", "(3)", "(4)"]
