@@ -46,12 +46,13 @@ def create_app(data_path: str | Path | None = None, settings: dict | None = None
     server listens on (it decides which Host headers are answered and what the page says about
     where files go); allowed_hosts: more names to answer to. table and spec: a Table already
     in memory and the model to open on (lagwise.show), instead of a file."""
+    given_spec = spec is not None
     if table is None:
         path = Path(data_path) if data_path else demo_file()
         raw = path.read_bytes()
         name = path.name
-        spec = dict(DEMO_SPEC) if data_path is None else spec
-    if settings and settings.get("response") and spec is None:
+        spec = dict(DEMO_SPEC) if data_path is None and not given_spec else spec
+    if settings and settings.get("response") and not given_spec:
         spec = {"response": settings["response"], "regressors": settings.get("regressors", []),
                 "horizon": settings.get("horizon")}
     from .studies import job_manager

@@ -152,6 +152,21 @@ def on_size_request(_n, fkey, focus, reps, method, level, session):
     return token, html.Div(f"running {reps} replications...", className="lw-help")
 
 
+@callback(Output("size-card", "style"), Output("size-graph", "figure", allow_duplicate=True),
+          Output("size-table", "rowData", allow_duplicate=True),
+          Output("size-status", "children", allow_duplicate=True),
+          Output("size-progress", "value", allow_duplicate=True),
+          Output("size-progress-text", "children", allow_duplicate=True),
+          Output("size-data", "data", allow_duplicate=True),
+          Input("fit-key", "data"), State("session", "data"), prevent_initial_call=True)
+def on_size_reset(fkey, session):
+    """A new model clears the last size check (its numbers belonged to the old one); the card
+    is shown for least-squares time-series fits only."""
+    model = stored(session, fkey)
+    style = {} if _is_time_series_ols(model) else {"display": "none"}
+    return style, F.empty_figure("run the size check for this model"), [], "", "0", "", None
+
+
 @callback(Output("size-status", "children", allow_duplicate=True),
           Input("size-cancel", "n_clicks"), prevent_initial_call=True)
 def on_size_cancel(n):
