@@ -116,7 +116,6 @@ def load_and_fit(args, bar=None):
 def cmd_table(args) -> int:
     from .. import engine
     from ..engine.compare import compare
-    from ..engine.export import render
     from ..engine.sweep import flip_summary
 
     bar = progress_bar(4, "reading the file")
@@ -141,13 +140,18 @@ def cmd_table(args) -> int:
         extra = list(extra) + predictive_lines(fit, args)
     bar.update(1)
     bar.close()
+    return write_output(args, fit, comp, extra, "standard errors across estimators")
+
+
+def write_output(args, fit, comp, extra, what: str) -> int:
+    """The comparison as text (our layout) or a table format, to a file or stdout."""
+    from ..engine.export import render
     if args.format == "text":
         out = render_text(fit, comp, args.level, extra)
     else:
         cols = ["term", "estimator", "estimate", "std_error", "t_stat", "p_value", "ci_low",
                 "ci_high", "bandwidth", "lags", "reference", "rejects", "note"]
-        out = render(comp[cols], args.format, index=False,
-                     caption=f"{fit.response}: standard errors across estimators")
+        out = render(comp[cols], args.format, index=False, caption=f"{fit.response}: {what}")
     if args.output:
         Path(args.output).write_text(out)
         print(f"wrote {args.output}", file=sys.stderr)
@@ -251,7 +255,6 @@ def panel_flip_lines(fit, kernel: str = "bartlett", level: float = 0.95) -> list
 def cmd_panel(args) -> int:
     from .. import engine
     from ..engine.distributed import is_distributed
-    from ..engine.export import render
     from ..engine.model import as_list
 
     effects = {"none": (), "entity": ("entity",), "time": ("time",),
@@ -295,19 +298,7 @@ def cmd_panel(args) -> int:
             client.close()
         if cluster is not None:
             cluster.close()
-    if args.format == "text":
-        out = render_text(fit, comp, args.level, extra)
-    else:
-        cols = ["term", "estimator", "estimate", "std_error", "t_stat", "p_value", "ci_low",
-                "ci_high", "bandwidth", "lags", "reference", "rejects", "note"]
-        out = render(comp[cols], args.format, index=False,
-                     caption=f"{fit.response}: standard errors across panel estimators")
-    if args.output:
-        Path(args.output).write_text(out)
-        print(f"wrote {args.output}", file=sys.stderr)
-    else:
-        sys.stdout.write(out)
-    return 0
+    return write_output(args, fit, comp, extra, "standard errors across panel estimators")
 
 
 def cmd_serve(args) -> int:

@@ -701,11 +701,7 @@ def fit_panel(data, response: str, regressors=None, entity: str | None = None,
         return fit_panel_distributed(data, response, regs, entity, time, effects=eff,
                                      intercept=intercept, sample=sample, client=client,
                                      **dask_options)
-    pdata = panel_data(data, response, regs, entity, time, sample)
-    values = pdata.values
-    cols = [*regs, response]
-    lo, hi = column_ranges(values)
-    check_magnitudes(cols, lo, hi, values)
+    pdata, values, lo, hi = _checked_panel(data, response, regs, entity, time, sample)
     if hi[-1] - lo[-1] == 0:
         raise SpecificationError(f"response '{response}' is constant ({values[0, -1]:g}): "
                                  "nothing to explain")
@@ -760,6 +756,15 @@ def fit_panel(data, response: str, regressors=None, entity: str | None = None,
     if eff and k:
         fit.sample.notes.append(_describe_effects(eff, absorbed, comps, iters, info.balanced))
     return fit
+
+
+def _checked_panel(data, response, regs, entity, time, sample):
+    """The validated panel block with its column ranges (magnitudes checked by column)."""
+    pdata = panel_data(data, response, regs, entity, time, sample)
+    values = pdata.values
+    lo, hi = column_ranges(values)
+    check_magnitudes([*regs, response], lo, hi, values)
+    return pdata, values, lo, hi
 
 
 def _panel_names(data, entity, time):
@@ -899,11 +904,7 @@ def fit_fama_macbeth(data, response: str, regressors=None, entity: str | None = 
         return fit_fama_macbeth_distributed(data, response, regs, entity, time,
                                             intercept=intercept, sample=sample, client=client,
                                             **dask_options)
-    pdata = panel_data(data, response, regs, entity, time, sample)
-    values = pdata.values
-    cols = [*regs, response]
-    lo, hi = column_ranges(values)
-    check_magnitudes(cols, lo, hi, values)
+    pdata, values, _, _ = _checked_panel(data, response, regs, entity, time, sample)
     n = len(values)
     X = values[:, :len(regs)]
     if intercept:
