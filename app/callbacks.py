@@ -27,6 +27,7 @@ from . import figures as F
 from . import views as V
 from .layout import estimator_controls, rule_options
 from .state import MAX_UPLOAD_BYTES, STORE, content_hash, key_for, spec_hash
+from .work import IDLE_POLLS, SHOW_AFTER, WORK, tracked
 
 CALLBACKS: list = []
 LOG = logging.getLogger("lagwise")
@@ -78,8 +79,16 @@ def stored(session, key):
     return STORE.get(session, key)
 
 
+#: Callbacks that may run for more than a second switch the progress poll on while they run
+#: (and restart its idle count); the poll switches itself off when nothing is running.
+RUNNING = [(Output("work-poll", "disabled"), False, False),
+           (Output("work-poll", "n_intervals"), 0, 0)]
+
+
 def dataset_from_bytes(session: str, raw: bytes, name: str):
-    table = engine.load_table(raw, name=name, max_bytes=MAX_UPLOAD_BYTES)
+    table = tracked(session, f"Reading {name}",
+                    lambda p: engine.load_table(raw, name=name, max_bytes=MAX_UPLOAD_BYTES,
+                                                progress=p))
     key = key_for("data", content_hash(raw))
     STORE.put(session, key, table)
     return key, table
@@ -143,8 +152,9 @@ def sweep_for(session, fkey, model, est, method="2sls"):
         p = est.params if family.name == "driscoll_kraay" else {}
         small, repair = bool(p.get("small_sample", False)), bool(p.get("repair", True))
         key = key_for(fkey, "panel-sweep", small, repair)
-        return STORE.derived(session, key, lambda: panel_sweep(model, small_sample=small,
-                                                               repair=repair))
+        return STORE.derived(session, key, lambda: tracked(
+            session, "Panel estimators along the bandwidth",
+            lambda _p: panel_sweep(model, small_sample=small, repair=repair)))
     if family.axis is None:
         family, est = FAMILIES["kernel"], engine.estimator("kernel", bandwidth=1.0)
     gmm = is_gmm(model, method)
@@ -167,7 +177,9 @@ def sweep_for(session, fkey, model, est, method="2sls"):
             from ..engine.weakiv import with_j
             return with_j(model, engine.sweep(model, curves))
         return engine.sweep(model, curves)
-    return STORE.derived(session, key, build)
+    what = family.axis.title if family.axis is not None else "settings"
+    return STORE.derived(session, key, lambda: tracked(
+        session, f"{family.title} along its {what}", lambda _p: build()))
 
 
 def view_model(session, fkey, model, method, est):
@@ -189,7 +201,9 @@ def view_inference(session, fkey, model, method, est, level, reference):
 
 def comparison_for(session, fkey, model, level, reference, extra=""):
     key = key_for(fkey, "compare", level, reference, extra)
-    return STORE.derived(session, key, lambda: model.compare(level=level, reference=reference))
+    return STORE.derived(session, key, lambda: tracked(
+        session, "Comparing estimators",
+        lambda p: model.compare(level=level, reference=reference, progress=p)))
 
 
 PANEL_REFERENCE = (("cluster", {"by": "entity"}, "clustered by entity"),
@@ -255,7 +269,7 @@ def no_model_message(session, key) -> str:
           Input("upload", "contents"), Input("load-demo", "n_clicks"),
           Input("load-demo-panel", "n_clicks"),
           State("upload", "filename"), State("session", "data"), prevent_initial_call=True,
-          message=1)
+          message=1, running=RUNNING)
 def on_upload(contents, _demo, _panel_demo, filename, session):
     """A new file replaces the data and resets what belonged to the old one (the horizon);
     the file's bytes are not kept in the browser once the server has them."""
@@ -388,7 +402,7 @@ def on_iv_options(columns, response, regressors, endogenous, instruments):
           Input("entity", "value"), Input("time-col", "value"), Input("effects", "value"),
           Input("one-period", "value"),
           State("focus", "value"), State("session", "data"), State("initial-spec", "data"),
-          message=1)
+          message=1, running=RUNNING)
 def on_spec(key, response, regressors, intercept, horizon, window, endogenous, instruments,
             entity, time, effects, one_period, focus, session, initial):
     table = stored(session, key)
@@ -413,13 +427,14 @@ def on_spec(key, response, regressors, intercept, horizon, window, endogenous, i
     inst = instruments if isinstance(instruments, list) else []
     try:
         h = int(horizon) if horizon not in (None, "") else None
-        if endo or inst:
-            model = engine.fit_iv(table, response, regs, endo, inst, intercept=bool(intercept),
-                                  sample=sample, horizon=h)
-        else:
-            model = engine.fit_ols(table, response, regs, intercept=bool(intercept),
-                                   sample=sample, horizon=h,
-                                   one_period=one_period if h else None)
+        with WORK.step(session, "Fitting the model"):
+            if endo or inst:
+                model = engine.fit_iv(table, response, regs, endo, inst,
+                                      intercept=bool(intercept), sample=sample, horizon=h)
+            else:
+                model = engine.fit_ols(table, response, regs, intercept=bool(intercept),
+                                       sample=sample, horizon=h,
+                                       one_period=one_period if h else None)
         fkey = key_for("fit", spec_hash([key, response, regs, bool(intercept), sample, h,
                                          endo, inst, one_period if h else None]))
         STORE.put(session, fkey, model)
@@ -457,8 +472,9 @@ def _panel_spec(table, key, response, regressors, intercept, window, endogenous,
                                             "panel columns")
         periods = periods_of(table, time)
         sample, text = _window(pd.DataFrame(index=periods), window)
-        model = engine.fit_panel(table, response, regs, entity=entity, time=time, effects=eff,
-                                 intercept=bool(intercept), sample=sample)
+        with WORK.step(session, "Fitting the panel"):
+            model = engine.fit_panel(table, response, regs, entity=entity, time=time,
+                                     effects=eff, intercept=bool(intercept), sample=sample)
         fkey = key_for("fit", spec_hash([key, response, regs, bool(intercept), str(sample),
                                          "panel", entity, time, list(eff)]))
         STORE.put(session, fkey, model)
@@ -536,7 +552,9 @@ def on_axis(fkey, name, rule, pending, session):
         return no_update, no_update, True, "", "", [], "fixed"
     options = rule_options(name)
     keys = [o["value"] for o in options]
-    if ctx.triggered_id == "est-name" or rule not in keys:
+    same = ctx.triggered_id == "fit-key" and rule in keys   # a new fit keeps the rule: resending
+    if ctx.triggered_id == "est-name" or rule not in keys:  # it would recompute the tables
+        same = False
         wanted = pending.get("rule") if isinstance(pending, dict) \
             and pending.get("estimator") == name else None
         rule = wanted if wanted in keys else ("andrews" if "andrews" in keys else
@@ -548,7 +566,7 @@ def on_axis(fkey, name, rule, pending, session):
     model = stored(session, fkey)
     grid = family.axis.grid(model) if model is not None else np.arange(1.0, 61.0)
     return (float(grid[0]), float(grid[-1]), False, family.axis.title, family.axis.help,
-            options, rule)
+            no_update if same else options, no_update if same else rule)
 
 
 # --------------------------------------------------------------------------- the hot path
@@ -567,7 +585,7 @@ INFERENCE_INPUTS = [Input("fit-key", "data"), Input("est-name", "value"),
           Output("compare-shown", "data"),
           *INFERENCE_INPUTS, State({"type": "est-param", "name": ALL}, "id"),
           State("session", "data"), State("compare-shown", "data"), prevent_initial_call=True,
-          message=1)
+          message=1, running=RUNNING)
 def on_inference(fkey, name, values, rule, slider, reference, level, focus, method, ids, session,
                  shown):
     """One round trip per slider move. The rule and the slider are kept in step here: a rule
@@ -648,7 +666,7 @@ def on_marker(slider):
           Input({"type": "est-param", "name": ALL}, "value"), Input("tune-rule", "value"),
           Input("iv-method", "value"),
           State({"type": "est-param", "name": ALL}, "id"), State("tune-slider", "value"),
-          State("session", "data"), message=1)
+          State("session", "data"), message=1, running=RUNNING)
 def on_sensitivity(fkey, reference, level, focus, mode, name, values, rule, method, ids, slider,
                    session):
     model = stored(session, fkey)
@@ -687,13 +705,29 @@ def on_sensitivity(fkey, reference, level, focus, mode, name, values, rule, meth
     return fig, html.Ul(flips), F.interval_figure(comp, focus, level)
 
 
+# --------------------------------------------------------------------------- progress
+
+@callback(Output("work-strip", "children"), Output("work-strip", "className"),
+          Output("work-poll", "disabled"), Input("work-poll", "n_intervals"),
+          State("session", "data"), prevent_initial_call=True)
+def on_work_poll(n, session):
+    """While a long callback runs, show this session's steps that have taken more than a
+    moment; switch the poll off after a few polls with nothing running."""
+    steps = WORK.active(session)
+    shown = [st for st in steps if st.elapsed >= SHOW_AFTER]
+    if shown:
+        return V.work_strip(shown), "lw-work", no_update
+    idle = not steps and isinstance(n, int) and n >= IDLE_POLLS
+    return [], "lw-work lw-hidden", True if idle else no_update
+
+
 # --------------------------------------------------------------------------- diagnostics
 
 @callback(Output("resid-graph", "figure"), Output("acf-graph", "figure"),
           Output("scatter-graph", "figure"), Output("score-graph", "figure"),
           Output("diag-table", "rowData"), Output("diag-reading", "children"),
           Output("acf-bands", "children"), Input("fit-key", "data"), State("session", "data"),
-          message=5)
+          message=5, running=RUNNING)
 def on_diagnostics(fkey, session):
     model = stored(session, fkey)
     if model is None:
@@ -717,8 +751,10 @@ def diagnostics_for(session, fkey, model):
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             if getattr(model, "panel", None) is not None:
-                return diagnose_panel(model)
-            return engine.diagnose(model)
+                return tracked(session, "Panel diagnostics",
+                               lambda p: diagnose_panel(model, progress=p))
+            return tracked(session, "Residual diagnostics",
+                           lambda p: engine.diagnose(model, progress=p))
     return STORE.derived(session, key_for(fkey, "diagnostics"), build)
 
 

@@ -13,6 +13,7 @@ from ..engine.laws import REQUESTS
 from .state import MAX_UPLOAD_BYTES
 from ..engine.data import MAX_CELLS, MAX_COLUMNS, MAX_LINE_CHARS
 from . import views
+from .work import POLL_MS
 
 REFERENCE_OPTIONS = [
     {"label": {"auto": "auto (the estimator's own law)", "normal": "normal (large sample)",
@@ -462,4 +463,8 @@ def build_layout(session: str, initial: dict, where: str = "this computer", badg
             className="lw-header"),
         html.Div(initial.get("message") or "", id="page-message", className="lw-message"),
         html.Div([sidebar(spec.get("horizon"), where), main_area()], className="lw-body"),
+        # progress of steps that take more than a moment (see app/work.py)
+        dcc.Interval(id="work-poll", interval=POLL_MS, disabled=True, n_intervals=0),
+        html.Div(id="work-strip", className="lw-work lw-hidden", role="status",
+                 **{"aria-live": "polite"}),
     ], className="lw-page")

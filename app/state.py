@@ -75,6 +75,7 @@ class Store:
                  idle_seconds: float = IDLE_SECONDS):
         self._sessions: dict[str, _Session] = {}
         self._lock = threading.RLock()
+        self._gates: dict[tuple, list] = {}     # (session, key) -> [lock, waiting requests]
         self.total_bytes = total_bytes
         self.session_bytes = session_bytes
         self.session_entries = session_entries
@@ -188,11 +189,27 @@ class Store:
         return list(s.entries) if s else []
 
     def derived(self, sid, key: str, build):
-        """A result derived from stored objects, computed once and kept in this session."""
+        """A result derived from stored objects, computed once and kept in this session.
+        Requests that need the same result at the same time (the table, the chart and the
+        interval plot all use one comparison) wait for the first to build it instead of
+        computing it again side by side."""
         value = self.get(sid, key)
-        if value is None:
-            value = build()
-            self.put(sid, key, value)
+        if value is not None:
+            return value
+        with self._lock:
+            gate = self._gates.setdefault((sid, key), [threading.Lock(), 0])
+            gate[1] += 1
+        try:
+            with gate[0]:
+                value = self.get(sid, key)
+                if value is None:
+                    value = build()
+                    self.put(sid, key, value)
+        finally:
+            with self._lock:
+                gate[1] -= 1
+                if gate[1] == 0:
+                    self._gates.pop((sid, key), None)
         return value
 
 

@@ -22,8 +22,9 @@ from ..engine.predictive import PERSISTENCE_THRESHOLD, horizon_sweep, persistenc
 from ..engine.simulate import size_check
 from . import figures as F
 from . import views as V
-from .callbacks import guarded, stored
+from .callbacks import RUNNING, guarded, stored
 from .state import STORE, key_for
+from .work import tracked
 
 CALLBACKS: list = []
 #: The size check's replications are bounded per run.
@@ -76,7 +77,7 @@ def _is_time_series_ols(model) -> bool:
           Output("persistence-reading", "children"), Output("horizon-graph", "figure"),
           Output("horizon-notes", "children"),
           Input("fit-key", "data"), Input("focus", "value"), Input("level", "value"),
-          State("session", "data"), message=2)
+          State("session", "data"), message=2, running=RUNNING)
 def on_persistence(fkey, focus, level, session):
     model = stored(session, fkey)
     hidden = {"display": "none"}
@@ -84,13 +85,14 @@ def on_persistence(fkey, focus, level, session):
         return hidden, [], [], F.empty_figure(""), []
     key = key_for(fkey, "persistence", focus, level)
 
-    def build():
+    def build(progress):
         slopes = [t for t in model.terms if t != INTERCEPT]
         if not slopes:
             return None
         predictor = focus if focus != INTERCEPT else None
         overlapping = bool(model.horizon and model.horizon > 1)
         try:
+            progress(0, 1, "the predictor's persistence and IVX")
             rep = persistence_report(model, predictor, level=level)
         except engine.LagwiseError as exc:
             if not overlapping:
@@ -106,8 +108,10 @@ def on_persistence(fkey, focus, level, session):
             top = int(min(36, max(12, 3 * (model.horizon or 1)), model.nobs // 5))
             regs = [t for t in model.terms if t != INTERCEPT]
             try:
-                sweep = horizon_sweep(model.table, source, regs, horizons=range(1, top + 1),
-                                      intercept=INTERCEPT in model.terms, level=level)
+                sweep = horizon_sweep(
+                    model.table, source, regs, horizons=range(1, top + 1),
+                    intercept=INTERCEPT in model.terms, level=level,
+                    progress=lambda d, n: progress(d, n, f"horizon {min(d + 1, n)} of {n}"))
                 notes += sweep.notes
             except engine.LagwiseError as exc:
                 notes.append(f"horizon chart not available: {exc}")
@@ -115,7 +119,8 @@ def on_persistence(fkey, focus, level, session):
             notes.append("the horizon chart needs the one-period series: choose it under the "
                          "overlap horizon")
         return {"report": rep, "sweep": sweep, "notes": notes}
-    out = STORE.derived(session, key, build)
+    out = STORE.derived(session, key, lambda: tracked(session, "Persistence and horizons",
+                                                      lambda p: build(p)))
     if out is None:
         return hidden, [], [], F.empty_figure(""), []
     if "error" in out:

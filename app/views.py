@@ -360,3 +360,23 @@ def size_records(frame: pd.DataFrame) -> list[dict]:
              "typical_critical_value": (r.typical_critical_value,
                                         fmt(r.typical_critical_value, 3))}))
     return out
+
+
+def work_strip(steps) -> list:
+    """One line per running step: its name, a bar (filled when the step reports its units,
+    moving when it cannot), the stage under way and the seconds spent."""
+    out = []
+    for st in steps:
+        frac = st.fraction
+        bar = html.Progress(value=str(st.done), max=str(st.total)) if frac is not None \
+            else html.Progress()
+        parts = []
+        if frac is not None and st.total > 1:
+            parts.append(f"{st.done} of {st.total}")
+        if st.what:
+            parts.append(st.what)
+        parts.append(f"{st.elapsed:.1f} s")
+        out.append(html.Div([html.Span(st.label, className="lw-work-label"), bar,
+                             html.Span(" · ".join(parts), className="lw-work-detail")],
+                            className="lw-work-step"))
+    return out

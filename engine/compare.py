@@ -27,16 +27,20 @@ def family_presets(model, kernel=None, bandwidth=None) -> list:
 
 
 def compare(model, level: float = 0.95, reference: str = "auto", kernel=None, bandwidth=None,
-            estimators=None) -> pd.DataFrame:
+            estimators=None, progress=None) -> pd.DataFrame:
     """One row per (estimator setting, term): std_error, t_stat, p_value, interval, b, lags,
     reference law (in words, and as a short label), whether the zero null is rejected at
     1 - level, notes and flags. An estimator that cannot be computed on this model appears with
     its reason in `note` (never a silent NaN). Items of `estimators` are estimators or
-    (estimator, law request or None, why) tuples."""
+    (estimator, law request or None, why) tuples. progress(done, total, what) is called before
+    each estimator and once at the end."""
     rows = []
-    for item in (estimators if estimators is not None else family_presets(model, kernel,
-                                                                           bandwidth)):
+    items = list(estimators if estimators is not None else family_presets(model, kernel,
+                                                                          bandwidth))
+    for i, item in enumerate(items):
         est, ref, why = (item if isinstance(item, tuple) else (item, None, ""))
+        if progress:
+            progress(i, len(items), est.label)
         wanted = ref or reference
         label = est.label
         try:
@@ -78,6 +82,8 @@ def compare(model, level: float = 0.95, reference: str = "auto", kernel=None, ba
                          "rejects": bool(row.p_value < 1 - level) if ok else None,
                          "note": "; ".join(res.notes[len(model.sample.notes):]), "why": why,
                          "flags": ",".join(sorted(lr.flags))})
+    if progress:
+        progress(len(items), len(items), "")
     return pd.DataFrame(rows, columns=COLUMNS)
 
 

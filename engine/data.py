@@ -220,14 +220,17 @@ _NA_VALUES = sorted({v for t in _MISSING_TOKENS for v in (t, t.upper(), t.title(
 
 
 def load_table(source, *, name: str | None = None, max_bytes: int = MAX_BYTES,
-               max_cells: int = MAX_CELLS) -> Table:
+               max_cells: int = MAX_CELLS, progress=None) -> Table:
     """Load a CSV or Parquet file from a path or raw bytes into a validated `Table`.
 
     Raises `DataError` with a message naming the problem (and the row or column where there is
     one) for unreadable, empty, oversized or entirely non-numeric input. Values are never
     shifted between columns: a row with more fields than the header is read correctly (a
-    trailing delimiter on every row) or refused with its row number.
+    trailing delimiter on every row) or refused with its row number. progress(done, total,
+    what) is called before each stage (layout checks, parsing, column checks) and at the end.
     """
+    step = progress or (lambda done, total, what: None)
+    step(0, 3, "checking the file's layout")
     if isinstance(source, (bytes, bytearray, memoryview)):
         raw = bytes(source)
         label = name or "upload"
@@ -247,15 +250,19 @@ def load_table(source, *, name: str | None = None, max_bytes: int = MAX_BYTES,
     if not raw.strip():
         raise DataError(f"{label} is empty")
     if raw[:4] == b"PAR1":
-        return _load_parquet(raw, label, max_cells)
+        table = _load_parquet(raw, label, max_cells, step)
+        step(3, 3, "")
+        return table
     if raw[:4] == b"PK\x03\x04" or raw[:8] == b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1":
         raise DataError(f"{label} looks like a spreadsheet workbook; save it as CSV and load that")
-    return _load_csv(raw, label, max_cells)
+    table = _load_csv(raw, label, max_cells, step)
+    step(3, 3, "")
+    return table
 
 
 # --------------------------------------------------------------------------- Parquet
 
-def _load_parquet(raw: bytes, label: str, max_cells: int) -> Table:
+def _load_parquet(raw: bytes, label: str, max_cells: int, step) -> Table:
     import pyarrow as pa
     import pyarrow.parquet as pq
     try:
@@ -286,6 +293,7 @@ def _load_parquet(raw: bytes, label: str, max_cells: int) -> Table:
             keep.append(fld.name)
     if not keep:
         raise DataError(f"{label} has no columns that can hold numbers")
+    step(1, 3, f"reading {n_rows:,} rows")
     try:
         frame = pf.read(columns=keep).to_pandas()
     except Exception as exc:  # pyarrow raises several types for corrupt files
@@ -303,6 +311,7 @@ def _load_parquet(raw: bytes, label: str, max_cells: int) -> Table:
         frame.columns = [str(c) for c in frame.columns]
     else:
         frame = frame.reset_index(drop=True)
+    step(2, 3, "checking the columns")
     return _finish(frame, report)
 
 
@@ -378,7 +387,7 @@ def _too_many_fields(label, row, fields, n_header) -> DataError:
                      "delimiter, or quote the fields that contain it.")
 
 
-def _load_csv(raw: bytes, label: str, max_cells: int) -> Table:
+def _load_csv(raw: bytes, label: str, max_cells: int, step) -> Table:
     text = _decode(raw, label)
     n_comment = 0
     pos = 0
@@ -409,6 +418,7 @@ def _load_csv(raw: bytes, label: str, max_cells: int) -> Table:
         raise DataError(f"{label} has repeated column names ('{dup[0]}')")
     report = LoadReport(source=label, file_format="csv", delimiter=delimiter)
     text = _strip_trailing_delimiters(text, delimiter, report)
+    step(1, 3, "parsing rows")
     frame = _read_csv_frame(text, delimiter, label, n_comment, len(header))
     frame.columns = [str(c).strip() for c in frame.columns]
     if len(frame.columns) < 1 or len(frame) == 0:
@@ -419,6 +429,7 @@ def _load_csv(raw: bytes, label: str, max_cells: int) -> Table:
     report.rows_read = len(frame)
     if n_comment:
         report.notes.append(f"skipped {n_comment} comment line(s) starting with '#'")
+    step(2, 3, f"checking {len(frame.columns)} columns of {len(frame):,} rows")
     return _finish(frame, report)
 
 

@@ -173,10 +173,12 @@ def _white_no_cross(resid, X):
     return lm, df, stats.chi2.sf(lm, df)
 
 
-def diagnose(fit, lags=None, arch_lags=None, exact_dw: bool = True) -> DiagnosticReport:
+def diagnose(fit, lags=None, arch_lags=None, exact_dw: bool = True,
+             progress=None) -> DiagnosticReport:
     """Residual and moment diagnostics for a least-squares fit (see module docstring). Every
     statistic is finite or left out with a note saying why; no library warning or exception
-    escapes."""
+    escapes. progress(done, total, what) is called before each of four stages and at the end."""
+    step = progress or (lambda done, total, what: None)
     _check(fit)
     t_obs = fit.nobs
     if t_obs < MIN_T:
@@ -191,14 +193,19 @@ def diagnose(fit, lags=None, arch_lags=None, exact_dw: bool = True) -> Diagnosti
     rows: list[dict] = []
     with warnings.catch_warnings(), np.errstate(all="ignore"):
         warnings.simplefilter("ignore")
+        step(0, 4, "autocorrelation tests")
         _autocorrelation_tests(fit, lag_list, exact_dw, rows, notes)
+        step(1, 4, "heteroskedasticity tests")
         _heteroskedasticity_tests(fit, lag_list[-1], arch_lags, rows, notes)
         tests = _finite_rows(rows, notes)
+        step(2, 4, "autocorrelation functions")
         acf_df, pacf_df, bands, score_acf = _correlograms(fit, lag_list[-1], notes)
     from .bandwidth import select_bandwidth
+    step(3, 4, "bandwidth and reading")
     andrews = select_bandwidth(fit, "bartlett", "andrews")
     persistence = pd.DataFrame({"rho1": score_acf.iloc[0]})
     reading = _reading(tests, acf_df, persistence, andrews, fit)
+    step(4, 4, "")
     return DiagnosticReport(tests=tests, acf=acf_df, pacf=pacf_df, bands=bands,
                             score_acf=score_acf, persistence=persistence.assign(
                                 andrews_bartlett_b=andrews.b), reading=reading, notes=notes)

@@ -1061,7 +1061,7 @@ def wooldridge_serial(fit):
     return f, 1, groups - 1, float(stats.f.sf(f, 1, groups - 1)), rho
 
 
-def diagnose_panel(fit):
+def diagnose_panel(fit, progress=None):
     """Residual diagnostics for a panel: what the panel estimators correct for.
 
     Tests: Pesaran's CD (cross-sectional dependence of residuals), Wooldridge's first-order
@@ -1069,8 +1069,10 @@ def diagnose_panel(fit):
     of the residuals (what clustering by time or by entity allows for). Correlograms: the pooled
     autocorrelation of residuals within entities (lags in periods), of the period-average
     residual, and of each per-period sum of the moment contributions (what Driscoll-Kraay
-    corrects for)."""
+    corrects for). progress(done, total, what) is called before each of four stages and at the
+    end."""
     from scipy import stats
+    step = progress or (lambda done, total, what: None)
     from .diagnostics import DiagnosticReport, _Section, _finite_rows, _row
     p = getattr(fit, "panel", None)
     if p is None or not hasattr(fit, "_raw"):
@@ -1083,6 +1085,7 @@ def diagnose_panel(fit):
     rows: list[dict] = []
     n, g, t = fit.nobs, p.n_entities, p.n_periods
     with np.errstate(all="ignore"):
+        step(0, 4, "cross-sectional dependence")
         with _Section("Pesaran CD", notes):
             cd, used, pairs = pesaran_cd(resid, p.entity_codes, p.time_codes, g, t)
             _row(rows, "Pesaran CD", cd, np.nan, 2 * stats.norm.sf(abs(cd)),
@@ -1090,12 +1093,14 @@ def diagnose_panel(fit):
                  f"scaled sum of pairwise residual correlations over common periods, N(0,1) "
                  f"(Pesaran 2004); {pairs} pairs of {used} entities"
                  + (" (a random subset)" if used < g else ""))
+        step(1, 4, "serial correlation within entities")
         with _Section("Wooldridge serial correlation", notes):
             f, d1, d2, pv, rho = wooldridge_serial(fit)
             _row(rows, "Wooldridge serial correlation", f, d1, pv,
                  "no first-order serial correlation within entities",
                  f"first differences: lag coefficient of the residuals {rho:.3f} against -0.5, "
                  "entity-clustered F (Wooldridge 2010)", df2=float(d2))
+        step(2, 4, "period and entity means")
         for dim, codes, groups in (("period", p.time_codes, t), ("entity", p.entity_codes, g)):
             with _Section(f"{dim} means", notes):
                 counts = np.bincount(codes, minlength=groups)
@@ -1111,8 +1116,10 @@ def diagnose_panel(fit):
                      f"({between / (between + within):.1%} of their variance between "
                      f"{dim}s); assumes independent errors", df2=float(d2))
         tests = _finite_rows(rows, notes)
+        step(3, 4, "autocorrelation functions")
         acf_df, score_acf, persistence, bands = _panel_correlograms(fit, notes)
     reading = _panel_reading(tests, acf_df, persistence, fit)
+    step(4, 4, "")
     return DiagnosticReport(tests=tests, acf=acf_df, pacf=acf_df.iloc[:0], bands=bands,
                             score_acf=score_acf, persistence=persistence, reading=reading,
                             notes=notes)

@@ -21,7 +21,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from scipy import stats
+from scipy import signal, stats
 
 from .errors import EstimationError, SpecificationError
 from .model import INTERCEPT
@@ -109,9 +109,7 @@ def ivx_test(returns, predictors, horizon: int = 1, c_z: float = IVX_CZ,
     # the mildly integrated instrument z_t = R_nz z_{t-1} + dX_t
     rnz = 1.0 + c_z / n ** beta
     dx = np.vstack([np.zeros((1, r)), np.diff(X, axis=0)])
-    z = np.zeros((T, r))
-    for t in range(1, T):
-        z[t] = rnz * z[t - 1] + dx[t]
+    z = signal.lfilter([1.0], [1.0, -rnz], dx, axis=0)   # z_0 = dx_0 = 0: the same recursion
     # K-period forward sums
     length = T - (k - 1)
     csum = lambda a: np.cumsum(np.vstack([np.zeros((1,) + a.shape[1:]), a]), axis=0)  # noqa

@@ -280,6 +280,7 @@ def test_twenty_concurrent_sessions_see_only_their_own_data(browser, live_server
         y = 0.1 * i + (i + 1) * 0.05 * x + rng.standard_normal(80)
         text = f"resp{i},x{i}\n" + "\n".join(f"{a:.6f},{b:.6f}" for a, b in zip(y, x)) + "\n"
         files.append(text)
+        expect(page.locator("#upload input[type=file]")).to_be_attached(timeout=120_000)
         upload(page, {"name": f"s{i}.csv", "mimeType": "text/csv", "buffer": text.encode()})
     for i, page in enumerate(pages):
         expect(cells(page, "coef-table", "term")).to_have_text(["intercept", f"x{i}"],
@@ -534,3 +535,42 @@ def test_memo_table_builder_previews_and_exports(page: Page, live_server, tmp_pa
         page.locator("""[id*='"fmt":"latex"'][id*='export-memo']""").click()
     tex = Path(info.value.path()).read_text()
     assert "\\begin{tabular}{lcccc}" in tex and "rate\\_capacity" in tex
+
+
+def test_a_file_near_the_limit_shows_progress_then_its_results(page: Page, live_server,
+                                                               tmp_path):
+    """About 700,000 rows (22 MB): the steps that take seconds (comparing every estimator, the
+    residual diagnostics) show a progress panel with their stage and a bar while they run; it
+    goes away when they are done, the results are for the new file, and the page stops
+    polling."""
+    import re
+    import time
+    import numpy as np
+    import pandas as pd
+    rng = np.random.default_rng(20261202)
+    n = 700_000
+    x1, x2 = rng.standard_normal(n), rng.standard_normal(n)
+    frame = pd.DataFrame({"y": 0.05 * x1 + rng.standard_normal(n), "x1": x1, "x2": x2})
+    path = tmp_path / "near_limit.csv"
+    frame.to_csv(path, index=False, float_format="%.5f")
+    assert 15 * 2**20 < path.stat().st_size < 25 * 2**20
+    open_app(page, live_server)
+    polls = []
+    page.on("request", lambda r: polls.append(time.monotonic())
+            if r.method == "POST" and "work-poll" in (r.post_data or "") else None)
+    upload(page, str(path))
+    strip = page.locator("#work-strip")
+    expect(strip).to_have_class(re.compile(r"^lw-work$"), timeout=60_000)
+    expect(strip).to_contain_text(re.compile("Residual diagnostics|Comparing estimators"))
+    expect(strip.locator("progress").first).to_be_visible()
+    expect(strip).to_contain_text(re.compile(r"\d+\.\d s"))
+    expect(strip).to_have_class(re.compile("lw-hidden"), timeout=120_000)
+    expect(page.locator("#upload-message")).to_contain_text("700000 rows")
+    expect(cells(page, "coef-table", "term")).to_have_text(["intercept", "x1"],
+                                                           timeout=30_000)
+    expect(page.locator("#fit-message")).to_contain_text("T = 700000")
+    from lagwise.app.work import IDLE_POLLS, POLL_MS
+    time.sleep(1.5 * IDLE_POLLS * POLL_MS / 1000)     # the poll's idle grace
+    before = len(polls)
+    time.sleep(2.0)
+    assert polls and len(polls) == before     # it polled while working, and has stopped
