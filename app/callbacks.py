@@ -80,7 +80,9 @@ def stored(session, key):
 
 
 #: Callbacks that may run for more than a second switch the progress poll on while they run
-#: (and restart its idle count); the poll switches itself off when nothing is running.
+#: (and restart its idle count); the poll switches itself off when nothing is running. The
+#: slider's callback (on_inference) has none: its slow first round (the comparison, the flip's
+#: sweep) is shared with on_sensitivity, which has, so a slider move sends no extra requests.
 RUNNING = [(Output("work-poll", "disabled"), False, False),
            (Output("work-poll", "n_intervals"), 0, 0)]
 
@@ -585,7 +587,7 @@ INFERENCE_INPUTS = [Input("fit-key", "data"), Input("est-name", "value"),
           Output("compare-shown", "data"),
           *INFERENCE_INPUTS, State({"type": "est-param", "name": ALL}, "id"),
           State("session", "data"), State("compare-shown", "data"), prevent_initial_call=True,
-          message=1, running=RUNNING)
+          message=1)
 def on_inference(fkey, name, values, rule, slider, reference, level, focus, method, ids, session,
                  shown):
     """One round trip per slider move. The rule and the slider are kept in step here: a rule

@@ -222,8 +222,8 @@ def tuning_text(res, model) -> str:
     if lr.bandwidth is not None:
         span = lr.span or model.nobs
         text = (f"b = {lr.bandwidth:.4g} · {lr.lags} lags used · "
-                + (f"b/T_p = {lr.bandwidth / span:.3f} ({span} periods)" if lr.span else
-                   f"b/T = {lr.bandwidth / span:.3f}"))
+                + (f"b/T_p = {lr.bandwidth / span:.3g} ({span} periods)" if lr.span else
+                   f"b/T = {lr.bandwidth / span:.3g}"))
         if lr.how:
             text += f" · {lr.how}"
         return text

@@ -277,3 +277,13 @@ def test_clipboard_text_is_what_the_table_shows(fit):
     lines = text.splitlines()
     assert lines[0].split("\t")[:3] == ["term", "estimate", "std. error"]
     assert lines[2].split("\t")[2] == V.fmt(res.table.std_error.iloc[1])
+
+
+def test_tuning_text_never_rounds_b_over_t_to_zero(fit):
+    """At large T a small bandwidth has b/T far below 0.001: printed to three significant
+    digits, never as 0.000."""
+    import re
+    res = fit.infer(lagwise.estimator("kernel", kernel="bartlett", bandwidth=1.0))
+    text = V.tuning_text(res, fit)
+    value = float(re.search(r"b/T = ([0-9.e-]+)", text).group(1))
+    assert value == pytest.approx(1.0 / fit.nobs, rel=5e-3) and value > 0

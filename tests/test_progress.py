@@ -178,3 +178,18 @@ def test_a_failed_build_lets_the_next_request_try_again():
         store.derived(sid, "k", bad)
     assert store.derived(sid, "k", lambda: np.ones(3)).sum() == 3
     assert store._gates == {}
+
+
+def test_the_slider_callback_sends_no_progress_polls():
+    """A slider move must only reweight the cache: the slider's callback does not switch the
+    poll on (its slow first round is shared with the sensitivity callback, which does)."""
+    from lagwise.app import create_app
+    specs = create_app()._callback_list
+
+    def spec(output_start):
+        (found,) = [s for s in specs if s["output"].startswith(output_start)]
+        return found
+    assert not spec("..coef-table.rowData").get("running")
+    for slow in ("..sens-graph.figure...flip-text", "..resid-graph.figure", "..fit-key.data",
+                 "..dataset-key.data...upload-message", "..predictive-card.style"):
+        assert "work-poll" in str(spec(slow).get("running")), slow
