@@ -711,16 +711,20 @@ def on_sensitivity(fkey, reference, level, focus, mode, name, values, rule, meth
 
 @callback(Output("work-strip", "children"), Output("work-strip", "className"),
           Output("work-poll", "disabled"), Input("work-poll", "n_intervals"),
-          State("session", "data"), prevent_initial_call=True)
-def on_work_poll(n, session):
+          State("session", "data"), State("work-strip", "className"),
+          prevent_initial_call=True)
+def on_work_poll(n, session, shown_class=None):
     """While a long callback runs, show this session's steps that have taken more than a
-    moment; switch the poll off after a few polls with nothing running."""
+    moment; switch the poll off after a few polls with nothing running. A hidden panel that
+    stays hidden is not sent again (the page has nothing to redraw)."""
     steps = WORK.active(session)
     shown = [st for st in steps if st.elapsed >= SHOW_AFTER]
     if shown:
         return V.work_strip(shown), "lw-work", no_update
     idle = not steps and isinstance(n, int) and n >= IDLE_POLLS
-    return [], "lw-work lw-hidden", True if idle else no_update
+    hidden = isinstance(shown_class, str) and "lw-hidden" in shown_class
+    return (no_update if hidden else [], no_update if hidden else "lw-work lw-hidden",
+            True if idle else no_update)
 
 
 # --------------------------------------------------------------------------- diagnostics

@@ -133,10 +133,13 @@ def test_poll_shows_running_steps_and_switches_itself_off():
         assert "lw-hidden" not in cls and disabled is C.no_update
         text = str(children)
         assert "Comparing estimators" in text and "3 of 16" in text and "Parzen" in text
-    children, cls, disabled = C.on_work_poll(1, sid)           # a request may be on its way
+    children, cls, disabled = C.on_work_poll(1, sid, "lw-work")   # a request may be on its way
     assert "lw-hidden" in cls and disabled is C.no_update
     children, cls, disabled = C.on_work_poll(IDLE_POLLS, sid)  # idle long enough: off
     assert "lw-hidden" in cls and disabled is True
+    # already hidden: nothing is resent
+    assert C.on_work_poll(1, sid, "lw-work lw-hidden") == (C.no_update,) * 3
+    assert C.on_work_poll(IDLE_POLLS, sid, "lw-work lw-hidden")[:2] == (C.no_update,) * 2
     for bad in (None, "", ["x"], {"a": 1}, 3):                 # malformed payloads
         assert C.on_work_poll(bad, bad)[2] in (True, C.no_update)
 
