@@ -307,6 +307,16 @@ def cmd_serve(args) -> int:
                  settings=args.settings, allowed_hosts=args.allow_host or ())
 
 
+def _output_arguments(parser) -> None:
+    """Options shared by the commands that print a comparison: level, law and output."""
+    parser.add_argument("--level", type=float, default=0.95,
+                        help="confidence level (default 0.95)")
+    parser.add_argument("--reference", default="auto", help="auto, normal, t or fixed-b")
+    parser.add_argument("--format", default="text",
+                        choices=["text", "csv", "markdown", "latex", "html"])
+    parser.add_argument("--output", default=None, help="write to this file instead of stdout")
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="lagwise", description="Robust standard errors for "
                                 "time-series regressions, and how they depend on the lag choice.")
@@ -348,11 +358,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="real bandwidth b or a rule (andrews, newey-west, rule-of-thumb, "
                         "textbook, llsw); default: each rule's own")
     t.add_argument("--lags", type=int, default=None, help="lag count L (sets b = L + 1)")
-    t.add_argument("--level", type=float, default=0.95, help="confidence level (default 0.95)")
-    t.add_argument("--reference", default="auto", help="auto, normal, t or fixed-b")
-    t.add_argument("--format", default="text", choices=["text", "csv", "markdown", "latex",
-                                                        "html"])
-    t.add_argument("--output", default=None, help="write to this file instead of stdout")
+    _output_arguments(t)
     t.set_defaults(func=cmd_table)
     q = sub.add_parser("panel", help="compare panel estimators (clustered, Driscoll-Kraay, "
                                      "Fama-MacBeth); a folder of Parquet files runs on Dask")
@@ -371,11 +377,7 @@ def build_parser() -> argparse.ArgumentParser:
                         "cluster on this machine (folders only)")
     q.add_argument("--workers", type=int, default=2,
                    help="workers of the local Dask cluster (default 2)")
-    q.add_argument("--level", type=float, default=0.95, help="confidence level (default 0.95)")
-    q.add_argument("--reference", default="auto", help="auto, normal, t or fixed-b")
-    q.add_argument("--format", default="text", choices=["text", "csv", "markdown", "latex",
-                                                        "html"])
-    q.add_argument("--output", default=None, help="write to this file instead of stdout")
+    _output_arguments(q)
     q.set_defaults(func=cmd_panel)
     s = sub.add_parser("serve", help="open the dashboard in the browser (local only)")
     s.add_argument("file", nargs="?", default=None, help="data file (default: the demo data)")
