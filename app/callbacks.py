@@ -554,9 +554,9 @@ def on_axis(fkey, name, rule, pending, session):
         return no_update, no_update, True, "", "", [], "fixed"
     options = rule_options(name)
     keys = [o["value"] for o in options]
-    same = ctx.triggered_id == "fit-key" and rule in keys   # a new fit keeps the rule: resending
-    if ctx.triggered_id == "est-name" or rule not in keys:  # it would recompute the tables
-        same = False
+    # a new fit keeps a rule that applies: resending it would recompute the tables
+    same = ctx.triggered_id == "fit-key" and rule in keys
+    if ctx.triggered_id == "est-name" or rule not in keys:
         wanted = pending.get("rule") if isinstance(pending, dict) \
             and pending.get("estimator") == name else None
         rule = wanted if wanted in keys else ("andrews" if "andrews" in keys else

@@ -119,8 +119,7 @@ def on_persistence(fkey, focus, level, session):
             notes.append("the horizon chart needs the one-period series: choose it under the "
                          "overlap horizon")
         return {"report": rep, "sweep": sweep, "notes": notes}
-    out = STORE.derived(session, key, lambda: tracked(session, "Persistence and horizons",
-                                                      lambda p: build(p)))
+    out = STORE.derived(session, key, lambda: tracked(session, "Persistence and horizons", build))
     if out is None:
         return hidden, [], [], F.empty_figure(""), []
     if "error" in out:
