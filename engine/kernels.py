@@ -60,6 +60,13 @@ class Kernel:
             return int(min(max(math.ceil(bandwidth) - 1, 0), nobs - 1))
         return nobs - 1
 
+    def lags_many(self, bandwidths, nobs: int) -> np.ndarray:
+        """`lags_used` for each bandwidth of an array (integer array of the same length)."""
+        b = np.atleast_1d(np.asarray(bandwidths, dtype=float))
+        if not self.finite_support:
+            return np.where(b > 0, nobs - 1, 0).astype(int)
+        return np.where(b > 0, np.clip(np.ceil(b) - 1, 0, nobs - 1), 0).astype(int)
+
     def weights(self, bandwidths, count: int) -> np.ndarray:
         """Weights k(j/b) for j = 0..count-1, one row per bandwidth (2-D array); b = 0 weights
         lag 0 only."""

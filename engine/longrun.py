@@ -91,7 +91,7 @@ def kernel_many(model, kernel: Kernel, bandwidths, *, small_sample: bool = False
     there, never rounding noise))."""
     cache = model.moments if cache is None else cache
     b = np.atleast_1d(np.asarray(bandwidths, dtype=float))
-    lags = np.array([kernel.lags_used(x, cache.nobs) for x in b])
+    lags = kernel.lags_many(b, cache.nobs)
     s = cache.unpack(cache.kernel_sums(kernel, b))
     if small_sample:
         s = s * model.small_sample_factor

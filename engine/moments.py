@@ -94,10 +94,10 @@ class MomentCache:
     def kernel_sums(self, kernel, bandwidths) -> np.ndarray:
         """sum_j k(j/b) C_j (packed) for each bandwidth: (n_b, P). Finite-support kernels use
         lags 0..ceil(b)-1 (one matrix product); infinite-support kernels use every lag 0..T-1,
-        the far lags by a factorised trigonometric sum (see `_qs_far_sums`)."""
+        the far lags by a factorised trigonometric sum (see `_qs_sums`)."""
         b = np.atleast_1d(np.asarray(bandwidths, dtype=float))
         if kernel.finite_support:
-            n_lags = int(max(kernel.lags_used(x, self.nobs) for x in b)) + 1
+            n_lags = int(kernel.lags_many(b, self.nobs).max()) + 1
             return kernel.weights(b, n_lags) @ self.packed(n_lags - 1)
         c = self.packed(self.nobs - 1)
         small_tail = 2 * c.shape[0] * c.shape[1] <= FAR_CACHE_LIMIT
@@ -136,40 +136,65 @@ class MomentCache:
 
 
 def _autocov_blocks(u: np.ndarray, max_lag: int) -> np.ndarray:
-    """Gamma_0..Gamma_L (full k x k each) by overlap-save FFT blocks, frequency-domain sum."""
+    """Gamma_0..Gamma_L (full k x k each) by overlap-save FFT blocks, frequency-domain sum.
+
+    One buffer holds every window (a block of the series and the L observations before it);
+    its transform is taken, the first L rows of each window are then zeroed in place and the
+    transform taken again (the block alone, at the same offset), so no padded copies are made."""
     t_obs, k = u.shape
     lag = max_lag
     block = max(4 * (lag + 1), 256)
     n_fft = sfft.next_fast_len(block + lag, real=True)
     block = n_fft - lag                            # use the padding we pay for anyway
     n_blocks = -(-t_obs // block)
-    padded = np.zeros((lag + n_blocks * block, k))
-    padded[lag: lag + t_obs] = u
-    current = padded[lag:].reshape(n_blocks, block, k)
-    window = np.lib.stride_tricks.sliding_window_view(padded, (block + lag, k))[::block, 0]
-    fa = sfft.rfft(current, n=n_fft, axis=1)      # (blocks, nf, k)
-    fe = sfft.rfft(window, n=n_fft, axis=1)
-    g = np.matmul(np.conj(fa).transpose(1, 2, 0), fe.transpose(1, 0, 2))   # (nf, k, k)
-    corr = sfft.irfft(g, n=n_fft, axis=0)         # corr[s] = sum_t u_t u_{t-(L-s)}'
-    return corr[lag::-1] / t_obs
+    win = np.empty((n_blocks, n_fft, k))
+    body = win[:, lag:]
+    full = t_obs // block
+    body[:full] = u[: full * block].reshape(full, block, k)
+    if full < n_blocks:
+        rest = t_obs - full * block
+        body[full, :rest] = u[full * block:]
+        body[full, rest:] = 0.0
+    win[0, :lag] = 0.0
+    if lag:
+        win[1:, :lag] = body[:-1, block - lag:]
+    fe = sfft.rfft(win, axis=1)                   # (blocks, nf, k): windows
+    win[:, :lag] = 0.0
+    fa = sfft.rfft(win, axis=1)                   # the blocks alone
+    del win
+    np.conjugate(fa, out=fa)
+    g = np.matmul(fa.transpose(1, 2, 0), fe.transpose(1, 0, 2))   # (nf, k, k)
+    corr = sfft.irfft(g, n=n_fft, axis=0)         # corr[s] = sum_t a_t u_{t+s}'
+    out = np.empty((lag + 1, k, k))
+    out[0] = corr[0]
+    if lag:
+        out[1:] = corr[: -lag - 1: -1]            # Gamma_j = corr[-j]
+    out /= t_obs
+    return out
 
 
 def _autocov_diagonal(u: np.ndarray, max_lag: int) -> np.ndarray:
     """Each column's own C_0..C_L (pair-major (k, L+1)) from one FFT padded to an even length
     n >= T + L + 1. The power spectrum P is real and even, so its inverse transform is a type-I
-    discrete cosine transform of P divided by n (no complex inverse needed)."""
-    t_obs = u.shape[0]
+    discrete cosine transform of P divided by n (no complex inverse needed). The padded input's
+    memory is reused for the power spectrum (fresh multi-megabyte arrays cost page faults)."""
+    t_obs, k = u.shape
     n_fft = sfft.next_fast_len(t_obs + max_lag + 1, real=True)
     while n_fft % 2:
         n_fft = sfft.next_fast_len(n_fft + 1, real=True)
-    f = sfft.rfft(np.ascontiguousarray(u.T), n=n_fft, axis=-1, workers=-1)
-    power = f.real**2
-    power += f.imag**2
-    del f
-    out = sfft.dct(power, type=1, axis=-1, workers=-1, overwrite_x=True)[:, : max_lag + 1]
-    out *= 2.0 / (t_obs * n_fft)
-    out[:, 0] *= 0.5
-    return np.ascontiguousarray(out)
+    n_freq = n_fft // 2 + 1
+    buf = np.zeros((k, n_fft))
+    buf[:, :t_obs] = u.T
+    f = sfft.rfft(buf, axis=-1, workers=-1)
+    parts = f.view(float)                          # (k, 2 n_freq): real and imaginary parts
+    np.square(parts, out=parts)
+    power = buf.reshape(-1)[: k * n_freq].reshape(k, n_freq)
+    np.add(parts[:, 0::2], parts[:, 1::2], out=power)
+    del f, parts
+    out = sfft.dct(power, type=1, axis=-1, workers=-1, overwrite_x=True)
+    res = out[:, : max_lag + 1] * (2.0 / (t_obs * n_fft))
+    res[:, 0] *= 0.5
+    return res
 
 
 def _autocov_all_pairs(u: np.ndarray, iu, chunk: int = 8) -> np.ndarray:
@@ -224,42 +249,54 @@ def _qs_sums(cache: "MomentCache", b: np.ndarray, c: np.ndarray) -> np.ndarray:
     n_far = cache.nobs - j0
     block = int(min(1024, max(64, 2 ** round(np.log2(np.sqrt(n_far))))))
     n_blk = -(-n_far // block)
-    cacheable = 2 * n_far * c.shape[1] <= FAR_CACHE_LIMIT
+    rows = c.T                                    # (P, T): each pair's lags, contiguous
+    p_all = rows.shape[0]
+    cacheable = 2 * n_far * p_all <= FAR_CACHE_LIMIT
     if cacheable and j0 in cache._far:
-        return near + _qs_far(b, theta, j0, *cache._far[j0], c.shape[1])
-    out = np.empty((len(b), c.shape[1]))
-    width = c.shape[1] if cacheable else max(1, FAR_CACHE_LIMIT // (2 * n_far))
-    for start in range(0, c.shape[1], width):
-        cols = slice(start, min(start + width, c.shape[1]))
-        tail = c[j0:, cols]
-        p = tail.shape[1]
-        j = np.arange(j0, j0 + n_far, dtype=float)[:, None]
-        h = np.zeros((n_blk * block, 2 * p))
-        h[:n_far, :p] = tail / j**3
-        h[:n_far, p:] = tail / j**2
-        # (block, n_blk * 2p): row r holds lag j0 + m*block + r of every block m
-        hmat = np.ascontiguousarray(h.reshape(n_blk, block, -1).transpose(1, 0, 2)
-                                    .reshape(block, -1))
-        del h
+        return near + _qs_far(theta, j0, block, n_blk, cache._far[j0], p_all)
+    out = np.empty((len(b), p_all))
+    width = p_all if cacheable else max(1, FAR_CACHE_LIMIT // (2 * n_far))
+    for start in range(0, p_all, width):
+        stop = min(start + width, p_all)
+        prepared = _qs_prepare(rows[start:stop], j0, block, n_blk)
         if cacheable:
-            cache._far[j0] = (block, n_blk, hmat)
-        out[:, cols] = _qs_far(b, theta, j0, block, n_blk, hmat, p)
+            cache._far[j0] = prepared
+        out[:, start:stop] = _qs_far(theta, j0, block, n_blk, prepared, stop - start)
     return near + out
 
 
-def _qs_far(b, theta, j0, block, n_blk, hmat, p):
+def _qs_prepare(rows: np.ndarray, j0: int, block: int, n_blk: int) -> np.ndarray:
+    """The far lags of each series divided by j^3 and by j^2, laid out for `_qs_far`:
+    (p * 2 * n_blk, block), row (q, part, m) holding lags j0 + m block .. j0 + (m+1) block - 1
+    of series q (zero past the last lag). Built by contiguous passes over the cache."""
+    p, n_lags = rows.shape
+    n_far = n_lags - j0
+    prepared = np.empty((p, 2, n_blk * block))
+    j = np.arange(j0, n_lags, dtype=float)
+    inv2 = 1.0 / j**2
+    inv3 = inv2 / j
+    np.multiply(rows[:, j0:], inv3, out=prepared[:, 0, :n_far])
+    np.multiply(rows[:, j0:], inv2, out=prepared[:, 1, :n_far])
+    prepared[:, :, n_far:] = 0.0
+    return prepared.reshape(p * 2 * n_blk, block)
+
+
+def _qs_far(theta, j0, block, n_blk, prepared, p):
     """The far-lag part of the Quadratic Spectral sums from a prepared tail (see _qs_sums)."""
-    r = np.arange(block, dtype=float)
-    phase = theta[:, None] * r[None, :]
-    trig = np.vstack([np.cos(phase), np.sin(phase)])                 # (2 n_b, block)
+    n_b = len(theta)
+    phase = np.arange(block, dtype=float)[:, None] * theta[None, :]
+    trig = np.hstack([np.cos(phase), np.sin(phase)])              # (block, 2 n_b)
     with blas_threads():              # one large, memory-bound product: both cores help
-        inner = (trig @ hmat).reshape(2, len(b), n_blk, 2 * p)
-    inner = inner[0] + 1j * inner[1]                                  # sum_r e^{i r theta} h
-    start = j0 + block * np.arange(n_blk, dtype=float)
-    outer = np.exp(1j * theta[:, None] * start[None, :])               # (n_b, n_blk)
-    total = np.einsum("bm,bmp->bp", outer, inner)
-    return (3.0 / theta**3)[:, None] * total[:, :p].imag \
-        - (3.0 / theta**2)[:, None] * total[:, p:].real
+        inner = (prepared @ trig).reshape(p, 2, n_blk, 2, n_b)     # [q, part, m, cos|sin, b]
+    angle = (j0 + block * np.arange(n_blk, dtype=float))[:, None] * theta[None, :]
+    oc, os_ = np.cos(angle), np.sin(angle)                          # e^{i a_m theta}, (m, b)
+    # sum_m e^{i a_m theta} (C_m + i S_m): real part sum oc C - os S, imaginary sum oc S + os C;
+    # the j^-3 sums enter by their imaginary part, the j^-2 sums by their real part
+    im3 = (np.einsum("mb,qmb->bq", oc, inner[:, 0, :, 1])
+           + np.einsum("mb,qmb->bq", os_, inner[:, 0, :, 0]))
+    re2 = (np.einsum("mb,qmb->bq", oc, inner[:, 1, :, 0])
+           - np.einsum("mb,qmb->bq", os_, inner[:, 1, :, 1]))
+    return (3.0 / theta**3)[:, None] * im3 - (3.0 / theta**2)[:, None] * re2
 
 
 #: Kernels with a closed form that sums every lag faster than evaluating k(j/b) at each lag.

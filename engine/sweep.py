@@ -171,7 +171,7 @@ def kernel_curves(model, estimators, values) -> dict:
             # V_ii = T sum_j w_j C_j(z)_ii with z_t = M g_t, the coefficients' influence series:
             # only k autocovariance series are needed, not m(m+1)/2 pairs
             var = model.nobs * factor * model.influence.kernel_sums(kern, b)
-            lg = np.array([kern.lags_used(x, model.nobs) for x in b])
+            lg = kern.lags_many(b, model.nobs)
             st = np.full(nb, "", dtype=object)
         else:
             s, lg, _, st = longrun.kernel_many(model, kern, b, small_sample=p["small_sample"],

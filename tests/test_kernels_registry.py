@@ -8,6 +8,7 @@ definition in engine/kernels.py plus these tests) and is checked against scipy's
 
 import numpy as np
 import pytest
+from hypothesis import given, settings, strategies as st
 from scipy import integrate, signal
 
 import lagwise
@@ -142,3 +143,14 @@ def test_bohman_matches_scipy_window_and_is_psd(fit):
         assert spec.min() >= -1e-10
     res = fit.infer(lagwise.estimator("kernel", kernel="bohman", bandwidth=9))
     assert np.linalg.eigvalsh(res.long_run.S).min() >= -1e-12
+
+
+@settings(max_examples=60, deadline=None)
+@given(bandwidths=st.lists(st.one_of(st.just(0.0), st.floats(1e-3, 5e3)), min_size=1,
+                           max_size=30),
+       nobs=st.integers(2, 3000))
+def test_lags_for_many_bandwidths_equal_lags_for_each(bandwidths, nobs):
+    """The vectorised lag count used by sweeps equals the per-bandwidth rule for every kernel."""
+    for kernel in KERNELS.values():
+        expect = [kernel.lags_used(b, nobs) for b in bandwidths]
+        assert kernel.lags_many(bandwidths, nobs).tolist() == expect
