@@ -284,18 +284,19 @@ def _qs_prepare(rows: np.ndarray, j0: int, block: int, n_blk: int) -> np.ndarray
 def _qs_far(theta, j0, block, n_blk, prepared, p):
     """The far-lag part of the Quadratic Spectral sums from a prepared tail (see _qs_sums)."""
     n_b = len(theta)
-    phase = np.arange(block, dtype=float)[:, None] * theta[None, :]
-    trig = np.hstack([np.cos(phase), np.sin(phase)])              # (block, 2 n_b)
+    phase = theta[:, None] * np.arange(block, dtype=float)[None, :]
+    trig = np.vstack([np.cos(phase), np.sin(phase)])              # (2 n_b, block)
     with blas_threads():              # one large, memory-bound product: both cores help
-        inner = (prepared @ trig).reshape(p, 2, n_blk, 2, n_b)     # [q, part, m, cos|sin, b]
+        inner = (trig @ prepared.T).reshape(2, n_b, p, 2, n_blk)   # [cos|sin, b, q, part, m]
+    cos_sums, sin_sums = inner[0], inner[1]
     angle = (j0 + block * np.arange(n_blk, dtype=float))[:, None] * theta[None, :]
     oc, os_ = np.cos(angle), np.sin(angle)                          # e^{i a_m theta}, (m, b)
     # sum_m e^{i a_m theta} (C_m + i S_m): real part sum oc C - os S, imaginary sum oc S + os C;
     # the j^-3 sums enter by their imaginary part, the j^-2 sums by their real part
-    im3 = (np.einsum("mb,qmb->bq", oc, inner[:, 0, :, 1])
-           + np.einsum("mb,qmb->bq", os_, inner[:, 0, :, 0]))
-    re2 = (np.einsum("mb,qmb->bq", oc, inner[:, 1, :, 0])
-           - np.einsum("mb,qmb->bq", os_, inner[:, 1, :, 1]))
+    im3 = (np.einsum("mb,bqm->bq", oc, sin_sums[:, :, 0])
+           + np.einsum("mb,bqm->bq", os_, cos_sums[:, :, 0]))
+    re2 = (np.einsum("mb,bqm->bq", oc, cos_sums[:, :, 1])
+           - np.einsum("mb,bqm->bq", os_, sin_sums[:, :, 1]))
     return (3.0 / theta**3)[:, None] * im3 - (3.0 / theta**2)[:, None] * re2
 
 
