@@ -25,7 +25,7 @@ from ..engine.panel import diagnose_panel, panel_sweep, periods_of
 import pandas as pd
 from . import figures as F
 from . import views as V
-from .layout import estimator_controls, rule_options
+from .layout import DEFAULT_FAMILY, estimator_controls, rule_options
 from .state import MAX_UPLOAD_BYTES, STORE, content_hash, key_for, spec_hash
 from .work import IDLE_POLLS, SHOW_AFTER, WORK, tracked
 
@@ -148,35 +148,31 @@ def is_gmm(model, method) -> bool:
 def sweep_for(session, fkey, model, est, method="2sls"):
     """The chart's sweep for the current family and options, computed once per fit. For a GMM
     fit the weighting follows the estimator (two-step estimates along the axis)."""
-    from ..engine.weakiv import gmm_axis_sweep, gmm_sweep
+    from ..engine.weakiv import gmm_curves, with_j
     family = est.family
-    if getattr(model, "panel", None) is not None and family.name != "cluster_kernel":
-        p = est.params if family.name == "driscoll_kraay" else {}
+    if getattr(model, "panel", None) is not None and family.panel_chart is not None:
+        p = family.panel_chart(est.params)
         small, repair = bool(p.get("small_sample", False)), bool(p.get("repair", True))
         key = key_for(fkey, "panel-sweep", small, repair)
         return STORE.derived(session, key, lambda: tracked(
             session, "Panel estimators along the bandwidth",
             lambda _p: panel_sweep(model, small_sample=small, repair=repair)))
     if family.axis is None:
-        family, est = FAMILIES["kernel"], engine.estimator("kernel", bandwidth=1.0)
+        family, est = FAMILIES[DEFAULT_FAMILY], engine.estimator(DEFAULT_FAMILY)
     gmm = is_gmm(model, method)
-    if family.name == "kernel":
-        p = est.params
-        curves = [engine.estimator("kernel", kernel=k, bandwidth=1.0,
-                                   small_sample=p["small_sample"], repair=p["repair"],
-                                   prewhiten=p["prewhiten"] and not gmm) for k in engine.KERNELS]
+    if family.companions is not None:
+        # a GMM sweep weights by the estimator itself: no prewhitening there
+        curves = [engine.estimator(family.name, **({**p, "prewhiten": False}
+                                                   if gmm and "prewhiten" in p else p))
+                  for p in family.companions(est.params)]
     else:
         curves = [est.at(1)]
     key = key_for(fkey, "sweep", method if gmm else "", spec_hash([c.settings() for c in curves]))
 
     def build():
-        if gmm and family.name == "kernel":
-            return gmm_sweep(model, [c.params["kernel"] for c in curves], None,
-                             curves[0].params["small_sample"], curves[0].params["repair"])
         if gmm:
-            return gmm_axis_sweep(model, curves[0])
+            return gmm_curves(model, curves)
         if isinstance(model, engine.IVFit):
-            from ..engine.weakiv import with_j
             return with_j(model, engine.sweep(model, curves))
         return engine.sweep(model, curves)
     what = family.axis.title if family.axis is not None else "settings"

@@ -9,16 +9,14 @@ from dash import dcc, html
 from ..engine import FAMILIES, KERNELS, TRANSFORMS
 from ..engine.gmm import METHODS
 from ..engine.covariance import Param
-from ..engine.laws import REQUESTS
+from ..engine.laws import REQUEST_LABELS, REQUESTS
 from .state import MAX_UPLOAD_BYTES
 from ..engine.data import MAX_CELLS, MAX_COLUMNS, MAX_LINE_CHARS
 from . import views
 from .work import POLL_MS
 
-REFERENCE_OPTIONS = [
-    {"label": {"auto": "auto (the estimator's own law)", "normal": "normal (large sample)",
-               "t": "Student t", "fixed-b": "fixed-b (Kiefer-Vogelsang)"}[k], "value": k,
-     "title": text} for k, text in REQUESTS.items()]
+REFERENCE_OPTIONS = [{"label": REQUEST_LABELS[k], "value": k, "title": text}
+                     for k, text in REQUESTS.items()]
 DEFAULT_FAMILY = "kernel"
 DEFAULT_RULE = "andrews"
 HELP = {

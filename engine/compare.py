@@ -11,7 +11,7 @@ import pandas as pd
 
 from .covariance import FAMILIES
 from .errors import LagwiseError, LawUnavailable
-from .laws import FixedB
+from .laws import row_suffix
 from .inference import infer
 
 COLUMNS = ["estimator", "family", "term", "estimate", "std_error", "t_stat", "p_value", "ci_low",
@@ -64,8 +64,7 @@ def compare(model, level: float = 0.95, reference: str = "auto", kernel=None, ba
         short = lags_short_of_horizon(model, lr)
         if short:
             why = (why + "; " if why else "") + short
-        if ref == "fixed-b" and isinstance(res.law, FixedB):
-            label += ", fixed-b"
+        label += row_suffix(ref)
         mc = res.law.mc_error(level)
         if mc is not None:
             why = (why + "; " if why else "") + \

@@ -93,6 +93,23 @@ class Family:
     presets: Callable[..., list] | None = None       # (model, kernel, bandwidth) -> rows
     applies: Callable[[object], str | None] = lambda model: None   # why it cannot, or None
     curve: Callable[[dict], str] | None = None       # params -> name of its sweep curve
+    #: True when S is a fixed quadratic form of the moment contributions for these params, so
+    #: S(b0) = S_yy - b0 (S_yx + S_xy) + b0^2 S_xx exactly for contributions g_y - b0 g_x (the
+    #: Anderson-Rubin set computes S once for the stacked series). Eigenvalue repair, prewhitening and order selection are
+    #: not.
+    quadratic: Callable[[dict], bool] = lambda params: False
+    #: True when the S this family gives is a fixed matrix up to a scalar (classical): GMM
+    #: weighted by it ends at the two-step estimate, so there is nothing to iterate.
+    fixed_weight: bool = False
+    #: params -> the params of every curve the sensitivity chart draws with this estimator
+    #: (the kernel family: one curve per kernel with the same options); None: its own curve.
+    companions: Callable[[dict], list] | None = None
+    #: (GMM fit, estimators, values) -> SweepResult: a vectorised two-step sweep (None: one
+    #: two-step fit per grid point).
+    gmm_sweep: Callable | None = None
+    #: For a panel fit, the options (small_sample, repair) of the panel sweep the chart shows
+    #: while this family is picked; None when the family's own axis is charted instead.
+    panel_chart: Callable[[dict], dict] | None = lambda params: {}
 
     def curve_label(self, params: dict) -> str:
         """The name of a sweep curve of this family (the axis value is on the x axis)."""
@@ -331,7 +348,7 @@ register_family(Family(
     assumptions="Errors are uncorrelated over time and have constant variance. Understates "
                 "uncertainty when either fails.",
     params=(), long_run=lambda model: longrun.classical(model), psd=lambda p: True,
-    label=lambda p, lr: "Classical (iid)", group="iid",
+    label=lambda p, lr: "Classical (iid)", group="iid", fixed_weight=True,
     presets=lambda model, kernel, bandwidth: [estimator("classical")]))
 
 _HC_TEXT = {
@@ -351,6 +368,7 @@ register_family(Family(
                   choices=("hc0", "hc1", "hc2", "hc3"), title="variant"),),
     long_run=lambda model, kind: longrun.heteroskedasticity_robust(model, kind),
     psd=lambda p: True, label=lambda p, lr: p["kind"].upper(), group="hc",
+    quadratic=lambda p: p["kind"] in ("hc0", "hc1"),     # HC2/HC3 divide by 1 - h_tt of X
     presets=lambda model, kernel, bandwidth: [
         estimator(k) for k in ("hc0", "hc1", "hc2", "hc3")
         if k in ("hc0", "hc1") or getattr(model, "leverage", None) is not None]),
@@ -423,6 +441,13 @@ def _kernel_sweep(model, estimators, values):
     return kernel_curves(model, estimators, values)
 
 
+def _kernel_gmm_sweep(fit, estimators, values):
+    from .weakiv import gmm_sweep
+    p = estimators[0].params
+    return gmm_sweep(fit, [e.params["kernel"] for e in estimators], values,
+                     p["small_sample"], p["repair"])
+
+
 register_family(Family(
     name="kernel", title="Kernel HAC",
     citation="Newey & West (1987); Andrews (1991), Econometrica 59(3)",
@@ -451,6 +476,9 @@ register_family(Family(
                          "ceil(b) - 1 lags",
                     rules={k: (v[0], {"bandwidth": k}) for k, v in RULES.items()}),
     fixed_b=_kernel_fixed_b, sweep=_kernel_sweep, presets=_kernel_presets, curve=_kernel_curve,
+    quadratic=lambda p: not p["prewhiten"] and (get_kernel(p["kernel"]).psd or not p["repair"]),
+    companions=lambda p: [{**p, "kernel": k, "bandwidth": 1.0} for k in KERNELS],
+    gmm_sweep=_kernel_gmm_sweep,
     applies=lambda model: _time_series_only(model)))
 
 
@@ -526,6 +554,7 @@ register_family(Family(
     ),
     long_run=lambda model, **p: longrun.ewc(model, **p), psd=lambda p: True,
     label=_ewc_label, group="ewc", curve=lambda p: "EWC" + small_sample_label(p),
+    quadratic=lambda p: True,
     axis=TuningAxis("cosines", "B", "cosine terms B", _ewc_grid,
                     help="S averages the first B cosine-weighted sums; the law is t(B)",
                     rules={"llsw": ("LLSW (2018), floor(0.4 T^(2/3))", {"cosines": "llsw"})}),
@@ -648,7 +677,8 @@ register_family(Family(
     axis=TuningAxis("bandwidth", "b", "bandwidth b (periods)", _period_grid,
                     help="lag j of the per-period sums gets weight k(j/b)",
                     rules={k: (v[0], {"bandwidth": k}) for k, v in RULES.items()}),
-    fixed_b=_kernel_fixed_b, sweep=_dk_sweep, presets=_dk_presets, curve=_dk_curve))
+    fixed_b=_kernel_fixed_b, sweep=_dk_sweep, presets=_dk_presets, curve=_dk_curve,
+    panel_chart=lambda p: {"small_sample": p["small_sample"], "repair": p["repair"]}))
 
 
 def _ck_long_run(model, *, kernel, bandwidth, small_sample):
@@ -697,6 +727,7 @@ register_family(Family(
                     help="lag j in time across entities gets weight k(j/b)",
                     rules={k: (v[0], {"bandwidth": k}) for k, v in RULES.items()}),
     curve=lambda p: f"Entity clusters + {get_kernel(p['kernel']).label} over time",
+    panel_chart=None,
     presets=lambda model, kernel, bandwidth: [estimator(
         "cluster_kernel", kernel=kernel or "bartlett",
         bandwidth=bandwidth if bandwidth is not None else "andrews")]))

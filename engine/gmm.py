@@ -356,7 +356,7 @@ class IVFit(MomentModel):
         value, so the objective is smooth)."""
         weight = as_estimator(weight)
         start = self.iterated(weight, max_iter=max_iter, tol=max(tol, 1e-6)) \
-            if weight.family.name != "classical" else self.two_step(weight)
+            if not weight.family.fixed_weight else self.two_step(weight)
         fixed = _fixed_bandwidth(weight, start)
         core = self.core
 

@@ -241,6 +241,20 @@ class FixedB(Law):
         return f"fixed-b law of W/{m} (b/T = {self.b_over_t:.3g})"
 
 
+#: Short names of the requests for pickers (REQUESTS holds the one-line descriptions).
+REQUEST_LABELS = {"auto": "auto (the estimator's own law)", "normal": "normal (large sample)",
+                  "t": "Student t", "fixed-b": "fixed-b (Kiefer-Vogelsang)"}
+
+#: Requests whose law is named in a row's label (it changes the critical value, not S).
+_NAMED_IN_ROWS = {"fixed-b": "fixed-b"}
+
+
+def row_suffix(requested: str) -> str:
+    """What a table row's estimator label gains under this request ('' for most)."""
+    name = _NAMED_IN_ROWS.get(requested)
+    return f", {name}" if name else ""
+
+
 def resolve(requested: str, own: Law | None, fixed_b, df_resid: float) -> Law:
     """The law for a request. `own`: the law the estimator's theory gives (None: normal);
     `fixed_b`: a function returning the fixed-b law or raising SpecificationError with the

@@ -25,6 +25,7 @@ import pandas as pd
 from scipy import stats
 
 from .errors import EstimationError, LagwiseError, SpecificationError
+from .laws import row_suffix
 from .model import INTERCEPT, OLSFit, SampleInfo
 
 BOOTSTRAP_METHODS = ("moving_block", "stationary", "circular", "wild")
@@ -382,7 +383,7 @@ def size_check(fit, estimators=None, reps: int = 1000, method: str = "var", seed
     items = [i if isinstance(i, tuple) else (as_estimator(i), None, "") for i in items]
     labels = []
     for est, ref, _ in items:
-        label = est.label + (", fixed-b" if ref == "fixed-b" else "")
+        label = est.label + row_suffix(ref)
         labels.append(label)
     settings = [(est.settings(), ref) for est, ref, _ in items]
     from ._threads import one_blas_thread

@@ -207,19 +207,6 @@ def anderson_rubin(fit, term: str, est, level: float = 0.95) -> ARSet:
                  _ar_reading(intervals, kind, (lo, hi), level), _p=p_value)
 
 
-def _bilinear(est) -> bool:
-    """Estimators of S that are fixed quadratic forms of the moment contributions, so that
-    S(b0) = S_yy - b0 (S_yx + S_xy) + b0^2 S_xx exactly (the eigenvalue repair, prewhitening
-    and VAR order selection are not)."""
-    from .kernels import get_kernel
-    p = est.params
-    if est.name == "hc":
-        return p["kind"] in ("hc0", "hc1")
-    if est.name == "kernel":
-        return not p["prewhiten"] and (get_kernel(p["kernel"]).psd or not p["repair"])
-    return est.name == "ewc"
-
-
 def _ar_p_value(est, zt, ey, ex, pi_y, pi_x, core):
     """p(b0) of the AR test of beta = b0 (b0 = +-inf: the limit, the first-stage Wald test).
     For estimators that are quadratic in the contributions, S is computed once for the stacked
@@ -235,7 +222,7 @@ def _ar_p_value(est, zt, ey, ex, pi_y, pi_x, core):
 
     ref = model_for(ey - float(pi_y @ pi_x / max(pi_x @ pi_x, 1e-300)) * ex, pi_y)
     law = est.family.law("auto", est.params, est.long_run(ref), ref)
-    if _bilinear(est):
+    if est.family.quadratic(est.params):
         stacked = _coefficient_model(zt, np.column_stack([ey, ex]), (core.excluded, ["y", "x"]),
                                      core.index, core.horizon)
         s = est.long_run(stacked).S
@@ -414,6 +401,17 @@ def with_j(fit, sweep):
     sweep.extras.update({"j_stat": j, "j_df": df,
                          "j_p_value": stats.chi2.sf(j, df) if df > 0 else j})
     return sweep
+
+
+def gmm_curves(fit, estimators, values=None):
+    """Two-step GMM along the axis of one family for each estimator: the family's vectorised
+    GMM sweep when it has one, else one two-step fit per grid point (one estimator)."""
+    family = estimators[0].family
+    if family.gmm_sweep is not None:
+        return family.gmm_sweep(fit, estimators, values)
+    if len(estimators) != 1:
+        raise SpecificationError(f"a two-step sweep of {family.title} moves one estimator")
+    return gmm_axis_sweep(fit, estimators[0], values)
 
 
 def gmm_axis_sweep(fit, est, values=None):

@@ -123,8 +123,7 @@ def test_anderson_rubin_set_shapes():
     k = lagwise.estimator("kernel", kernel="bartlett", bandwidth=4.0)
     direct = lagwise.estimator("kernel", kernel="truncated", bandwidth=4.0, repair=True)
     assert np.isfinite(fit.anderson_rubin_test("x", 0.7, direct))
-    from lagwise.engine.weakiv import _bilinear
-    assert _bilinear(k) and not _bilinear(direct)
+    assert k.family.quadratic(k.params) and not direct.family.quadratic(direct.params)
     df, zs = simulate(np.random.default_rng(10), n=200, strength=(0.0, 0.0), corr=0.5)
     weak = lagwise.fit_iv(df, "y", ["x"], ["x"], zs).anderson_rubin("x", "hc0")
     if weak.kind == "unbounded":

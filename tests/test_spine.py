@@ -197,3 +197,28 @@ def test_exact_fit_is_a_typed_error_not_an_infinite_t():
         fit.infer("hc1")
     comp = lagwise.compare(fit)
     assert comp.std_error.isna().all() and comp.note.str.contains("exactly").all()
+
+
+def test_no_switches_on_family_names_or_law_requests_outside_their_definitions():
+    """Families and reference laws carry their own behaviour (fields of Family, methods of
+    Law, `laws.row_suffix`): code elsewhere must not branch on a family's name or on a law
+    request's string. Scans the engine and app sources."""
+    import re
+    from pathlib import Path
+    from lagwise.engine.covariance import FAMILIES
+    from lagwise.engine.laws import REQUESTS
+    root = Path(__file__).resolve().parents[1]
+    names = "|".join(re.escape(n) for n in FAMILIES)
+    requests = "|".join(re.escape(r) for r in REQUESTS)
+    family_switch = re.compile(r"\.name\s*(==|!=)\s*[\"'](" + names + r")[\"']"
+                               r"|\.name\s+(not\s+)?in\s+\([^)]*[\"'](" + names + r")[\"']")
+    law_switch = re.compile(r"\b(ref|reference|requested|law)\s*(==|!=)\s*[\"'](" + requests
+                            + r")[\"']")
+    found = []
+    for path in sorted((root / "engine").glob("*.py")) + sorted((root / "app").glob("*.py")):
+        if path.name in ("laws.py",):
+            continue
+        for n, line in enumerate(path.read_text().splitlines(), 1):
+            if family_switch.search(line) or law_switch.search(line):
+                found.append(f"{path.relative_to(root)}:{n}: {line.strip()}")
+    assert not found, "\n".join(found)
