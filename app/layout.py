@@ -160,33 +160,9 @@ def rule_options(name: str) -> list[dict]:
         {"label": title, "value": key} for key, (title, _) in family.axis.rules.items()]
 
 
-def sidebar(initial_horizon=None, where: str = "this computer"):
-    return html.Aside([
-        html.H2("Data & model", className="lw-side-title"),
-        html.Div(dcc.Upload(id="upload", children=html.Div([
-            html.Strong("Drop a CSV or Parquet file"), html.Span(" or click to choose")]),
-            className="lw-upload", max_size=MAX_UPLOAD_BYTES, multiple=False),
-            **{"data-max-bytes": str(MAX_UPLOAD_BYTES)}),
-        html.Div(id="upload-limit-note", className="lw-message", role="alert"),
-        html.P(HELP["upload"] + f" The file goes to the Lagwise server on {where}.",
-               className="lw-help", id="upload-help"),
-        html.Div([html.Button("Use the demo data", id="load-demo", n_clicks=0,
-                              className="lw-btn-quiet"),
-                  html.Button("Use the panel demo", id="load-demo-panel", n_clicks=0,
-                              className="lw-btn-quiet")], className="lw-row"),
-        dcc.Loading(html.Div(id="upload-message", className="lw-message"), type="dot",
-                    color="#0e6e64"),
-        html.Ul(id="load-report", className="lw-report"),
-        html.Details([html.Summary("Preview and column summary"),
-                      grid("col-summary", views.SUMMARY_COLUMNS),
-                      grid("preview", [], height="260px")],
-                     className="lw-details"),
-        html.Label("response", className="lw-label"),
-        dcc.Dropdown(id="response", clearable=False),
-        html.Label("regressors", className="lw-label"),
-        dcc.Dropdown(id="regressors", multi=True),
-        dcc.Checklist(id="intercept", options=[{"label": " intercept", "value": "on"}],
-                      value=["on"], className="lw-check"),
+def _model_sections() -> list:
+    """The folding sections of the sidebar: panel, instruments, transforms."""
+    return [
         html.Details([
             html.Summary("Panel (entity by time)"),
             html.P(HELP["panel"], className="lw-help"),
@@ -226,6 +202,37 @@ def sidebar(initial_horizon=None, where: str = "this computer"):
                 className="lw-row"),
             html.Div(id="tf-message", className="lw-message")], className="lw-details",
             open=False),
+    ]
+
+
+def sidebar(initial_horizon=None, where: str = "this computer"):
+    return html.Aside([
+        html.H2("Data & model", className="lw-side-title"),
+        html.Div(dcc.Upload(id="upload", children=html.Div([
+            html.Strong("Drop a CSV or Parquet file"), html.Span(" or click to choose")]),
+            className="lw-upload", max_size=MAX_UPLOAD_BYTES, multiple=False),
+            **{"data-max-bytes": str(MAX_UPLOAD_BYTES)}),
+        html.Div(id="upload-limit-note", className="lw-message", role="alert"),
+        html.P(HELP["upload"] + f" The file goes to the Lagwise server on {where}.",
+               className="lw-help", id="upload-help"),
+        html.Div([html.Button("Use the demo data", id="load-demo", n_clicks=0,
+                              className="lw-btn-quiet"),
+                  html.Button("Use the panel demo", id="load-demo-panel", n_clicks=0,
+                              className="lw-btn-quiet")], className="lw-row"),
+        dcc.Loading(html.Div(id="upload-message", className="lw-message"), type="dot",
+                    color="#0e6e64"),
+        html.Ul(id="load-report", className="lw-report"),
+        html.Details([html.Summary("Preview and column summary"),
+                      grid("col-summary", views.SUMMARY_COLUMNS),
+                      grid("preview", [], height="260px")],
+                     className="lw-details"),
+        html.Label("response", className="lw-label"),
+        dcc.Dropdown(id="response", clearable=False),
+        html.Label("regressors", className="lw-label"),
+        dcc.Dropdown(id="regressors", multi=True),
+        dcc.Checklist(id="intercept", options=[{"label": " intercept", "value": "on"}],
+                      value=["on"], className="lw-check"),
+        *_model_sections(),
         html.Label("overlap horizon h (periods summed by the response)", className="lw-label"),
         dcc.Input(id="horizon", type="number", min=1, step=1, debounce=True,
                   placeholder="none", className="lw-input", value=initial_horizon),

@@ -287,3 +287,17 @@ def test_tuning_text_never_rounds_b_over_t_to_zero(fit):
     text = V.tuning_text(res, fit)
     value = float(re.search(r"b/T = ([0-9.e-]+)", text).group(1))
     assert value == pytest.approx(1.0 / fit.nobs, rel=5e-3) and value > 0
+
+
+def test_app_functions_stay_short():
+    """Thin callbacks and views: no function in app/ longer than 80 lines."""
+    import ast
+    from pathlib import Path
+    long = []
+    for path in sorted((Path(__file__).resolve().parents[1] / "app").glob("*.py")):
+        for node in ast.walk(ast.parse(path.read_text())):
+            if isinstance(node, (ast.FunctionDef, ast.AsyncFunctionDef)):
+                size = node.end_lineno - node.lineno + 1
+                if size > 80:
+                    long.append(f"{path.name}:{node.name} ({size} lines)")
+    assert not long, ", ".join(long)
