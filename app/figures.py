@@ -231,10 +231,17 @@ def _add_critical_lines(fig, cv, mode, reference):
                        font={"size": 11, "color": MUTED})
 
 
+#: Rule labels closer than this share of the axis are stacked instead of printed on each other.
+MARK_CROWD = 0.08
+
+
 def _add_marks(fig, sweep, j, mode, cv, marks):
-    """Markers where automatic rules land: marks = [(curve index, title, value)]."""
+    """Markers where automatic rules land: marks = [(curve index, title, value)]. Each label
+    sits above its marker on a short leader line; labels of rules landing close together are
+    stacked so that none is printed over another."""
     x = sweep.values
-    for n, (c, title, value) in enumerate(marks or []):
+    points = []
+    for c, title, value in marks or []:
         if value is None or not (x[0] <= value <= x[-1]):
             continue
         if mode == "se":
@@ -248,13 +255,21 @@ def _add_marks(fig, sweep, j, mode, cv, marks):
         ok = np.isfinite(series)
         if ok.sum() < 1:
             continue
-        yv = float(np.interp(value, x[ok], series[ok]))
-        fig.add_trace(go.Scatter(x=[value], y=[yv], mode="markers+text", text=[title],
-                                 textposition="top center" if n % 2 == 0 else "bottom center",
-                                 name=title, hovertemplate=f"{title}: %{{x:.3g}}<extra></extra>",
+        points.append((float(value), float(np.interp(value, x[ok], series[ok])), title))
+    span = max(float(x[-1] - x[0]), 1e-12)
+    level, last = 0, None
+    for value, yv, title in sorted(points):
+        level = level + 1 if last is not None and value - last < MARK_CROWD * span else 0
+        last = value
+        fig.add_trace(go.Scatter(x=[value], y=[yv], mode="markers", name=title,
+                                 hovertemplate=f"{title}: %{{x:.3g}}<extra></extra>",
                                  marker={"symbol": "diamond", "size": 10, "color": PAPER,
                                          "line": {"color": INK, "width": 1.5}},
-                                 textfont={"size": 10, "color": MUTED}, showlegend=False))
+                                 showlegend=False))
+        fig.add_annotation(x=value, y=yv, text=title, showarrow=True, arrowhead=0,
+                           arrowwidth=1, arrowcolor=MUTED, ax=0, ay=-(26 + 15 * level),
+                           font={"size": 10, "color": MUTED}, bgcolor="rgba(255,255,255,0.85)",
+                           borderpad=1)
 
 
 def interval_figure(comp: pd.DataFrame, term: str, level: float) -> go.Figure:

@@ -45,10 +45,22 @@ def test_sensitivity_figure_traces_axes_and_marker(fit, sweep):
     assert fig.layout.shapes[0].x0 == 13.0                                 # patched by sliders
     hlines = sorted(s.y0 for s in fig.layout.shapes[1:])
     assert hlines == pytest.approx([-1.959964, 1.959964], abs=1e-5)
-    mark = [t for t in fig.data if t.mode == "markers+text"][0]
+    mark = [t for t in fig.data if t.name == "Andrews (1991)"][0]
     assert mark.x[0] == 20.5
     assert mark.y[0] == pytest.approx(np.interp(20.5, sweep.bandwidths, sweep.t_stat[0, :, 1]))
+    label = [a for a in fig.layout.annotations if a.text == "Andrews (1991)"][0]
+    assert (label.x, label.y) == (mark.x[0], mark.y[0])
     assert "bandwidth b" in fig.layout.xaxis.title.text
+
+
+def test_rule_labels_landing_close_together_are_stacked(fit, sweep):
+    """Rules whose bandwidths are close get labels at different heights; a distant one is back
+    at the first height."""
+    marks = [(0, "rule A", 5.0), (0, "rule B", 6.0), (0, "rule C", 7.0), (0, "rule D", 35.0)]
+    fig = F.sensitivity_figure(sweep, "rate_capacity", "t", 0.95, "normal", 13.0, 0, marks)
+    ay = {a.text: a.ay for a in fig.layout.annotations if a.text.startswith("rule")}
+    assert len({ay["rule A"], ay["rule B"], ay["rule C"]}) == 3
+    assert ay["rule D"] == ay["rule A"]
 
 
 def test_sensitivity_figure_fixed_b_curve_and_modes(fit, sweep):
