@@ -74,7 +74,6 @@ def sensitivity_figure(sweep, term: str, mode: str = "t", level: float = 0.95,
     shown = [_add_curve(fig, sweep, c, j, mode, cv, c == current_curve)
              for c in range(len(sweep.labels))]
     _add_critical_lines(fig, cv, mode, reference)
-    _add_marks(fig, sweep, j, mode, cv, marks)
     if horizon and horizon > 1 and sweep.axis.symbol == "b" and sweep.values[0] <= horizon - 1:
         fig.add_vrect(x0=sweep.values[0], x1=horizon - 1, fillcolor="rgba(29,39,51,0.06)",
                       line_width=0, annotation_text=f"fewer than h - 1 = {horizon - 1} lags",
@@ -85,6 +84,7 @@ def sensitivity_figure(sweep, term: str, mode: str = "t", level: float = 0.95,
     rng = _add_reference_lines(fig, reference_lines or [], rng)
     if rng is not None:
         fig.update_yaxes(range=rng)
+    _add_marks(fig, sweep, j, mode, cv, marks, rng)
     ylab = {"t": f"t statistic of {term}", "se": f"standard error of {term}",
             "estimate": f"estimate of {term}", "ci": f"{level:.0%} interval for {term}"}[mode]
     xlab = sweep.axis.title + (" (lags used = ceil(b) - 1 for finite kernels)"
@@ -231,14 +231,15 @@ def _add_critical_lines(fig, cv, mode, reference):
                        font={"size": 11, "color": MUTED})
 
 
-#: Rule labels closer than this share of the axis are stacked instead of printed on each other.
-MARK_CROWD = 0.08
+#: For stacking rule labels: the plot's usual width in pixels and a label's width per character
+#: at font size 10 (estimates: the chart is responsive, so overlap is judged approximately).
+PLOT_PX, CHAR_PX = 560.0, 5.8
 
 
-def _add_marks(fig, sweep, j, mode, cv, marks):
+def _add_marks(fig, sweep, j, mode, cv, marks, rng=None):
     """Markers where automatic rules land: marks = [(curve index, title, value)]. Each label
-    sits above its marker on a short leader line; labels of rules landing close together are
-    stacked so that none is printed over another."""
+    sits on a short leader line, below its marker in the upper half of the y range `rng` and
+    above it otherwise (into the emptier half); labels that would overlap are stacked."""
     x = sweep.values
     points = []
     for c, title, value in marks or []:
@@ -257,19 +258,38 @@ def _add_marks(fig, sweep, j, mode, cv, marks):
             continue
         points.append((float(value), float(np.interp(value, x[ok], series[ok])), title))
     span = max(float(x[-1] - x[0]), 1e-12)
-    level, last = 0, None
-    for value, yv, title in sorted(points):
-        level = level + 1 if last is not None and value - last < MARK_CROWD * span else 0
-        last = value
-        fig.add_trace(go.Scatter(x=[value], y=[yv], mode="markers", name=title,
-                                 hovertemplate=f"{title}: %{{x:.3g}}<extra></extra>",
-                                 marker={"symbol": "diamond", "size": 10, "color": PAPER,
-                                         "line": {"color": INK, "width": 1.5}},
-                                 showlegend=False))
-        fig.add_annotation(x=value, y=yv, text=title, showarrow=True, arrowhead=0,
-                           arrowwidth=1, arrowcolor=MUTED, ax=0, ay=-(26 + 15 * level),
-                           font={"size": 10, "color": MUTED}, bgcolor="rgba(255,255,255,0.85)",
-                           borderpad=1)
+    if not points:
+        return
+    ys = [yv for _, yv, _ in points]
+    lo, hi = rng if rng is not None else (min(ys), max(ys))
+    height = max(hi - lo, 1e-12)
+    middle = 0.5 * (lo + hi)
+    # labels go into the emptier half: below markers in the upper half, above the others;
+    # rows of labels at fixed heights (in data units) so labels of one row never overlap
+    sides = {1: [p for p in points if p[1] > middle], -1: [p for p in points if p[1] <= middle]}
+    for side, group in sides.items():
+        if not group:
+            continue
+        start_y = (min(p[1] for p in group) - 0.12 * height) if side == 1 else \
+            (max(p[1] for p in group) + 0.12 * height)
+        ends: list[float] = []            # right edge (axis fraction) of the last label per row
+        for value, yv, title in sorted(group):
+            centre = (value - x[0]) / span
+            half = (len(title) * CHAR_PX + 10) / (2 * PLOT_PX)
+            level = next((r for r, end in enumerate(ends) if end < centre - half), len(ends))
+            if level == len(ends):
+                ends.append(0.0)
+            ends[level] = centre + half
+            fig.add_trace(go.Scatter(x=[value], y=[yv], mode="markers", name=title,
+                                     hovertemplate=f"{title}: %{{x:.3g}}<extra></extra>",
+                                     marker={"symbol": "diamond", "size": 10, "color": PAPER,
+                                             "line": {"color": INK, "width": 1.5}},
+                                     showlegend=False))
+            fig.add_annotation(x=value, y=yv, text=title, showarrow=True, arrowhead=0,
+                               arrowwidth=1, arrowcolor=MUTED, axref="x", ax=value, ayref="y",
+                               ay=start_y - side * 0.08 * height * level,
+                               font={"size": 10, "color": MUTED},
+                               bgcolor="rgba(255,255,255,0.85)", borderpad=1)
 
 
 def interval_figure(comp: pd.DataFrame, term: str, level: float) -> go.Figure:

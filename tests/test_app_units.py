@@ -54,13 +54,24 @@ def test_sensitivity_figure_traces_axes_and_marker(fit, sweep):
 
 
 def test_rule_labels_landing_close_together_are_stacked(fit, sweep):
-    """Rules whose bandwidths are close get labels at different heights; a distant one is back
-    at the first height."""
-    marks = [(0, "rule A", 5.0), (0, "rule B", 6.0), (0, "rule C", 7.0), (0, "rule D", 35.0)]
+    """Rules whose labels would overlap get different heights, and labels at one height never
+    overlap (by the figure's own width estimate); each label's leader line starts at its
+    marker."""
+    marks = [(0, "rule A", 5.0), (0, "rule B", 6.0), (0, "rule C", 7.0), (0, "rule D", 35.0),
+             (1, "a much longer rule name", 33.0)]
     fig = F.sensitivity_figure(sweep, "rate_capacity", "t", 0.95, "normal", 13.0, 0, marks)
-    ay = {a.text: a.ay for a in fig.layout.annotations if a.text.startswith("rule")}
-    assert len({ay["rule A"], ay["rule B"], ay["rule C"]}) == 3
-    assert ay["rule D"] == ay["rule A"]
+    labels = [a for a in fig.layout.annotations if a.text.startswith(("rule", "a much"))]
+    assert len(labels) == 5
+    heights = {a.text: a.ay for a in labels}
+    assert len({heights["rule A"], heights["rule B"], heights["rule C"]}) == 3
+    span = sweep.values[-1] - sweep.values[0]
+    for a in labels:
+        for b in labels:
+            if a.text < b.text and a.ay == b.ay:
+                gap = abs(a.x - b.x) / span * F.PLOT_PX
+                assert gap >= (len(a.text) + len(b.text)) * F.CHAR_PX / 2 + 10
+        marker = [t for t in fig.data if t.name == a.text][0]
+        assert (a.x, a.y) == (marker.x[0], marker.y[0]) and a.ax == a.x
 
 
 def test_sensitivity_figure_fixed_b_curve_and_modes(fit, sweep):
