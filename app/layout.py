@@ -96,9 +96,11 @@ def export_menu(target: str, formats, copy: bool = False) -> html.Div:
 
 
 def graph(gid: str, height: int = 360):
+    """A chart that reserves `height` pixels while computing and then takes the height of its
+    figure (a comparison of many estimators or a chart with a J panel is taller)."""
     from .figures import empty_figure
     return dcc.Loading(dcc.Graph(
-        id=gid, style={"height": f"{height}px"}, figure=empty_figure("computing...", height),
+        id=gid, style={"minHeight": f"{height}px"}, figure=empty_figure("computing...", height),
         config={"displaylogo": False, "toImageButtonOptions": {
             "format": "png", "filename": f"lagwise_{gid}", "scale": 2}}),
         type="dot", color="#0e6e64")

@@ -293,6 +293,18 @@ def test_twenty_concurrent_sessions_see_only_their_own_data(browser, live_server
         c.close()
 
 
+def charts_inside_their_cards(page: Page):
+    """Every chart ends inside its card (a tall figure must grow its card, not spill over the
+    next one)."""
+    page.wait_for_function(
+        "() => (document.getElementById('interval-graph').querySelector('.js-plotly-plot')"
+        ".data || []).some(t => (t.y || []).length > 12)", timeout=30_000)
+    for gid in ("sens-graph", "interval-graph"):
+        chart = page.locator(f"#{gid} .main-svg").first.bounding_box()   # the drawn figure
+        box = card(page, gid).bounding_box()
+        assert chart["y"] + chart["height"] <= box["y"] + box["height"] + 1, gid
+
+
 def test_instrumental_variables_in_the_page(page: Page, live_server):
     """Mark a regressor endogenous, add instruments, choose two-step GMM: the estimate, the J
     test and the Anderson-Rubin set appear, and moving the slider moves the estimate."""
@@ -327,6 +339,7 @@ def test_instrumental_variables_in_the_page(page: Page, live_server):
     page.wait_for_function(
         "() => document.getElementById('sens-graph').querySelector('.js-plotly-plot')"
         ".layout.title.text.includes('J test')")
+    charts_inside_their_cards(page)                 # the J panel makes the chart taller
 
 
 def test_panel_demo_in_the_page(page: Page, live_server, tmp_path):
