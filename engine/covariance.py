@@ -95,8 +95,8 @@ class Family:
     curve: Callable[[dict], str] | None = None       # params -> name of its sweep curve
     #: True when S is a fixed quadratic form of the moment contributions for these params, so
     #: S(b0) = S_yy - b0 (S_yx + S_xy) + b0^2 S_xx exactly for contributions g_y - b0 g_x (the
-    #: Anderson-Rubin set computes S once for the stacked series). Eigenvalue repair, prewhitening and order selection are
-    #: not.
+    #: Anderson-Rubin set computes S once for the stacked series). Eigenvalue repair,
+    #: prewhitening and order selection are not.
     quadratic: Callable[[dict], bool] = lambda params: False
     #: True when the S this family gives is a fixed matrix up to a scalar (classical): GMM
     #: weighted by it ends at the two-step estimate, so there is nothing to iterate.
