@@ -171,6 +171,17 @@ def _curve_dash(sweep, c) -> str:
     return "dashdot" if groups and groups[c] != groups[0] else "solid"
 
 
+def _values(sweep, c, j, mode, cv):
+    """What curve c shows for term j in `mode` (for "ci": the upper end of the interval)."""
+    if mode == "se":
+        return sweep.std_error[c, :, j]
+    if mode == "estimate":
+        return sweep.estimate[c, :, j]
+    if mode == "ci":
+        return sweep.estimate[c, :, j] + cv[c] * sweep.std_error[c, :, j]
+    return sweep.t_stat[c, :, j]
+
+
 def _add_curve(fig, sweep, c, j, mode, cv, current):
     """One curve (and its flagged points); returns (its y values, which are ordinary)."""
     from ..engine.sweep import STATUS_TEXT
@@ -189,7 +200,7 @@ def _add_curve(fig, sweep, c, j, mode, cv, current):
                                  line={"color": color, "width": width, "dash": "dash"},
                                  showlegend=False))
         return np.r_[y, y2], np.r_[~odd, ~odd]
-    y = se if mode == "se" else est if mode == "estimate" else sweep.t_stat[c, :, j]
+    y = _values(sweep, c, j, mode, cv)
     fig.add_trace(go.Scatter(x=x, y=np.where(odd, np.nan, y), mode="lines", name=short,
                              line={"color": color, "width": width,
                                    "dash": _curve_dash(sweep, c)},
@@ -245,21 +256,14 @@ def _add_marks(fig, sweep, j, mode, cv, marks, rng=None):
     for c, title, value in marks or []:
         if value is None or not (x[0] <= value <= x[-1]):
             continue
-        if mode == "se":
-            series = sweep.std_error[c, :, j]
-        elif mode == "estimate":
-            series = sweep.estimate[c, :, j]
-        elif mode == "ci":
-            series = sweep.estimate[c, :, j] + cv[c] * sweep.std_error[c, :, j]
-        else:
-            series = sweep.t_stat[c, :, j]
+        series = _values(sweep, c, j, mode, cv)
         ok = np.isfinite(series)
         if ok.sum() < 1:
             continue
         points.append((float(value), float(np.interp(value, x[ok], series[ok])), title))
-    span = max(float(x[-1] - x[0]), 1e-12)
     if not points:
         return
+    span = max(float(x[-1] - x[0]), 1e-12)
     ys = [yv for _, yv, _ in points]
     lo, hi = rng if rng is not None else (min(ys), max(ys))
     height = max(hi - lo, 1e-12)
