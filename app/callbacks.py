@@ -19,9 +19,12 @@ from dash import ALL, Input, Output, Patch, State, ctx, html, no_update
 from dash.exceptions import PreventUpdate
 
 from .. import engine
-from ..engine.covariance import FAMILIES
-from ..engine.model import index_label
-from ..engine.panel import diagnose_panel, panel_sweep, periods_of
+from ..engine.covariance.registry import FAMILIES
+from ..engine.data.columns import index_label
+from ..engine.data.panels import periods_of
+from ..engine.models.iv_sweep import gmm_curves, with_j
+from ..engine.studies.panel_diagnostics import diagnose_panel
+from ..engine.studies.panel_sensitivity import panel_sweep
 import pandas as pd
 from . import figures as F
 from . import views as V
@@ -148,7 +151,6 @@ def is_gmm(model, method) -> bool:
 def sweep_for(session, fkey, model, est, method="2sls"):
     """The chart's sweep for the current family and options, computed once per fit. For a GMM
     fit the weighting follows the estimator (two-step estimates along the axis)."""
-    from ..engine.weakiv import gmm_curves, with_j
     family = est.family
     if getattr(model, "panel", None) is not None and family.panel_chart is not None:
         p = family.panel_chart(est.params)
@@ -686,7 +688,7 @@ def on_sensitivity(fkey, reference, level, focus, mode, name, values, rule, meth
         if getattr(model, "panel", None) is not None and mode in ("t", "se"):
             lines += panel_reference_lines(session, fkey, model, focus, col, level,
                                            skip=res.label)
-        ref = reference if np.isfinite(sweep.critical_values(level, reference)).any() else "auto"
+        ref = reference if np.isfinite(sweep.critical_values(level, reference, focus)).any() else "auto"
         fig = F.sensitivity_figure(sweep, focus, mode or "t", level, ref, slider,
                                    _current_curve(sweep, est) if sweep.family is est.family
                                    else None, rule_marks(session, fkey, model, est, sweep),

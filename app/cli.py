@@ -89,7 +89,7 @@ def weight_arg(text):
 
 def load_and_fit(args, bar=None):
     from .. import engine
-    from ..engine.model import as_list
+    from ..engine.data.columns import as_list
     if bar is not None:
         bar.set_description("reading the file")
     table = engine.load_table(args.file)
@@ -115,8 +115,8 @@ def load_and_fit(args, bar=None):
 
 def cmd_table(args) -> int:
     from .. import engine
-    from ..engine.compare import compare
-    from ..engine.sweep import flip_summary
+    from ..engine.inference.compare import compare
+    from ..engine.inference.sweep import flip_summary
 
     bar = progress_bar(4, "reading the file")
     fit = load_and_fit(args, bar)
@@ -145,7 +145,7 @@ def cmd_table(args) -> int:
 
 def write_output(args, fit, comp, extra, what: str) -> int:
     """The comparison as text (our layout) or a table format, to a file or stdout."""
-    from ..engine.export import render
+    from ..engine.io.tables import render
     if args.format == "text":
         out = render_text(fit, comp, args.level, extra)
     else:
@@ -163,7 +163,7 @@ def write_output(args, fit, comp, extra, what: str) -> int:
 def predictive_lines(fit, args) -> list[str]:
     """Persistence, horizons, bootstrap and the size check, as asked for on the command line."""
     from .. import engine
-    from ..engine.model import INTERCEPT
+    from ..engine.data.columns import INTERCEPT
     lines = []
     slopes = [t for t in fit.terms if t != INTERCEPT]
     focus = args.focus or (slopes[0] if slopes else None)
@@ -239,10 +239,11 @@ def iv_lines(fit, est, level) -> list[str]:
 def panel_flip_lines(fit, kernel: str = "bartlett", level: float = 0.95) -> list[str]:
     """Where each slope's conclusion changes along the Driscoll-Kraay bandwidth."""
     from .. import engine
+    from ..engine.laws.fixedb import available
     sw = fit.sweep([kernel])
     lines = ["", f"Where the conclusion changes (Driscoll-Kraay, {engine.get_kernel(kernel).label} "
                  f"kernel, b = {sw.values[0]:g}..{sw.values[-1]:g} periods)"]
-    refs = ["normal"] + (["fixed-b"] if engine.fixedb.available(kernel) else [])
+    refs = ["normal"] + (["fixed-b"] if available(kernel) else [])
     for term in fit.terms:
         if term == "intercept":
             continue
@@ -255,7 +256,7 @@ def panel_flip_lines(fit, kernel: str = "bartlett", level: float = 0.95) -> list
 def cmd_panel(args) -> int:
     from .. import engine
     from ..engine.distributed import is_distributed
-    from ..engine.model import as_list
+    from ..engine.data.columns import as_list
 
     effects = {"none": (), "entity": ("entity",), "time": ("time",),
                "both": ("entity", "time")}[args.effects]

@@ -13,8 +13,8 @@ import plotly.graph_objects as go
 from dash import ALL, Input, Output, State, ctx, no_update
 
 from .. import engine
-from ..engine.export import (FORMATS, SETTINGS_VERSION, load_settings, render,
-                             settings_json)
+from ..engine.io.settings import SETTINGS_VERSION, load_settings, settings_json, validate_settings
+from ..engine.io.tables import FORMATS, render
 from . import views as V
 from .callbacks import (comparison_for, diagnostics_for, guarded, is_gmm, make_estimator,
                         param_values, stored, strength_for, view_inference)
@@ -111,7 +111,7 @@ def table_frame(target, session, fkey, model, res, focus, reference, base=None, 
         return pd.DataFrame(rows), f"{base.response}: instrument strength and specification", \
             notes
     if target == "persistence-table":
-        from ..engine.predictive import persistence_report
+        from ..engine.studies.predictive import persistence_report
         rep = persistence_report(base if base is not None else model,
                                  focus if focus != engine.INTERCEPT else None, level=res.level)
         rows = [{"quantity": r["quantity"], "value": r["value"], "detail": r["detail"]}

@@ -17,7 +17,7 @@ GRID = "#e7e4dc"
 ACCENT = "#0e6e64"
 WARN = "#b4541a"
 FONT = "Liberation Sans, Helvetica Neue, Arial, sans-serif"
-from ..engine.kernels import PALETTE  # noqa: E402 - the engine's palette for unnamed curves
+from ..engine.covariance.kernels import PALETTE  # noqa: E402 - the engine's palette for unnamed curves
 
 
 def _base(fig: go.Figure, title: str, height: int = 360) -> go.Figure:
@@ -66,7 +66,7 @@ def sensitivity_figure(sweep, term: str, mode: str = "t", level: float = 0.95,
     reference_lines: [(label, value)] horizontal lines (e.g. an estimator without an axis).
     horizon: an overlapping response's h; bandwidths whose lags fall short of h - 1 are shaded."""
     j = sweep.terms.index(term)
-    cv = sweep.critical_values(level, reference)
+    cv = sweep.critical_values(level, reference, term)
     fig = go.Figure()
     x_cur = float(current) if current is not None else float(sweep.values[0])
     fig.add_shape(type="line", x0=x_cur, x1=x_cur, y0=0, y1=1, yref="paper",
@@ -156,7 +156,7 @@ def _with_j_panel(fig, sweep, current_curve, xlab):
 def _curve_style(sweep, c, current: bool):
     """(colour, legend name, width) of a curve; a curve of another group than the first (the
     Fama-MacBeth curve of a panel sweep) is named by its group and drawn in ink."""
-    from ..engine.kernels import KERNELS
+    from ..engine.covariance.kernels import KERNELS
     kern = KERNELS.get(sweep.estimators[c].params.get("kernel", ""))
     color = kern.color if kern else PALETTE[c % len(PALETTE)]
     short = kern.short if kern else sweep.labels[c]
@@ -184,7 +184,7 @@ def _values(sweep, c, j, mode, cv):
 
 def _add_curve(fig, sweep, c, j, mode, cv, current):
     """One curve (and its flagged points); returns (its y values, which are ordinary)."""
-    from ..engine.sweep import STATUS_TEXT
+    from ..engine.inference.sweep import STATUS_TEXT
     color, short, width = _curve_style(sweep, c, current)
     x, se, est = sweep.values, sweep.std_error[c, :, j], sweep.estimate[c, :, j]
     odd = sweep.status[c] != ""

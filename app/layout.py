@@ -7,11 +7,11 @@ import dash_ag_grid as dag
 from dash import dcc, html
 
 from ..engine import FAMILIES, KERNELS, TRANSFORMS
-from ..engine.gmm import METHODS
-from ..engine.covariance import Param
-from ..engine.laws import REQUEST_LABELS, REQUESTS
+from ..engine.models.iv import METHODS
+from ..engine.covariance.registry import Param
+from ..engine.laws.reference import REQUEST_LABELS, REQUESTS
 from .state import MAX_UPLOAD_BYTES
-from ..engine.data import MAX_CELLS, MAX_COLUMNS, MAX_LINE_CHARS
+from ..engine.data.reading import MAX_CELLS, MAX_COLUMNS, MAX_LINE_CHARS
 from . import views
 from .work import POLL_MS
 

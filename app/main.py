@@ -137,7 +137,7 @@ def serve(file=None, host: str = "127.0.0.1", port: int = 8050, debug: bool = Fa
           settings=None, allowed_hosts=()) -> int:
     settings_record = None
     if settings:
-        from ..engine.export import load_settings
+        from ..engine.io.settings import load_settings
         settings_record = load_settings(Path(settings).read_bytes())
     if file:
         from .. import engine

@@ -10,8 +10,10 @@ import webbrowser
 import pandas as pd
 
 from .. import engine
-from ..engine.data import LoadReport, Table
-from ..engine.model import INTERCEPT
+from ..engine.data.table import LoadReport, Table
+from ..engine.data.columns import INTERCEPT
+from ..engine.io.settings import validate_settings
+from ..engine.models.iv import METHODS
 
 
 class Shown:
@@ -47,7 +49,7 @@ def table_and_settings(fit):
     if isinstance(fit, engine.IVFit):
         core = fit.core
         record.update(endogenous=list(core.endogenous), instruments=list(core.excluded),
-                      method=fit.method if fit.method in engine.gmm.METHODS else "2sls")
+                      method=fit.method if fit.method in METHODS else "2sls")
     if panel is not None:
         record.update(entity=panel.entity, time=panel.time, effects=list(panel.effects),
                       estimator="driscoll_kraay")
@@ -91,7 +93,7 @@ def table_and_settings(fit):
         spec["one_period"] = {fit.response: str(one.name)}
         spec["horizons"] = {fit.response: fit.horizon}
     record = {k: v for k, v in record.items() if v is not None}
-    return table, engine.export.validate_settings(record), spec
+    return table, validate_settings(record), spec
 
 
 def _in_notebook() -> bool:

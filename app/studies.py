@@ -17,9 +17,10 @@ from dash import ALL, Input, Output, State, ctx, html, no_update
 from dash.exceptions import PreventUpdate
 
 from .. import engine
-from ..engine.model import INTERCEPT, OLSFit, SampleInfo
-from ..engine.predictive import PERSISTENCE_THRESHOLD, horizon_sweep, persistence_report
-from ..engine.simulate import size_check
+from ..engine.data.columns import INTERCEPT, SampleInfo
+from ..engine.models.ols import OLSFit
+from ..engine.studies.predictive import PERSISTENCE_THRESHOLD, horizon_sweep, persistence_report
+from ..engine.studies.size_check import size_check
 from . import figures as F
 from . import views as V
 from .callbacks import RUNNING, guarded, stored
@@ -213,7 +214,7 @@ def on_size_job(set_progress, token):
           Input({"type": "export-size", "fmt": ALL}, "n_clicks"), State("size-data", "data"),
           prevent_initial_call=True)
 def on_size_export(clicks, data):
-    from ..engine.export import render
+    from ..engine.io.tables import render
     trig = ctx.triggered_id
     if not isinstance(trig, dict) or not any(c for c in clicks or [] if c):
         raise PreventUpdate
@@ -235,7 +236,7 @@ def on_size_export(clicks, data):
 
 def _estimator_options(model) -> list[dict]:
     import json
-    from ..engine.compare import family_presets
+    from ..engine.inference.compare import family_presets
     seen, out = set(), []
     for item in family_presets(model):
         est = item[0] if isinstance(item, tuple) else item

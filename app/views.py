@@ -10,8 +10,8 @@ import numpy as np
 import pandas as pd
 from dash import html
 
-from ..engine.export import render
-from ..engine.sweep import times
+from ..engine.io.tables import render
+from ..engine.inference.sweep import times
 
 #: Transform pickers show these titles (engine names are the values).
 TRANSFORM_TITLES = {"lag": "lag p", "lead": "lead p", "difference": "difference", "log": "log",
@@ -233,7 +233,7 @@ def tuning_text(res, model) -> str:
 def shortfall_note(res, model) -> str | None:
     """The warning for a kernel estimate with fewer than h - 1 lags under an overlapping
     h-period response (see engine.compare.lags_short_of_horizon)."""
-    from ..engine.compare import lags_short_of_horizon
+    from ..engine.inference.compare import lags_short_of_horizon
     return lags_short_of_horizon(model, res.long_run)
 
 
@@ -274,7 +274,7 @@ def flip_line(flip) -> str:
 
 def flagged_points_note(sweep) -> list:
     """A line under the chart for each kind of flagged point it draws hollow."""
-    from ..engine.sweep import STATUS_TEXT
+    from ..engine.inference.sweep import STATUS_TEXT
     out = []
     for status in sorted({x for x in sweep.status.ravel() if x}):
         curves = [lab for lab, row in zip(sweep.labels, sweep.status) if (row == status).any()]

@@ -11,24 +11,36 @@ Public API (re-exported as `lagwise`; see README.md):
 
 from .errors import (DataError, EstimationError, LagwiseError, LawUnavailable,
                      SpecificationError)
-from .data import LoadReport, Table, load_table, transform, TRANSFORMS
-from .kernels import KERNELS, Kernel, get_kernel, register_kernel
-from .laws import EWCLaw, FixedB, Law, Normal, StudentT
-from .model import MomentModel, OLSFit, SeriesModel, fit_ols, INTERCEPT
-from .gmm import IVFit, fit_iv
-from .panel import FamaMacBethFit, PanelFit, fit_fama_macbeth, fit_panel
-from .predictive import HorizonSweep, IVXResult, PersistenceReport, horizon_sweep, ivx_test, \
-    persistence_report
-from .simulate import BootstrapResult, SizeCheck, bootstrap, size_check
-from .ecosystem import RobustnessTable, fit, from_statsmodels, robustness_table
-from .covariance import (FAMILIES, Estimator, Family, Param, TuningAxis, estimator, estimators,
-                         register_family)
-from .bandwidth import RULES as BANDWIDTH_RULES, select_bandwidth, BandwidthChoice
-from .inference import Inference, WaldTest, infer
-from .sweep import Flip, SweepResult, significance_flip, sweep
-from .fixedb import fixed_b_critical_value, fixed_b_p_value
-from .compare import compare
-from .diagnostics import DiagnosticReport, diagnose
+from .capabilities import Capabilities
+from .data.reading import load_table
+from .data.table import LoadReport, Table
+from .data.transforms import TRANSFORMS, transform
+from .data.columns import INTERCEPT
+from .laws.reference import EWCLaw, FixedB, Law, Normal, StudentT
+from .laws.fixedb import fixed_b_critical_value, fixed_b_p_value
+from . import covariance as _covariance  # noqa: F401 - registers the shipped families
+from .covariance.kernels import KERNELS, Kernel, get_kernel, register_kernel
+from .covariance.bandwidth import RULES as BANDWIDTH_RULES, BandwidthChoice, select_bandwidth
+from .covariance.registry import (FAMILIES, Estimator, Family, Param, TuningAxis, estimator,
+                                  estimators, register_family)
+from .inference.infer import Inference, WaldTest, infer
+from .inference.sweep import Flip, SweepResult, significance_flip, sweep
+from .inference.compare import compare
+from .models.base import MomentModel
+from .models.ols import OLSFit, fit_ols
+from .models.series import SeriesModel
+from .models.iv import IVFit, fit_iv
+from .models.panel import PanelFit, fit_panel
+from .models.fama_macbeth import FamaMacBethFit, fit_fama_macbeth
+from .studies.predictive import (HorizonSweep, IVXResult, PersistenceReport, horizon_sweep,
+                                 ivx_test, persistence_report)
+from .studies.bootstrap import BootstrapResult, bootstrap
+from .studies.size_check import SizeCheck, size_check
+from .studies.diagnostics import DiagnosticReport, diagnose
+from .io.formulas import fit
+from .io.adapters import from_statsmodels
+from .io.robustness import RobustnessTable, robustness_table
+from . import distributed as _distributed  # noqa: F401 - registers the Dask path
 
 __all__ = [
     "DataError", "EstimationError", "LagwiseError", "LawUnavailable", "SpecificationError",

@@ -19,7 +19,7 @@ from lagwise.app import figures as F
 from lagwise.app import views as V
 from lagwise.app.callbacks import make_estimator, param_values
 from lagwise.app.state import CapacityError, SessionError, Store
-from lagwise.engine.compare import compare
+from lagwise.engine.inference.compare import compare
 from lagwise._files import assets_dir, demo_file
 
 
@@ -273,7 +273,7 @@ def test_serve_from_another_directory_finds_css_and_demo(tmp_path):
 def test_create_app_with_settings_file(tmp_path):
     from lagwise.app.cli import build_parser
     from lagwise.app.main import create_app
-    from lagwise.engine.export import load_settings, settings_json
+    from lagwise.engine.io.settings import load_settings, settings_json
     record = {"response": "exret_1m", "regressors": ["credit_spread"], "estimator": "ewc",
               "params": {"cosines": 12}, "rule": "fixed", "level": 0.9}
     path = tmp_path / "s.json"

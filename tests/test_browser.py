@@ -420,7 +420,7 @@ def test_persistence_card_and_size_check_with_progress_and_cancel(page: Page, li
     fit = lagwise.fit_ols(lagwise.load_table(DEMO), "exret_12m", ["rate_capacity",
                                                                    "credit_spread"],
                           horizon=12, one_period="exret_1m")
-    rep = lagwise.engine.predictive.persistence_report(fit, "rate_capacity")
+    rep = lagwise.engine.studies.predictive.persistence_report(fit, "rate_capacity")
     expect(cells(page, "persistence-table", "value").first).to_have_text(fmt(rep.rho, 4),
                                                                          timeout=20_000)
     expect(page.locator("#persistence-reading")).to_contain_text("IVX")
@@ -435,7 +435,7 @@ def test_persistence_card_and_size_check_with_progress_and_cancel(page: Page, li
                                                                       timeout=120_000)
     expect(page.locator("#size-progress-text")).to_have_text("200 of 200 replications")
     expect(page.locator("#size-status")).to_contain_text("200 replications at T = 408")
-    ref = lagwise.engine.simulate.size_check(
+    ref = lagwise.engine.studies.size_check.size_check(
         lagwise.app.studies.lean_copy(fit), reps=200, seed=0, focus="rate_capacity",
         workers=1).frame
     expect(cells(page, "size-table", "rejection_rate").first).to_have_text(

@@ -9,7 +9,7 @@ import pytest
 
 import lagwise
 from lagwise.app.cli import main
-from lagwise.engine.export import to_csv, to_latex, to_markdown, render
+from lagwise.engine.io.tables import to_csv, to_latex, to_markdown, render
 from lagwise._files import demo_file
 
 DEMO = str(demo_file())
@@ -124,7 +124,7 @@ def test_csv_keeps_numbers_and_notes_go_first():
 
 
 def test_settings_from_an_earlier_version_load_through_a_mapping():
-    from lagwise.engine.export import load_settings
+    from lagwise.engine.io.settings import load_settings
     old = {"lagwise_settings": 1, "transforms": [["fsum", "exret_1m", 12]],
            "response": "fsum12(exret_1m)", "regressors": ["lag1(x)"], "estimator": "ewc",
            "params": {"terms": 10}, "rule": "fixed", "bandwidth": 10}
@@ -149,7 +149,7 @@ def test_settings_from_an_earlier_version_load_through_a_mapping():
 ])
 def test_bad_settings_get_one_clear_message(record, message):
     import json
-    from lagwise.engine.export import load_settings
+    from lagwise.engine.io.settings import load_settings
     with pytest.raises(lagwise.DataError, match=message):
         load_settings(json.dumps({"lagwise_settings": 2, **record}))
     with pytest.raises(lagwise.DataError, match="at most"):

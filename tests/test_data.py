@@ -112,7 +112,7 @@ def test_transforms_values_and_names():
 def test_old_transform_names_still_work():
     """Earlier versions named transforms diff, dlog, fsum and columns like fsum12(x): settings
     files and scripts using them keep working through a mapping."""
-    from lagwise.engine.data import current_column_name
+    from lagwise.engine.data.transforms import current_column_name
     t = load("y,x\n1,1\n2,2\n4,4\n8,8\n16,16\n")
     for old, new in (("diff", "difference"), ("dlog", "log-difference"), ("fsum", "sum-next")):
         a = lagwise.transform(t.frame, old, "y", 2)
@@ -239,7 +239,7 @@ def test_leverage_one_flagged_not_nan():
     fit = lagwise.fit_ols(df, "y", ["x", "d"])
     with pytest.raises(lagwise.EstimationError, match="leverage 1.*row"):
         fit.infer("hc3")
-    from lagwise.engine.compare import compare
+    from lagwise.engine.inference.compare import compare
     comp = compare(fit)
     hc3 = comp[comp.estimator == "HC3"]
     assert hc3.note.str.contains("leverage 1").all()

@@ -10,7 +10,7 @@ from statsmodels.stats import diagnostic as smd
 from statsmodels.stats.stattools import durbin_watson
 
 import lagwise
-from lagwise.engine.diagnostics import diagnose, durbin_watson_exact
+from lagwise.engine.studies.diagnostics import diagnose, durbin_watson_exact
 from tests.helpers import ar1, regression_frame
 
 

@@ -10,9 +10,9 @@ import numpy as np
 import pytest
 
 import lagwise
-from lagwise.engine.bandwidth import RULES
-from lagwise.engine.covariance import FAMILIES, SHORTHANDS
-from lagwise.engine.laws import REQUESTS
+from lagwise.engine.covariance.bandwidth import RULES
+from lagwise.engine.covariance.registry import FAMILIES, SHORTHANDS
+from lagwise.engine.laws.reference import REQUESTS
 from tests.helpers import panel_frame, regression_frame
 
 FAMS = list(FAMILIES.values())
@@ -49,7 +49,7 @@ def horizon_fits(df):
     out = {}
     for name, frame, order in (("base", df, regs), ("scaled", df.assign(y=-3.0 * df.y), regs),
                                ("permuted", df, ["x3", "x1", "x2"])):
-        table = lagwise.engine.data.Table(frame=frame.copy())
+        table = lagwise.Table(frame=frame.copy())
         table, y = table.with_transform("sum-next", "y", 6)
         out[name] = lagwise.fit_ols(table, y, order)
     return out

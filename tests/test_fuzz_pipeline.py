@@ -18,9 +18,9 @@ import pandas as pd
 from hypothesis import HealthCheck, given, settings, strategies as st
 
 import lagwise
-from lagwise.engine.covariance import FAMILIES
-from lagwise.engine.export import FORMATS, render
-from lagwise.engine.laws import REQUESTS
+from lagwise.engine.covariance.registry import FAMILIES
+from lagwise.engine.io.tables import FORMATS, render
+from lagwise.engine.laws.reference import REQUESTS
 
 EXAMPLES = int(os.environ.get("LAGWISE_FUZZ_EXAMPLES", "600"))
 SLOW_SECONDS = 20.0

@@ -9,7 +9,7 @@ import pytest
 from scipy import stats
 
 import lagwise
-from lagwise.engine.weakiv import _partial_out, kleibergen_paap
+from lagwise.engine.models.iv_strength import partial_out as _partial_out, kleibergen_paap
 from tests.helpers import ar1
 
 

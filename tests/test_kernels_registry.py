@@ -12,7 +12,7 @@ from hypothesis import given, settings, strategies as st
 from scipy import integrate, signal
 
 import lagwise
-from lagwise.engine.kernels import KERNELS
+from lagwise.engine.covariance.kernels import KERNELS
 from tests.helpers import regression_frame
 
 

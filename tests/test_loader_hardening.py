@@ -13,7 +13,7 @@ import pytest
 
 import lagwise
 from lagwise import DataError
-from lagwise.engine.data import MAX_CELLS, MAX_COLUMNS, MAX_LINE_CHARS
+from lagwise.engine.data.reading import MAX_CELLS, MAX_COLUMNS, MAX_LINE_CHARS
 
 
 def load(text, **kw):

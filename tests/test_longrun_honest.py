@@ -9,9 +9,9 @@ import pytest
 from scipy import stats
 
 import lagwise
-from lagwise.engine.bandwidth import andrews_ar1, select_bandwidth
-from lagwise.engine.fixedb import (fixed_b_critical_value, fixed_b_p_value, kv_bartlett_cubic, table)
-from lagwise.engine.sweep import significance_flip
+from lagwise.engine.covariance.bandwidth import andrews_ar1, select_bandwidth
+from lagwise.engine.laws.fixedb import (fixed_b_critical_value, fixed_b_p_value, kv_bartlett_cubic, table)
+from lagwise.engine.inference.sweep import significance_flip
 from tests.helpers import ar1, regression_frame
 
 
@@ -260,7 +260,7 @@ def test_infer_with_fixed_b_reference():
 # ----------------------------------------------------------------- overlapping, flips, CLI
 
 def test_overlapping_response_offers_the_right_family():
-    from lagwise.engine.compare import compare
+    from lagwise.engine.inference.compare import compare
     table = lagwise.load_table(str(lagwise.demo_file()))
     table, y = table.with_transform("fsum", "exret_1m", 12)
     fit = lagwise.fit_ols(table, y, ["rate_capacity"])
@@ -314,7 +314,7 @@ def test_prewhitened_sweep_equals_infer(kernel):
 
 
 def test_comparison_under_fixed_b_keeps_other_laws():
-    from lagwise.engine.compare import compare
+    from lagwise.engine.inference.compare import compare
     fit = lagwise.fit_ols(regression_frame(seed=5, n=200), "y", ["x1"])
     comp = compare(fit, reference="fixed-b")
     rows = comp[comp.term == "x1"].set_index("estimator")

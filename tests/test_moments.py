@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from lagwise.engine.moments import MomentCache
+from lagwise.engine.covariance.cache import MomentCache
 
 
 def direct(u, j):
@@ -55,7 +55,7 @@ def test_fast_quadratic_spectral_sums_equal_direct_weights(monkeypatch, limit):
     """The factorised trigonometric evaluation over every lag equals the direct weighted sum
     (k(j/b) evaluated at each of the T lags) to rounding, cached or rebuilt in column chunks."""
     import lagwise
-    import lagwise.engine.moments as moments
+    import lagwise.engine.covariance.cache as moments
     if limit:
         monkeypatch.setattr(moments, "FAR_CACHE_LIMIT", limit)
     rng = np.random.default_rng(3)

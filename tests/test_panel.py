@@ -12,7 +12,7 @@ import statsmodels.api as sm
 from hypothesis import HealthCheck, given, settings, strategies as st
 
 import lagwise
-from lagwise.engine.panel import within_lag_products
+from lagwise.engine.models.panel import within_lag_products
 from tests.helpers import panel_frame
 
 common = settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
@@ -208,9 +208,9 @@ def test_two_way_is_psd_after_repair_and_flags_it(seed, entities, periods, drop)
     s = res.long_run.S
     assert np.linalg.eigvalsh(s).min() >= -1e-12 * np.abs(s).max()
     raw = (f.group_sums("entity").T @ f.group_sums("entity")
-           * lagwise.engine.longrun.cluster_factor(f, f.panel.n_entities)
+           * lagwise.engine.covariance.cluster.cluster_factor(f, f.panel.n_entities)
            + f.group_sums("time").T @ f.group_sums("time")
-           * lagwise.engine.longrun.cluster_factor(f, f.panel.n_periods)
+           * lagwise.engine.covariance.cluster.cluster_factor(f, f.panel.n_periods)
            - f.outer() * f.nobs / f.df_resid) / f.nobs
     repaired = np.linalg.eigvalsh(raw).min() < -1e-12 * np.abs(raw).max()
     assert ("psd_repaired" in res.flags) == repaired
@@ -235,7 +235,7 @@ def test_fama_macbeth_sweep_moves_along_the_slope_series():
 # --------------------------------------------------------------------------- diagnostics, sweep
 
 def test_pesaran_cd_equals_its_definition_and_is_standard_normal_without_dependence():
-    from lagwise.engine.panel import pesaran_cd
+    from lagwise.engine.studies.panel_diagnostics import pesaran_cd
     frame = panel_frame(seed=40, entities=12, periods=20, drop=0.2)
     f = fit(frame)
     p = f.panel
@@ -286,14 +286,15 @@ def test_wooldridge_test_rejects_serial_correlation_and_not_its_absence():
             frame = pd.DataFrame({"firm": e, "month": t, "x": x, "y": y})
             f = lagwise.fit_panel(frame, "y", ["x"], entity="firm", time="month",
                                   effects="entity")
-            from lagwise.engine.panel import wooldridge_serial
+            from lagwise.engine.studies.panel_diagnostics import wooldridge_serial
             rejections[rho] += wooldridge_serial(f)[3] < 0.05
     assert rejections[0.0] <= 9            # about 5% of 60 (3), Monte Carlo s.e. about 1.7
     assert rejections[0.5] >= 50
 
 
 def test_panel_diagnostics_and_sweep_on_the_demo():
-    from lagwise.engine.panel import diagnose_panel, panel_sweep
+    from lagwise.engine.studies.panel_diagnostics import diagnose_panel
+    from lagwise.engine.studies.panel_sensitivity import panel_sweep
     table = lagwise.load_table(lagwise.demo_file("shipping_panel.csv"))
     f = lagwise.fit_panel(table, "exret", ["book_to_market", "fleet_age", "charter_cover"])
     rep = diagnose_panel(f)

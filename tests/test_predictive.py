@@ -11,8 +11,9 @@ import pandas as pd
 import pytest
 
 import lagwise
-from lagwise.engine.predictive import horizon_sweep, ivx_test, persistence_report
-from lagwise.engine.simulate import bootstrap, size_check
+from lagwise.engine.studies.predictive import horizon_sweep, ivx_test, persistence_report
+from lagwise.engine.studies.bootstrap import bootstrap
+from lagwise.engine.studies.size_check import size_check
 
 
 def predictive_frame(rng, n, rho, delta, beta=0.0, burn=100):
@@ -189,7 +190,7 @@ def test_hodrick_holds_its_size_where_newey_west_over_rejects():
     nw = hod = 0
     for _ in range(reps):
         df = predictive_frame(rng, n + h, 0.95, -0.5)
-        t = lagwise.engine.data.Table(frame=df[["x", "r"]].copy())
+        t = lagwise.Table(frame=df[["x", "r"]].copy())
         t, y = t.with_transform("sum-next", "r", h)
         fit = lagwise.fit_ols(t, y, ["x"], sample=(0, n - 1))
         nw += fit.infer(lagwise.estimator("kernel", lags=h)).table.loc["x", "p_value"] < 0.05

@@ -14,7 +14,7 @@ import lagwise
 from lagwise.app import callbacks as C
 from lagwise.app.state import Store
 from lagwise.app.work import IDLE_POLLS, SHOW_AFTER, WORK, Work
-from lagwise.engine.panel import diagnose_panel
+from lagwise.engine.studies.panel_diagnostics import diagnose_panel
 from lagwise._files import demo_file
 
 from .helpers import panel_frame, regression_frame

@@ -49,6 +49,6 @@ def test_newey_west_1994_bandwidth_matches_arch(name, cls):
     for t in range(1, 500):
         x[t] = 0.6 * x[t - 1] + rng.standard_normal()
     theirs = cls(x, center=True).bandwidth
-    from lagwise.engine.bandwidth import newey_west_1994
+    from lagwise.engine.covariance.bandwidth import newey_west_1994
     ours = newey_west_1994(x[:, None], lagwise.get_kernel(name), np.ones(1))
     assert ours == pytest.approx(theirs, rel=1e-10)

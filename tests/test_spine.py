@@ -11,7 +11,7 @@ import pytest
 from scipy import stats
 
 import lagwise
-from lagwise.engine.laws import EWCLaw, FixedB, Normal, StudentT, resolve
+from lagwise.engine.laws.reference import EWCLaw, FixedB, Normal, StudentT, resolve
 from tests.helpers import ar1, regression_frame
 
 
@@ -45,7 +45,7 @@ def test_quadratic_spectral_uses_the_bandwidth_the_rule_chose():
 
 
 def test_rule_finding_no_autocorrelation_gives_lag_zero_only():
-    from lagwise.engine.bandwidth import choose
+    from lagwise.engine.covariance.bandwidth import choose
     u = np.tile([1.0, 0.0, -1.0, 0.0], 25)[:, None]   # lag-1 products sum to zero: rho = 0
     choice = choose(u, np.array([False]), lagwise.get_kernel("quadratic_spectral"), "andrews")
     assert choice.b == 0.0 and "lag 0 only" in choice.explanation
@@ -109,7 +109,7 @@ def test_rho_cap_flag_only_when_a_weighted_moment_is_capped():
 
 def test_newey_west_rule_centres_the_weighted_series():
     """Documented behaviour (as in arch): adding a constant to the series leaves b unchanged."""
-    from lagwise.engine.bandwidth import newey_west_1994
+    from lagwise.engine.covariance.bandwidth import newey_west_1994
     rng = np.random.default_rng(3)
     v = ar1(rng, 400, 0.5)[:, None]
     k = lagwise.get_kernel("bartlett")
@@ -205,8 +205,8 @@ def test_no_switches_on_family_names_or_law_requests_outside_their_definitions()
     request's string. Scans the engine and app sources."""
     import re
     from pathlib import Path
-    from lagwise.engine.covariance import FAMILIES
-    from lagwise.engine.laws import REQUESTS
+    from lagwise.engine.covariance.registry import FAMILIES
+    from lagwise.engine.laws.reference import REQUESTS
     root = Path(__file__).resolve().parents[1]
     names = "|".join(re.escape(n) for n in FAMILIES)
     requests = "|".join(re.escape(r) for r in REQUESTS)

@@ -109,7 +109,7 @@ t_fit = time.perf_counter() - t0
 t1 = time.perf_counter()
 fit.moments.ensure(100)                    # what finite kernels up to b = 101 need
 t_cache100 = time.perf_counter() - t1
-from lagwise.engine.moments import MomentCache
+from lagwise.engine.covariance.cache import MomentCache
 t2 = time.perf_counter()
 every = MomentCache(fit.working_contributions)   # what an infinite-support kernel needs, anew
 every.ensure(fit.nobs - 1)

@@ -15,7 +15,7 @@ import pandas as pd
 import pytest
 
 import lagwise
-from lagwise.engine.simulate import size_check
+from lagwise.engine.studies.size_check import size_check
 
 pytestmark = pytest.mark.bench
 

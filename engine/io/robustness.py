@@ -1,0 +1,225 @@
+"""The robustness table for a paper: specifications side by side under several estimators, as
+LaTeX, Markdown, HTML or an Excel workbook."""
+
+from __future__ import annotations
+
+import html
+
+import numpy as np
+import pandas as pd
+
+from ..covariance.registry import as_estimator
+from ..errors import DataError, SpecificationError
+from .tables import latex_escape as esc, markdown_cell
+
+SHOW = {"se": "standard errors in parentheses", "t": "t statistics in brackets",
+        "p": "p-values in braces", "ci": "confidence intervals in brackets"}
+
+
+def _labelled(items, what):
+    if isinstance(items, dict):
+        return [(str(k), v) for k, v in items.items()]
+    if not isinstance(items, (list, tuple)):
+        items = [items]
+    if not items:
+        raise SpecificationError(f"give at least one {what}")
+    return [(None, v) for v in items]
+
+
+class RobustnessTable:
+    """Coefficients (rows) by specifications or estimators (columns), the chosen statistic
+    beneath each estimate, and every convention in the notes at the foot.
+
+    `.frame` holds the numbers (long: column, term, estimate, std_error, t_stat, p_value,
+    ci_low, ci_high); `to_latex()`, `to_markdown()`, `to_html()` return text; `to_excel(path)`
+    writes a workbook (the table with numbers kept numeric, and the long numbers)."""
+
+    def __init__(self, frame, columns, specs, estimators, terms, show, level, notes, extra):
+        self.frame = frame
+        self.columns = columns              # column headers "(1)", "(2)", ...
+        self.specs = specs                  # per column: specification label
+        self.estimators = estimators        # per column: estimator label
+        self.terms = terms
+        self.show = show
+        self.level = level
+        self.notes = notes
+        self.extra = extra                  # per column: {"N": .., "R2": ..}
+
+    # cells
+    def _value(self, col, term, field):
+        row = self.frame[(self.frame.column == col) & (self.frame.term == term)]
+        return None if row.empty else row.iloc[0][field]
+
+    def _stat_text(self, col, term, digits):
+        row = self.frame[(self.frame.column == col) & (self.frame.term == term)]
+        if row.empty:
+            return ""
+        r = row.iloc[0]
+        if not np.isfinite(r.std_error):
+            return "(n/a)"
+        if self.show == "se":
+            return f"({r.std_error:.{digits}f})"
+        if self.show == "t":
+            return f"[{r.t_stat:.2f}]"
+        if self.show == "p":
+            return "{<0.001}" if r.p_value < 0.001 else f"{{{r.p_value:.3f}}}"
+        return f"[{r.ci_low:.{digits}f}, {r.ci_high:.{digits}f}]"
+
+    def grid(self, digits: int = 3) -> list[list[str]]:
+        """The table as text cells: a header row of specifications, one of estimators, then
+        two rows per coefficient, then the sample rows."""
+        out = [[""] + self.specs, [""] + self.estimators, [""] + self.columns]
+        for term in self.terms:
+            est = [self._value(c, term, "estimate") for c in self.columns]
+            out.append([term] + ["" if v is None else f"{v:.{digits}f}" for v in est])
+            out.append([""] + [self._stat_text(c, term, digits) for c in self.columns])
+        out.append(["observations"] + [str(self.extra[c]["N"]) for c in self.columns])
+        out.append(["R²"] + [("" if not np.isfinite(self.extra[c]["R2"]) else
+                              f"{self.extra[c]['R2']:.3f}") for c in self.columns])
+        return out
+
+    def foot(self) -> list[str]:
+        return [f"Estimates with {SHOW[self.show]}; {self.level:.0%} level, two-sided tests of "
+                "beta = 0."] + self.notes
+
+    def to_markdown(self, digits: int = 3) -> str:
+        g = self.grid(digits)
+        head = "| " + " | ".join(markdown_cell(h) for h in [""] + [
+            f"{c} {s}".strip() for c, s in zip(self.columns, self.specs)]) + " |"
+        lines = [head, "|" + "---|" * len(g[0]),
+                 "| | " + " | ".join(markdown_cell(e) for e in self.estimators) + " |"]
+        lines += ["| " + " | ".join(markdown_cell(c) for c in row) + " |" for row in g[3:]]
+        return "\n".join(lines) + "\n\n" + "\n\n".join(markdown_cell(n) for n in self.foot()) + "\n"
+
+    def to_latex(self, digits: int = 3, caption: str = "") -> str:
+        g = self.grid(digits)
+        n = len(self.columns)
+        out = ["\\begin{table}[ht]", "\\centering"]
+        if caption:
+            out.append(f"\\caption{{{esc(caption)}}}")
+        out += [f"\\begin{{tabular}}{{l{'c' * n}}}", "\\hline"]
+        for row in g[:3]:
+            out.append(" & ".join(esc(c) for c in row) + " \\\\")
+        out.append("\\hline")
+        body = g[3:-2]
+        for row in body:
+            out.append(" & ".join(esc(c) for c in row) + " \\\\")
+        out.append("\\hline")
+        for row in g[-2:]:
+            out.append(" & ".join(esc(c) for c in row) + " \\\\")
+        out += ["\\hline", "\\end{tabular}"]
+        for note in self.foot():
+            out.append(f"\\par\\smallskip{{\\footnotesize {esc(note)}}}")
+        out.append("\\end{table}")
+        return "\n".join(out) + "\n"
+
+    def to_html(self, digits: int = 3) -> str:
+        g = self.grid(digits)
+        esc = html.escape
+        out = ["<table class='lw-robustness'>", "<thead>"]
+        for row in g[:3]:
+            out.append("<tr>" + "".join(f"<th>{esc(c)}</th>" for c in row) + "</tr>")
+        out.append("</thead><tbody>")
+        for row in g[3:]:
+            out.append("<tr>" + "".join(f"<td>{esc(c)}</td>" for c in row) + "</tr>")
+        out.append("</tbody><tfoot>")
+        for note in self.foot():
+            out.append(f"<tr><td colspan='{len(g[0])}'>{esc(note)}</td></tr>")
+        out.append("</tfoot></table>")
+        return "\n".join(out) + "\n"
+
+    def to_excel(self, path, digits: int = 3) -> None:
+        """A workbook: sheet "table" laid out like the paper's table with estimates and
+        statistics as numbers (number formats add the brackets), sheet "numbers" the long
+        frame, and the notes under the table."""
+        from openpyxl import Workbook
+        from openpyxl.styles import Alignment, Font
+        wb = Workbook()
+        ws = wb.active
+        ws.title = "table"
+        fmt_est = "0." + "0" * digits
+        fmt_stat = {"se": f"(0.{'0' * digits})", "t": "[0.00]", "p": '"{"0.000"}"'}.get(self.show)
+        header = [[""] + self.specs, [""] + self.estimators, [""] + self.columns]
+        for r, row in enumerate(header, start=1):
+            for c, v in enumerate(row, start=1):
+                cell = ws.cell(row=r, column=c, value=v)
+                cell.font = Font(bold=(r == 3))
+                cell.alignment = Alignment(horizontal="center")
+        r = 4
+        field = {"se": "std_error", "t": "t_stat", "p": "p_value"}.get(self.show)
+        for term in self.terms:
+            ws.cell(row=r, column=1, value=term)
+            for c, col in enumerate(self.columns, start=2):
+                v = self._value(col, term, "estimate")
+                if v is not None:
+                    ws.cell(row=r, column=c, value=float(v)).number_format = fmt_est
+                if field is not None:
+                    s = self._value(col, term, field)
+                    if s is not None and np.isfinite(s):
+                        ws.cell(row=r + 1, column=c, value=float(s)).number_format = fmt_stat
+                else:
+                    ws.cell(row=r + 1, column=c, value=self._stat_text(col, term, digits))
+            r += 2
+        ws.cell(row=r, column=1, value="observations")
+        ws.cell(row=r + 1, column=1, value="R²")
+        for c, col in enumerate(self.columns, start=2):
+            ws.cell(row=r, column=c, value=int(self.extra[col]["N"]))
+            r2 = self.extra[col]["R2"]
+            if np.isfinite(r2):
+                ws.cell(row=r + 1, column=c, value=float(r2)).number_format = "0.000"
+        r += 3
+        for note in self.foot():
+            ws.cell(row=r, column=1, value=note)
+            r += 1
+        ws2 = wb.create_sheet("numbers")
+        cols = list(self.frame.columns)
+        ws2.append(cols)
+        for rec in self.frame.itertuples(index=False):
+            ws2.append([(float(v) if isinstance(v, (float, np.floating)) else
+                         (int(v) if isinstance(v, (np.integer,)) else v)) for v in rec])
+        wb.save(path)
+
+    def _repr_html_(self) -> str:
+        return self.to_html()
+
+    def __repr__(self):
+        return self.to_markdown()
+
+
+def robustness_table(fits, estimators, show: str = "se", level: float = 0.95,
+                     reference: str = "auto", terms=None) -> RobustnessTable:
+    """Coefficients of one or more fits under one or more estimators, side by side.
+
+    fits: a fit, a list of fits, or {label: fit}; estimators: an Estimator (or name), a list, or
+    {label: estimator}. With one fit the columns are estimators; with one estimator they are
+    specifications; with several of each, every (specification, estimator) pair. show: "se",
+    "t", "p" or "ci" beneath each estimate. terms: the rows (default every term, in order of
+    first appearance). The notes at the foot state each column's estimator, tuning value and
+    how it was chosen, small-sample factor, reference law and method."""
+    if show not in SHOW:
+        raise SpecificationError(f"show must be one of {', '.join(SHOW)}")
+    fit_items = _labelled(fits, "fit")
+    est_items = [(lab, as_estimator(e)) for lab, e in _labelled(estimators, "estimator")]
+    pairs = [(fl, f, el, e) for fl, f in fit_items for el, e in est_items]
+    rows, specs, ests, notes, extra, columns = [], [], [], [], {}, []
+    for i, (fl, f, el, e) in enumerate(pairs, start=1):
+        col = f"({i})"
+        res = f.infer(e, level=level, reference=reference)
+        columns.append(col)
+        spec = fl or f"{f.response}" + (f", h = {f.horizon}" if getattr(f, "horizon", None)
+                                        else "")
+        specs.append(spec if len(fit_items) > 1 or fl else f.response)
+        ests.append(el or res.label)
+        notes.append(f"{col} {res.describe()}")
+        r2 = getattr(f, "r_squared", float("nan"))
+        extra[col] = {"N": int(f.nobs), "R2": float(r2) if r2 is not None else float("nan")}
+        for term, r in res.table.iterrows():
+            rows.append({"column": col, "specification": specs[-1], "estimator": ests[-1],
+                         "term": term, **{k: float(r[k]) for k in res.table.columns}})
+    frame = pd.DataFrame(rows)
+    order = list(dict.fromkeys(frame.term)) if terms is None else list(terms)
+    unknown = [t for t in order if t not in set(frame.term)]
+    if unknown:
+        raise SpecificationError(f"no coefficient named {unknown[0]!r} in these fits")
+    return RobustnessTable(frame[frame.term.isin(order)].reset_index(drop=True), columns,
+                           specs, ests, order, show, level, notes, extra)

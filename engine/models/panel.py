@@ -1,0 +1,369 @@
+"""Pooled and fixed-effects least squares on a stacked panel.
+
+A stacked panel has one row per (entity, period): firms by months, funds by days. `fit_panel`
+fits y_it = x_it'beta + [a_i] + [d_t] + e_it by least squares, with entity and/or time fixed
+effects removed by the within transformation (group demeaning; alternating projections for two
+effects on an unbalanced panel). The result is a moment model like any other (g_it = x~_it e_it
+in the orthonormal basis of the transformed design), and additionally offers what the panel
+estimators of S need:
+
+* `group_sums("entity" | "time")`: the sums of the moment contributions within each entity and
+  within each period (G x m and T_p x m; periods in time order);
+* `outer()`: sum_it g_it g_it' (the heteroskedasticity-only and intersection terms);
+* `period_model`: the per-period sums h_t = sum_i g_it as a time-series moment model on the T_p
+  periods, on which every kernel, bandwidth rule and fixed-b law of the time-series machinery
+  runs (Driscoll & Kraay 1998): V = T_p M S_h M' equals the panel's (X'X)^-1 (sum_ts w h_t h_s')
+  (X'X)^-1;
+* `within_lags()`: sum_i sum_t g_it g_i,t-j' for every lag j in periods (by FFT over a dense
+  entity x period grid), for a kernel over time within each entity.
+
+Data too large for memory (a Dask DataFrame, a folder of Parquet files) is handed to the fit
+functions registered for it (`register_large_data`; engine.distributed registers itself).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+from scipy import fft as sfft
+
+from ..capabilities import Capabilities
+from ..covariance.registry import estimator
+from ..data.columns import INTERCEPT, as_list, check_magnitudes, column_ranges
+from ..data.dates import spacing_note
+from ..data.panels import (PanelInfo, check_names, checked_panel, describe_effects,
+                           large_data_fit, panel_data, panel_names)
+from ..data.table import Table
+from ..errors import EstimationError, SpecificationError
+from ..inference.compare import compare
+from ..inference.sweep import sweep
+from .fama_macbeth import FamaMacBethFit, fama_macbeth_from_rows
+from .ols import OLSFit
+from .base import MomentModel
+from .within import EFFECTS, within, effects_of
+
+
+#: A regressor whose within-transformed norm falls below this fraction of its centred norm is
+#: absorbed by the effects.
+ABSORBED_TOL = 1e-9
+
+
+#: Dense entity x period blocks for the within-entity lag products hold at most this many numbers.
+DENSE_BLOCK = 4_000_000
+
+
+class PanelFit(OLSFit):
+    """Least squares on a stacked panel, pooled or with fixed effects (see the module docstring).
+
+    N (`nobs`) counts rows; K = k + the effect parameters absorbed; `df_resid` = N - K."""
+
+    kind = "panel least squares"
+    df_reason = "N - K"
+    kernel_family = "driscoll_kraay"
+
+    def __init__(self, *, X, y, terms, index, response, sample, panel: PanelInfo,
+                 raw=None, table=None, horizon=None):
+        self.panel = panel
+        self._raw = raw                    # untransformed (regressors, y) for Fama-MacBeth
+        super().__init__(X=X, y=y, terms=terms, index=index, response=response, sample=sample,
+                         horizon=horizon, table=table)
+        self.leverage = self._panel_leverage()
+
+    def _panel_leverage(self):
+        base = np.einsum("ij,ij->i", self._q, self._q)
+        p, eff = self.panel, self.panel.effects
+        if not eff:
+            return base
+        if eff == ("entity",):
+            return base + 1.0 / p.counts[p.entity_codes]
+        if eff == ("time",):
+            return base + 1.0 / p.period_counts[p.time_codes]
+        if p.balanced:
+            return base + 1.0 / p.n_periods + 1.0 / p.n_entities - 1.0 / self.nobs
+        return None          # two-way on an unbalanced panel: not available in closed form
+
+    @property
+    def capabilities(self) -> Capabilities:
+        """A stacked panel: entity and period codes, a design, leverage where it has a closed
+        form, clusters by entity and by period; the rows are not one time series."""
+        return Capabilities(panel=True, design=True, leverage=self.leverage is not None,
+                            clusters=("entity", "time"))
+
+    # ------------------------------------------------------------------ degrees of freedom
+    @property
+    def df_resid(self) -> int:
+        return self.nobs - self.k - self.panel.absorbed
+
+    @property
+    def n_params(self) -> int:
+        """K: coefficients plus effect parameters absorbed."""
+        return self.k + self.panel.absorbed
+
+    # ------------------------------------------------------------------ grouped statistics
+    def group_sums(self, dim: str) -> np.ndarray:
+        """Sums of the working moment contributions within each entity or each period."""
+        def build():
+            codes, n = ((self.panel.entity_codes, self.panel.n_entities) if dim == "entity"
+                        else (self.panel.time_codes, self.panel.n_periods))
+            g = self.working_contributions
+            out = np.empty((n, g.shape[1]))
+            for j in range(g.shape[1]):
+                out[:, j] = np.bincount(codes, weights=g[:, j], minlength=n)
+            return out
+        if dim not in EFFECTS:
+            raise SpecificationError(f"group by 'entity' or 'time', not {dim!r}")
+        return self.caches.get(f"sums_{dim}", build)
+
+    @property
+    def period_model(self) -> "PeriodSums":
+        """The per-period sums as a time-series moment model on the T_p periods."""
+        return self.caches.get("period_model", lambda: PeriodSums(self, self.group_sums("time")))
+
+    def within_lags(self) -> np.ndarray:
+        """W_j = sum_i sum_t g_it g_i,t-j' (working basis) for j = 0..T_p-1: (T_p, m, m)."""
+        return self.caches.get("within_lags", lambda: within_lag_products(
+            self.working_contributions, self.panel.entity_codes, self.panel.time_codes,
+            self.panel.n_entities, self.panel.n_periods))
+
+    # ------------------------------------------------------------------ descriptions
+    def describe_method(self) -> str:
+        p = self.panel
+        return describe_effects(p.effects, p.absorbed, p.components, p.iterations, p.balanced)
+
+    def fama_macbeth(self) -> "FamaMacBethFit":
+        """Fama-MacBeth on the same rows and regressors (period-by-period slopes with an
+        intercept each period), cached."""
+        def build():
+            if self._raw is not None:          # effects: the untransformed regressors
+                Xr, yr = self._raw
+            else:
+                has = INTERCEPT in self.terms
+                Xr, yr = (self.X[:, 1:] if has else self.X), self.y
+            Xr = np.column_stack([np.ones(len(yr)), Xr])
+            terms = [INTERCEPT] + [t for t in self.terms if t != INTERCEPT]
+            return fama_macbeth_from_rows(Xr, yr, self.panel.time_codes, self.panel.periods, terms,
+                                 self.response, self.sample, self.panel)
+        return self.caches.get("fama_macbeth", build)
+
+    def compare(self, level: float = 0.95, reference: str = "auto", fama_macbeth: bool = True,
+                **kwargs):
+        """Every panel estimator (presets of the registry) and, with `fama_macbeth`, the
+        Fama-MacBeth rows (their own estimate; classical and kernel over the slope series)."""
+        return compare_panel(self, level, reference, fama_macbeth, **kwargs)
+
+    def __repr__(self):
+        p = self.panel
+        return (f"PanelFit(response={self.response!r}, terms={self.terms}, N={self.nobs}, "
+                f"entities={p.n_entities}, periods={p.n_periods}, effects={p.effects})")
+
+
+def compare_panel(model, level: float = 0.95, reference: str = "auto", fama_macbeth: bool = True,
+                  **kwargs):
+    """The comparison of a panel fit (in memory or from sufficient statistics): every panel
+    estimator and, with `fama_macbeth`, the Fama-MacBeth rows."""
+    out = compare(model, level=level, reference=reference, **kwargs)
+    if not fama_macbeth or kwargs.get("estimators") is not None:
+        return out
+    try:
+        fm = model.fama_macbeth()
+    except (SpecificationError, EstimationError) as exc:
+        extra = pd.DataFrame([{**{c: np.nan for c in out.columns}, "estimator":
+                               "Fama-MacBeth", "family": "fama_macbeth", "term": t,
+                               "note": str(exc), "rejects": None, "why": "", "flags": "",
+                               "reference": "", "law": "",
+                               "estimate": np.nan} for t in model.terms])
+        return pd.concat([out, extra], ignore_index=True)
+    rows = fm.compare(level=level, reference=reference, estimators=fm.comparison_presets())
+    rows = rows[rows.term.isin(model.terms)].copy()
+    rows["estimator"] = "Fama-MacBeth, " + rows["estimator"].astype(str)
+    rows["family"] = "fama_macbeth"
+    why = fm.comparison_note(model)
+    rows["why"] = [("; ".join(x for x in (w, why) if x)) for w in rows["why"]]
+    return pd.concat([out, rows], ignore_index=True)
+
+
+class PeriodSums(MomentModel):
+    """The per-period sums h_t = sum_i g_it of a panel's moment contributions as a time-series
+    moment model (T_p periods, time order). With the panel's influence map, V = T_p M S_h M' is
+    the panel's Driscoll-Kraay covariance for S_h = (1/T_p) sum_ts w(|t - s|) h_t h_s'; the
+    panel's own S is (T_p / N) S_h. Bandwidth rules see the sums in the original basis."""
+
+    kind = "per-period sums of a panel's moment contributions"
+
+    def __init__(self, panel_fit, sums_working):
+        self._init_model()
+        self.parent = panel_fit
+        self.caches.put("working_contributions", sums_working)
+        self.terms = list(panel_fit.terms)
+        self.beta = panel_fit.beta
+        self.nobs = sums_working.shape[0]
+        self.k = panel_fit.k
+        self.index = panel_fit.panel.periods
+        self.sample = panel_fit.sample
+        self.response = panel_fit.response
+        self.horizon = None
+        self.resid = None
+
+    @property
+    def capabilities(self) -> Capabilities:
+        """The per-period sums are a time series (no design of their own)."""
+        return Capabilities(time_ordered=True)
+
+    @property
+    def moment_names(self):
+        return self.parent.moment_names
+
+    def _original_contributions(self):
+        return self.working_contributions @ self.parent.working_basis
+
+    @property
+    def working_basis(self) -> np.ndarray:
+        return self.parent.working_basis
+
+    @property
+    def working_basis_inverse(self) -> np.ndarray:
+        return self.parent.working_basis_inverse
+
+    @property
+    def influence_map(self):
+        return self.parent.influence_map
+
+    @property
+    def working_design(self):
+        raise SpecificationError("per-period sums have no regression design")
+
+    @property
+    def small_sample_factor(self) -> float:
+        """The panel's N / (N - K)."""
+        return self.parent.small_sample_factor
+
+    @property
+    def df_resid(self) -> int:
+        return self.nobs - 1
+
+    @property
+    def scale(self) -> float:
+        """T_p / N: S of the panel = scale x S of the sums."""
+        return self.nobs / self.parent.nobs
+
+
+def within_lag_products(g, e_codes, t_codes, n_entities, n_periods) -> np.ndarray:
+    """sum_i sum_t g_it g_i,t-j' for j = 0..T_p-1, (T_p, m, m), by zero-padded FFTs over a dense
+    entity x period grid (missing cells are zero), in blocks of entities."""
+    n, m = g.shape
+    size = sfft.next_fast_len(2 * n_periods, real=True)
+    nf = size // 2 + 1
+    acc = np.zeros((nf, m, m), dtype=complex)
+    per_block = max(1, DENSE_BLOCK // max(n_periods * m, 1))
+    order = np.argsort(e_codes, kind="stable")
+    e_sorted = e_codes[order]
+    bounds = np.searchsorted(e_sorted, np.arange(0, n_entities + per_block, per_block))
+    for a, b in zip(bounds[:-1], bounds[1:]):
+        if b <= a:
+            continue
+        rows = order[a:b]
+        first = e_sorted[a]
+        count = int(e_sorted[b - 1] - first + 1)
+        dense = np.zeros((count, n_periods, m))
+        dense[e_codes[rows] - first, t_codes[rows]] = g[rows]
+        spec = sfft.rfft(dense, n=size, axis=1)
+        for i in range(m):
+            for j in range(i, m):
+                acc[:, i, j] += np.einsum("cf,cf->f", spec[:, :, i], spec[:, :, j].conj())
+    for i in range(m):
+        for j in range(i):
+            acc[:, i, j] = acc[:, j, i].conj()
+    out = sfft.irfft(acc, n=size, axis=0)[:n_periods]
+    # lag 0 exactly (the FFT route carries rounding of the order of the largest term)
+    out[0] = g.T @ g
+    return out
+
+
+def fit_panel(data, response: str, regressors=None, entity: str | None = None,
+              time: str | None = None, effects=(), intercept: bool = True, sample=None,
+              client=None, **dask_options):
+    """Least squares on a stacked panel (one row per entity and period).
+
+    data: a Table (its loader report names the panel's columns), a DataFrame (columns, or a
+    MultiIndex of (entity, time)), or, for panels larger than memory, a Dask DataFrame or a
+    folder of Parquet files (then `client` may be a dask.distributed Client; see
+    engine.distributed). effects: () pooled, "entity", "time" or ("entity", "time"): fixed
+    effects removed by the within transformation (the intercept is then absorbed).
+    sample: optional (first, last) period, inclusive.
+
+    Rows missing a value or a label are dropped and counted. Raises DataError for unusable
+    columns (ids with fractions, a time column that does not parse, duplicate rows of one
+    entity and period) and SpecificationError for an impossible model (one entity or period,
+    a regressor absorbed by the effects).
+    """
+    regs = as_list(regressors)
+    entity, time = panel_names(data, entity, time)
+    eff = effects_of(effects)
+    if eff:
+        intercept = False
+    check_names(response, regs, entity, time, intercept or bool(eff))
+    if not regs and eff:
+        raise SpecificationError("with fixed effects the model needs at least one regressor")
+    large = large_data_fit(data, "panel")
+    if large is not None:
+        return large(data, response, regs, entity, time, effects=eff, intercept=intercept,
+                     sample=sample, client=client, **dask_options)
+    pdata, values, lo, hi = checked_panel(data, response, regs, entity, time, sample)
+    if hi[-1] - lo[-1] == 0:
+        raise SpecificationError(f"response '{response}' is constant ({values[0, -1]:g}): "
+                                 "nothing to explain")
+    for j, r in enumerate(regs):
+        if hi[j] - lo[j] == 0 and (intercept or eff):
+            raise SpecificationError(f"regressor '{r}' is constant ({values[0, j]:g}); it "
+                                     + ("is absorbed by the effects" if eff else
+                                        "duplicates the intercept") + ". Remove it.")
+    g, t = len(pdata.entities), len(pdata.periods)
+    transformed, absorbed, comps, iters = within(values, pdata.entity_codes, pdata.time_codes,
+                                                 g, t, eff)
+    if eff:
+        centred = values - values.mean(axis=0)
+        before = np.sqrt((centred ** 2).sum(axis=0))
+        after = np.sqrt((transformed ** 2).sum(axis=0))
+        gone = [j for j in range(len(regs)) if after[j] <= ABSORBED_TOL * max(before[j], 1e-300)]
+        if gone:
+            what = {("entity",): "within entities", ("time",): "within periods"}.get(
+                eff, "within entities and periods")
+            names = ", ".join(f"'{regs[j]}'" for j in gone)
+            raise SpecificationError(f"regressor {names} does not vary {what}: it is absorbed by "
+                                     f"the {' and '.join(eff)} fixed effects. Remove it, or drop "
+                                     "those effects.")
+        if after[-1] <= ABSORBED_TOL * max(before[-1], 1e-300):
+            raise SpecificationError(f"response '{response}' is explained entirely by the "
+                                     "fixed effects: nothing is left to explain")
+    n = len(values)
+    k = len(regs) + int(intercept)
+    if n <= k + absorbed:
+        raise SpecificationError(f"{n} rows are too few for {k} coefficients and {absorbed} "
+                                 "effect parameters")
+    X = np.empty((n, k))
+    if intercept:
+        X[:, 0] = 1.0
+    X[:, int(intercept):] = transformed[:, :len(regs)]
+    y = np.ascontiguousarray(transformed[:, -1])
+    raw = None
+    if eff:
+        raw = (values[:, :len(regs)].copy(), values[:, -1].copy())
+    info = PanelInfo(entity=entity, time=time, entities=pdata.entities, periods=pdata.periods,
+                     entity_codes=pdata.entity_codes, time_codes=pdata.time_codes, effects=eff,
+                     absorbed=absorbed, components=comps, iterations=iters)
+    note = spacing_note(pdata.periods)
+    if note:
+        info.notes.append(note)
+    sample_info = pdata.sample
+    sample_info.notes.extend(info.describe())
+    terms = ([INTERCEPT] if intercept else []) + regs
+    fit = PanelFit(X=X, y=y, terms=terms, index=pdata.index, response=response,
+                   sample=sample_info, panel=info, raw=raw, table=pdata.table,
+                   horizon=pdata.horizon)
+    if eff and k:
+        fit.sample.notes.append(describe_effects(eff, absorbed, comps, iters, info.balanced))
+    return fit
+
+
