@@ -81,6 +81,9 @@ import numpy as np
 import scipy.fft as sfft
 from scipy import stats
 
+from lagwise.engine.covariance.kernels import fixed_b_kernels as registered_fixed_b_kernels
+from lagwise.engine.covariance.kernels import get_kernel
+
 SEED = 20261213
 CHUNK = 2000
 SECTIONS = 20
@@ -116,22 +119,15 @@ def _b_check_grid() -> list[float]:
     return [float(v) for v in np.round(0.5 * (g[1:] + g[:-1]), 6)]
 
 
-def has_fixed_b_theory(kernel) -> bool:
-    """The registry's `fixed_b` flag when present, else `psd` (see the module docstring)."""
-    flag = getattr(kernel, "fixed_b", None)
-    return bool(kernel.psd if flag is None else flag)
-
-
 def fixed_b_kernels() -> list[str]:
-    """Registered kernels that get a table, in registry order."""
-    from lagwise.engine.kernels import KERNELS
-    return [name for name, k in KERNELS.items() if has_fixed_b_theory(k)]
+    """Registered kernels that get a table, in registry order: those with a fixed-b law
+    (`Kernel.has_fixed_b_theory`: the kernel's `fixed_b` flag, by default its `psd` flag)."""
+    return list(registered_fixed_b_kernels())
 
 
 def spectral_weights(kernels, b_values, nobs, n_fft):
     """K (n_fft//2 + 1, len(kernels) * len(b_values)): S(b)_ab = T^-1 sum_f P_ab(f) K(f)
     (module docstring), columns ordered kernel-major."""
-    from lagwise.engine.kernels import get_kernel
     cols = []
     for name in kernels:
         w = get_kernel(name).weights(np.asarray(b_values) * nobs, nobs)   # k(j/(bT)), j < T
@@ -322,8 +318,8 @@ def main(argv=None):
     ap.add_argument("--reps", type=int, default=400_000)
     ap.add_argument("--nobs", type=int, default=1000)
     ap.add_argument("--workers", type=int, default=2)
-    ap.add_argument("--out", default=str(Path(__file__).resolve().parent.parent / "engine" /
-                                         "tables" / "fixed_b.json"))
+    ap.add_argument("--out", default=str(Path(__file__).resolve().parent.parent / "engine"
+                                         / "laws" / "tables" / "fixed_b.json"))
     args = ap.parse_args(argv)
     if args.reps < 10 * SECTIONS or args.reps % SECTIONS:
         ap.error(f"--reps must be a multiple of {SECTIONS} and at least {10 * SECTIONS}")

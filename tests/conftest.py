@@ -17,6 +17,20 @@ REQUIRE_BROWSER = os.environ.get("LAGWISE_REQUIRE_BROWSER") == "1"
 logging.getLogger("werkzeug").setLevel(logging.WARNING)
 
 
+def pytest_collection_modifyitems(config, items):
+    """Benchmarks run only when asked for by name (`-m bench`): a marker expression such as
+    `-m "not slow and not browser"` replaces the default `-m 'not bench'`, and must not pull
+    the benchmarks into the fast inner loop."""
+    if "bench" in (config.getoption("markexpr") or ""):
+        return
+    keep, dropped = [], []
+    for item in items:
+        (dropped if item.get_closest_marker("bench") else keep).append(item)
+    if dropped:
+        config.hook.pytest_deselected(items=dropped)
+        items[:] = keep
+
+
 def browser_available() -> bool:
     if not os.path.exists(CHROMIUM):
         return False
