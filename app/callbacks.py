@@ -1,20 +1,19 @@
-"""Thin callbacks: read inputs, call the engine, hand results to views and figures.
+"""Thin callbacks: read inputs, ask the derived-results service (app.derived), hand results to
+views and figures.
 
-Each callback is a module-level function registered by `@callback(...)` into `CALLBACKS`;
-`register(app)` wires them to an app (several apps can live in one process, as in the tests).
-Big objects (tables, fits, sweeps, comparisons, diagnostics) stay in the session's part of
-`app.state.STORE`; the browser holds only keys and settings. A slider move only reweights the
-fit's cached autocovariances (engine: `infer`) and patches the marker on the sensitivity chart.
+Each callback is a module-level function recorded by `@callback(...)` (app.wiring) and wired by
+`wiring.register(app)`. Big objects (tables, fits, sweeps, comparisons, diagnostics) stay in the
+session's part of `app.state.STORE`; the browser holds only keys and settings. A slider move
+only reweights the fit's cached autocovariances (engine: `infer`) and patches the marker on the
+sensitivity chart. What a model shows follows its kind (engine.kinds), never its class.
 """
 
 from __future__ import annotations
 
 import base64
-import functools
-import logging
-import warnings
 
 import numpy as np
+import pandas as pd
 from dash import ALL, Input, Output, Patch, State, ctx, html, no_update
 from dash.exceptions import PreventUpdate
 
@@ -22,244 +21,17 @@ from .. import engine
 from ..engine.covariance.registry import FAMILIES
 from ..engine.data.columns import index_label
 from ..engine.data.panels import periods_of
-from ..engine.models.iv_sweep import gmm_curves, with_j
-from ..engine.studies.panel_diagnostics import diagnose_panel
-from ..engine.studies.panel_sensitivity import panel_sweep
-import pandas as pd
+from ..engine.kinds import kind_of
 from . import figures as F
 from . import views as V
-from .layout import DEFAULT_FAMILY, estimator_controls, rule_options
-from .state import MAX_UPLOAD_BYTES, STORE, content_hash, key_for, spec_hash
-from .work import IDLE_POLLS, SHOW_AFTER, WORK, tracked
-
-CALLBACKS: list = []
-LOG = logging.getLogger("lagwise")
-
-
-def callback(*args, message: int | None = None, **kwargs):
-    """Record a module-level callback; `register` wires it to an app. `message`: the position
-    of the output that shows a message when a request cannot be handled (a malformed payload or
-    an unexpected failure): it gets the message, the other outputs stay as they are, and the
-    server never answers with an error page."""
-    def deco(fn):
-        CALLBACKS.append((args, kwargs, guarded(fn, args, message)))
-        return fn
-    return deco
-
-
-def guarded(fn, args, message):
-    n_out = sum(isinstance(a, Output) for a in args)
-
-    @functools.wraps(fn)
-    def run(*values):
-        try:
-            return fn(*values)
-        except PreventUpdate:
-            raise
-        except Exception as exc:  # noqa: BLE001 - a message, never a traceback or an HTTP 500
-            LOG.warning("callback %s could not handle a request: %s", fn.__name__, exc)
-            if message is None:
-                raise PreventUpdate from None
-            text = V.error_box("this request could not be handled; reload the page if the "
-                               "problem persists")
-            if n_out == 1:
-                return text
-            out = [no_update] * n_out
-            out[message] = text
-            return tuple(out)
-    return run
-
-
-def register(app):
-    from . import exports, studies  # noqa: F401 - their callbacks are recorded on import
-    for args, kwargs, fn in CALLBACKS + exports.CALLBACKS + studies.CALLBACKS:
-        app.callback(*args, **kwargs)(fn)
-
-
-# --------------------------------------------------------------------------- shared helpers
-
-def stored(session, key):
-    return STORE.get(session, key)
-
-
-#: Callbacks that may run for more than a second switch the progress poll on while they run
-#: (and restart its idle count); the poll switches itself off when nothing is running. The
-#: slider's callback (on_inference) has none: its slow first round (the comparison, the flip's
-#: sweep) is shared with on_sensitivity, which has, so a slider move sends no extra requests.
-RUNNING = [(Output("work-poll", "disabled"), False, False),
-           (Output("work-poll", "n_intervals"), 0, 0)]
-
-
-def dataset_from_bytes(session: str, raw: bytes, name: str):
-    table = tracked(session, f"Reading {name}",
-                    lambda p: engine.load_table(raw, name=name, max_bytes=MAX_UPLOAD_BYTES,
-                                                progress=p))
-    key = key_for("data", content_hash(raw))
-    STORE.put(session, key, table)
-    return key, table
-
-
-def dataset_from_table(session: str, table) -> str:
-    """A Table made in Python (lagwise.show) as this session's data."""
-    key = key_for("data", "table", id(table))
-    STORE.put(session, key, table)
-    return key
-
-
-def param_values(family, values, ids) -> dict:
-    """Parameter values from the generated controls (unknown or axis-set names ignored)."""
-    kinds = {p.name: p for p in family.params}
-    out = {}
-    for pid, v in zip(ids or [], values or []):
-        p = kinds.get(pid.get("name") if isinstance(pid, dict) else None)
-        if p is None or p.kind == "bandwidth":
-            continue
-        if p.kind == "bool":
-            v = isinstance(v, list) and "on" in v
-        elif p.kind == "int" and v == "auto":
-            v = None
-        out[p.name] = v
-    return out
-
-
-def axis_value(family, slider):
-    """The slider's value typed for the family's tuning parameter."""
-    p = next(p for p in family.params if p.name == family.axis.param)
-    value = slider if isinstance(slider, (int, float)) and not isinstance(slider, bool) else 1
-    return float(value) if p.kind == "bandwidth" else int(round(value))
-
-
-def make_estimator(name, values, ids, rule, slider) -> engine.Estimator:
-    family = FAMILIES.get(name)
-    if family is None:
-        raise engine.SpecificationError(f"unknown estimator {name!r}")
-    params = param_values(family, values, ids)
-    axis = family.axis
-    if axis is not None:
-        if rule in axis.rules:
-            params.update(axis.rules[rule][1])
-        else:
-            params.update(axis.fixed)
-            params[axis.param] = axis_value(family, slider)
-    return engine.estimator(name, **params)
-
-
-def is_gmm(model, method) -> bool:
-    return isinstance(model, engine.IVFit) and method in ("two-step", "iterated", "cue")
-
-
-def sweep_for(session, fkey, model, est, method="2sls"):
-    """The chart's sweep for the current family and options, computed once per fit. For a GMM
-    fit the weighting follows the estimator (two-step estimates along the axis)."""
-    family = est.family
-    if getattr(model, "panel", None) is not None and family.panel_chart is not None:
-        p = family.panel_chart(est.params)
-        small, repair = bool(p.get("small_sample", False)), bool(p.get("repair", True))
-        key = key_for(fkey, "panel-sweep", small, repair)
-        return STORE.derived(session, key, lambda: tracked(
-            session, "Panel estimators along the bandwidth",
-            lambda _p: panel_sweep(model, small_sample=small, repair=repair)))
-    if family.axis is None:
-        family, est = FAMILIES[DEFAULT_FAMILY], engine.estimator(DEFAULT_FAMILY)
-    gmm = is_gmm(model, method)
-    if family.companions is not None:
-        # a GMM sweep weights by the estimator itself: no prewhitening there
-        curves = [engine.estimator(family.name, **({**p, "prewhiten": False}
-                                                   if gmm and "prewhiten" in p else p))
-                  for p in family.companions(est.params)]
-    else:
-        curves = [est.at(1)]
-    key = key_for(fkey, "sweep", method if gmm else "", spec_hash([c.settings() for c in curves]))
-
-    def build():
-        if gmm:
-            return gmm_curves(model, curves)
-        if isinstance(model, engine.IVFit):
-            return with_j(model, engine.sweep(model, curves))
-        return engine.sweep(model, curves)
-    what = family.axis.title if family.axis is not None else "settings"
-    return STORE.derived(session, key, lambda: tracked(
-        session, f"{family.title} along its {what}", lambda _p: build()))
-
-
-def view_model(session, fkey, model, method, est):
-    """The model the screen shows: the fit itself, or for GMM the fit weighted by `est`."""
-    if not is_gmm(model, method):
-        return model
-    if method == "two-step":
-        return model.two_step(est)
-    key = key_for(fkey, method, spec_hash(est.settings()))
-    return STORE.derived(session, key, lambda: getattr(model, method)(est))
-
-
-def view_inference(session, fkey, model, method, est, level, reference):
-    shown = view_model(session, fkey, model, method, est)
-    if shown is model:
-        return shown, model.infer(est, level=level, reference=reference)
-    return shown, shown.infer_weighting(level=level, reference=reference)
-
-
-def comparison_for(session, fkey, model, level, reference, extra=""):
-    key = key_for(fkey, "compare", level, reference, extra)
-    return STORE.derived(session, key, lambda: tracked(
-        session, "Comparing estimators",
-        lambda p: model.compare(level=level, reference=reference, progress=p)))
-
-
-PANEL_REFERENCE = (("cluster", {"by": "entity"}, "clustered by entity"),
-                   ("cluster", {"by": "time"}, "clustered by time"),
-                   ("cluster", {"by": "both"}, "two-way clustered"))
-
-
-def panel_reference_lines(session, fkey, model, focus, col, level, skip=""):
-    """Horizontal lines on the panel chart: the clustered results for the coefficient."""
-    def build():
-        out = []
-        for name, params, title in PANEL_REFERENCE:
-            est = engine.estimator(name, **params)
-            try:
-                out.append((est.label, title, model.infer(est, level=level).table))
-            except engine.LagwiseError:
-                continue
-        return out
-    rows = STORE.derived(session, key_for(fkey, "panel-lines", level), build)
-    return [(f"{title}: {V.fmt(float(table.loc[focus, col]), 3)}", float(table.loc[focus, col]))
-            for label, title, table in rows if label != skip
-            and np.isfinite(table.loc[focus, col])]
-
-
-def rule_marks(session, fkey, model, est, sweep):
-    """Where each automatic rule of the family lands: [(curve, title, value)]."""
-    family = est.family
-    if family.axis is None or sweep.family is not family:
-        return []
-    key = key_for(fkey, "marks", spec_hash(est.settings()))
-
-    def build():
-        curve = _current_curve(sweep, est)
-        out = []
-        for rule, (title, changes) in family.axis.rules.items():
-            try:
-                lr = est.with_params(**changes).long_run(model)
-            except engine.LagwiseError:
-                continue
-            out.append((curve, title, lr.tuning))
-        return out
-    return STORE.derived(session, key, build)
-
-
-def _current_curve(sweep, est) -> int:
-    kernel = est.params.get("kernel")
-    return sweep.kernels.index(kernel) if kernel in sweep.kernels else 0
-
-
-def no_model_message(session, key) -> str:
-    if STORE.was_evicted(session, key):
-        return ("this session's data was removed to stay within its memory budget: load the "
-                "file again")
-    if not STORE.has_session(session):
-        return "this page's session is not known to the server any more: reload the page"
-    return "Load data and choose a model."
+from .derived import (comparison_for, current_curve, dataset_from_bytes, diagnostics_for,
+                      flip_for, is_gmm, make_estimator, no_model_message,
+                      panel_reference_lines, rule_marks, stored, strength_for, sweep_for,
+                      view_inference)
+from .layout import estimator_controls, rule_options
+from .state import STORE, key_for, spec_hash
+from .wiring import RUNNING, callback
+from .work import IDLE_POLLS, SHOW_AFTER, WORK
 
 
 # --------------------------------------------------------------------------- data and model
@@ -402,9 +174,11 @@ def on_iv_options(columns, response, regressors, endogenous, instruments):
           Input("entity", "value"), Input("time-col", "value"), Input("effects", "value"),
           Input("one-period", "value"),
           State("focus", "value"), State("session", "data"), State("initial-spec", "data"),
-          message=1, running=RUNNING)
+          State("fit-key", "data"), message=1, running=RUNNING)
 def on_spec(key, response, regressors, intercept, horizon, window, endogenous, instruments,
-            entity, time, effects, one_period, focus, session, initial):
+            entity, time, effects, one_period, focus, session, initial, given=None):
+    if isinstance(initial, dict) and initial.get("given_fit"):
+        return _given_spec(session, given, focus)
     table = stored(session, key)
     if table is None or not isinstance(response, str) or not response:
         return None, "", [], None, "", no_update, no_update
@@ -442,10 +216,7 @@ def on_spec(key, response, regressors, intercept, horizon, window, endogenous, i
         return None, V.error_box(str(exc)), [], None, text, no_update, no_update
     slopes = [t for t in model.terms if t != engine.INTERCEPT] or model.terms
     focus = focus if focus in model.terms else slopes[0]
-    msg = [f"T = {model.nobs}, k = {model.k}, R² = {V.fmt(model.r_squared, 3) or 'n/a'}"]
-    if isinstance(model, engine.IVFit):
-        msg.append(f"instrumental variables: {len(model.moment_names)} instruments for "
-                   f"{model.k} coefficients ({', '.join(model.core.endogenous)} instrumented)")
+    msg = [engine.model_line(model)]
     if model.horizon:
         msg.append(f"overlapping {model.horizon}-period response: errors are MA("
                    f"{model.horizon - 1}) by construction")
@@ -454,10 +225,23 @@ def on_spec(key, response, regressors, intercept, horizon, window, endogenous, i
         msg.append(f"the dates are {spacing}: kernel estimators treat the rows as equally "
                    "spaced periods")
     msg += model.sample.notes
-    known = getattr(model, "one_period", None)
+    known = model.one_period if model.capabilities.one_period else None
     return (fkey, html.Div([html.Div(m) for m in msg], className="lw-ok"),
             [{"label": t, "value": t} for t in model.terms], focus, text, h,
             known.name if known is not None else None)
+
+
+def _given_spec(session, fkey, focus):
+    """A model handed to the page (lagwise.show): nothing to fit; its line and its terms."""
+    model = stored(session, fkey)
+    if model is None:
+        return None, V.error_box(no_model_message(session, fkey)), [], None, "", no_update, \
+            no_update
+    slopes = [t for t in model.terms if t != engine.INTERCEPT] or model.terms
+    focus = focus if focus in model.terms else slopes[0]
+    msg = [engine.model_line(model), *model.sample.notes]
+    return (fkey, html.Div([html.Div(m) for m in msg], className="lw-ok"),
+            [{"label": t, "value": t} for t in model.terms], focus, "", no_update, no_update)
 
 
 def _panel_spec(table, key, response, regressors, intercept, window, endogenous, instruments,
@@ -524,8 +308,7 @@ def on_family_options(fkey, name, pending, session):
     if name in names:
         return options, no_update
     wanted = pending.get("estimator") if isinstance(pending, dict) else None
-    panel = getattr(model, "panel", None) is not None
-    return options, wanted if wanted in names else ("driscoll_kraay" if panel else "kernel")
+    return options, wanted if wanted in names else kind_of(model).default_family
 
 
 @callback(Output("est-params", "children"), Input("est-name", "value"),
@@ -594,7 +377,7 @@ def on_inference(fkey, name, values, rule, slider, reference, level, focus, meth
     if ctx.triggered_id == "tune-slider" and rule != "fixed":
         rule = out_rule = "fixed"
     model = stored(session, fkey)
-    if model is None or focus not in getattr(model, "terms", []):
+    if model is None or focus not in model.terms:
         msg = no_model_message(session, fkey) if fkey else "Load data and choose a model."
         return [], "", [], msg, "", [], out_rule, out_slider, None
     if not applies(name, model):
@@ -610,7 +393,7 @@ def on_inference(fkey, name, values, rule, slider, reference, level, focus, meth
         landed = float(np.clip(round(res.long_run.tuning), *family.axis.grid(model)[[0, -1]]))
         if landed != slider:
             out_slider = landed
-    flip = _flip(session, fkey, model, est, focus, level, reference, method)
+    flip = flip_for(session, fkey, model, est, focus, level, reference, method)
     title = family.axis.rules[rule][0] if family.axis and rule in family.axis.rules else None
     rejects, headline = V.headline(res, focus, V.flip_line(flip), title)
     notes = list(res.notes)
@@ -628,25 +411,6 @@ def on_inference(fkey, name, values, rule, slider, reference, level, focus, meth
     return (V.coefficient_records(res), res.describe(), [html.Li(n) for n in notes], headline,
             V.tuning_text(res, model), rows, out_rule, out_slider,
             signature if rows is not no_update else no_update)
-
-
-def _flip(session, fkey, model, est, focus, level, reference, method="2sls"):
-    """Where the current curve's conclusion changes; computed once per setting, not per move."""
-    if est.family.axis is None:
-        return None
-    sweep = sweep_for(session, fkey, model, est, method)
-    key = key_for(fkey, "flip", spec_hash([est.family.curve_label(est.params), focus, level,
-                                           reference, method]))
-
-    def build():
-        ref = reference
-        try:
-            sweep.law(_current_curve(sweep, est), 0, reference)
-        except engine.LagwiseError:
-            ref = "auto"
-        return engine.significance_flip(model, focus, level=level, reference=ref,
-                                        sweep_result=sweep, curve=_current_curve(sweep, est))
-    return STORE.derived(session, key, build)
 
 
 @callback(Output("sens-graph", "figure", allow_duplicate=True),
@@ -670,7 +434,7 @@ def on_marker(slider):
 def on_sensitivity(fkey, reference, level, focus, mode, name, values, rule, method, ids, slider,
                    session):
     model = stored(session, fkey)
-    if model is None or focus not in getattr(model, "terms", []):
+    if model is None or focus not in model.terms:
         empty = F.empty_figure(no_model_message(session, fkey) if fkey else
                                "Load data and choose a model to see the sensitivity chart.")
         return empty, "", F.empty_figure("")
@@ -685,12 +449,12 @@ def on_sensitivity(fkey, reference, level, focus, mode, name, values, rule, meth
         if est.family.axis is None and mode != "ci":
             value = res.table.loc[focus, col]
             lines = [(f"{res.label}: {V.fmt(value, 3)}", float(value))]
-        if getattr(model, "panel", None) is not None and mode in ("t", "se"):
+        if "panel-lines" in kind_of(model).cards and mode in ("t", "se"):
             lines += panel_reference_lines(session, fkey, model, focus, col, level,
                                            skip=res.label)
         ref = reference if np.isfinite(sweep.critical_values(level, reference, focus)).any() else "auto"
         fig = F.sensitivity_figure(sweep, focus, mode or "t", level, ref, slider,
-                                   _current_curve(sweep, est) if sweep.family is est.family
+                                   current_curve(sweep, est) if sweep.family is est.family
                                    else None, rule_marks(session, fkey, model, est, sweep),
                                    reference_lines=lines, horizon=model.horizon)
         flips = [html.Li(engine.significance_flip(model, focus, level=level, reference=ref,
@@ -743,23 +507,10 @@ def on_diagnostics(fkey, session):
         e = F.empty_figure(str(exc))
         return e, e, e, e, [], V.error_box(str(exc)), ""
     reading = html.Ul([html.Li(s) for s in rep.reading + rep.notes])
-    resid = F.panel_residual_figure(model) if getattr(model, "panel", None) is not None \
-        else F.residual_figure(model)
+    resid = F.residual_chart(model, kind_of(model).residual_chart)
     return (resid, F.acf_figure(rep), F.fitted_scatter_figure(model),
             F.score_acf_figure(rep), V.diagnostics_records(rep), reading,
             f"ACF: {rep.bands['acf']}.")
-
-
-def diagnostics_for(session, fkey, model):
-    def build():
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            if getattr(model, "panel", None) is not None:
-                return tracked(session, "Panel diagnostics",
-                               lambda p: diagnose_panel(model, progress=p))
-            return tracked(session, "Residual diagnostics",
-                           lambda p: engine.diagnose(model, progress=p))
-    return STORE.derived(session, key_for(fkey, "diagnostics"), build)
 
 
 # --------------------------------------------------------------------------- instruments
@@ -775,7 +526,7 @@ def on_strength(fkey, name, values, rule, method, level, slider, ids, session):
     """First stage, strength statistics, J and difference-in-J, and the Anderson-Rubin set,
     under the estimator of S chosen in the Sensitivity card."""
     model = stored(session, fkey)
-    if not isinstance(model, engine.IVFit):
+    if model is None or "instruments" not in kind_of(model).cards:
         return {"display": "none"}, [], [], [], ""
     try:
         est = make_estimator(name, values, ids, rule, slider)
@@ -788,27 +539,6 @@ def on_strength(fkey, name, values, rule, method, level, slider, ids, session):
                f"{ar.law})", className="lw-ar-set"), html.P(ar.reading)]
     return ({}, V.first_stage_records(fs), V.strength_lines(fs), V.spec_records(tests),
             ar_block)
-
-
-def strength_for(session, fkey, model, method, est, level):
-    key = key_for(fkey, "strength", method, level, spec_hash(est.settings()))
-
-    def build():
-        shown = view_model(session, fkey, model, method, est)
-        fs = model.first_stage(est)
-        tests = [("Hansen J (overidentifying restrictions)",
-                  shown.j_test() if shown is not model else model.j_test(est))]
-        if model.overidentification > 0:
-            for z in model.core.excluded:
-                try:
-                    tests.append((f"difference-in-J: {z}", shown.difference_j([z], est)))
-                except engine.LagwiseError:
-                    continue
-        ar = None
-        if len(model.core.endogenous) == 1:
-            ar = model.anderson_rubin(model.core.endogenous[0], est, level)
-        return fs, tests, ar
-    return STORE.derived(session, key, build)
 
 
 # --------------------------------------------------------------------------- clipboard

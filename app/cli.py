@@ -26,12 +26,8 @@ def _p(x):
 def render_text(fit, comp, level: float, extra_lines=()) -> str:
     """Our own plain-text layout: one block per coefficient, one line per estimator."""
     pct = f"{level * 100:g}%"
-    panel = getattr(fit, "panel", None)
-    size = (f"N = {fit.nobs} rows, {panel.n_entities} entities x {panel.n_periods} periods"
-            if panel is not None else f"T = {fit.nobs}")
-    head = (f"Lagwise comparison: {fit.response} on {', '.join(fit.terms)}\n"
-            f"{size} ({fit.sample.first} .. {fit.sample.last}), {pct} intervals"
-            + (f", overlapping {fit.horizon}-period response" if fit.horizon else ""))
+    from ..engine.kinds import model_line
+    head = f"Lagwise comparison: {model_line(fit)}\n{pct} intervals"
     lines = [head]
     lines += [f"  note: {n}" for n in fit.sample.notes]
     width = max(len(s) for s in comp.estimator) + 2
@@ -130,13 +126,15 @@ def cmd_table(args) -> int:
     extra = flip_summary(fit, args.kernel or "bartlett", level=args.level)
     bar.update(1)
     bar.set_description("residual diagnostics")
-    if isinstance(fit, engine.IVFit):
+    kind = engine.kind_of(fit)
+    if "instruments" in kind.cards:
         extra = list(extra) + iv_lines(fit, weight_arg(args.weight), args.level)
     else:
         try:
-            extra = list(extra) + ["", "Residual diagnostics"] + engine.diagnose(fit).lines()
+            extra = list(extra) + ["", "Residual diagnostics"] + kind.diagnostics(fit).lines()
         except engine.LagwiseError as exc:
             extra = list(extra) + ["", f"Residual diagnostics not available: {exc}"]
+    if "persistence" in kind.cards:
         extra = list(extra) + predictive_lines(fit, args)
     bar.update(1)
     bar.close()
@@ -174,7 +172,7 @@ def predictive_lines(fit, args) -> list[str]:
         except engine.LagwiseError as exc:
             lines += ["", f"Persistence report not available: {exc}"]
     if args.horizons:
-        source = fit.one_period.name if getattr(fit, "one_period", None) is not None else None
+        source = fit.one_period.name if fit.capabilities.one_period else None
         if source is None:
             lines += ["", "Horizons: name the one-period series with --one-period"]
         else:

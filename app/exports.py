@@ -13,15 +13,16 @@ import plotly.graph_objects as go
 from dash import ALL, Input, Output, State, ctx, no_update
 
 from .. import engine
-from ..engine.io.settings import SETTINGS_VERSION, load_settings, settings_json, validate_settings
+from ..engine.io.settings import SETTINGS_VERSION, load_settings, settings_json
 from ..engine.io.tables import FORMATS, render
 from . import views as V
-from .callbacks import (comparison_for, diagnostics_for, guarded, is_gmm, make_estimator,
-                        param_values, stored, strength_for, view_inference)
+from ..engine.kinds import kind_of
+from .derived import (comparison_for, diagnostics_for, is_gmm, make_estimator, param_values,
+                      stored, strength_for, view_inference)
 from .layout import CHART_FORMATS
 from .state import STORE, key_for, spec_hash
+from .wiring import callback
 
-CALLBACKS: list = []
 _EXPORT_LOCK = threading.Lock()
 _KALEIDO = {"started": False}
 GRAPHS = ["sens-graph", "interval-graph", "resid-graph", "acf-graph", "scatter-graph",
@@ -32,13 +33,6 @@ VIEW_STATE = [State("session", "data"), State("fit-key", "data"), State("est-nam
               State({"type": "est-param", "name": ALL}, "id"), State("tune-rule", "value"),
               State("tune-slider", "value"), State("reference", "value"),
               State("level", "value"), State("focus", "value"), State("iv-method", "value")]
-
-
-def callback(*args, message: int | None = None, **kwargs):
-    def deco(fn):
-        CALLBACKS.append((args, kwargs, guarded(fn, args, message)))
-        return fn
-    return deco
 
 
 def export_figure(fig: go.Figure, fmt: str) -> bytes:
@@ -94,7 +88,7 @@ def table_frame(target, session, fkey, model, res, focus, reference, base=None, 
             [f"{res.level:.0%} confidence intervals; two-sided tests at {1 - res.level:.0%}; "
              "each row's reference law is stated in its row"]
     if target == "spec-table":
-        if not isinstance(base, engine.IVFit):
+        if "instruments" not in kind_of(base).cards:
             raise engine.SpecificationError("the model has no instruments")
         fs, tests, ar = strength_for(session, fkey, base, method, est, res.level)
         rows = [{"test": n, "statistic": j.statistic, "df": j.df, "p_value": j.p_value,
@@ -169,7 +163,7 @@ def on_report(_n, *states):
         titles = ["Coefficients", "Every estimator, coefficient in focus", "Diagnostic tests",
                   "Instruments: strength and specification", "Persistence of the predictor"]
         for target, title in zip(TABLES, titles):
-            if target == "spec-table" and not isinstance(base, engine.IVFit):
+            if target == "spec-table" and "instruments" not in kind_of(base).cards:
                 continue
             if target == "persistence-table":
                 continue                      # its chart is in the report; the table on request
@@ -311,35 +305,18 @@ def view_script(table, model, est, level, reference, method="2sls") -> str:
                      "give its path")
     for kind, column, p in table.transforms:
         lines.append(f"table, _ = table.with_transform({kind!r}, {column!r}, {int(p)})")
-    regs = [t for t in model.terms if t != engine.INTERCEPT]
-    sample = None
-    if model.sample.dropped_window:
-        sample = (model.sample.first, model.sample.last)
-    intercept = engine.INTERCEPT in model.terms
-    panel = getattr(model, "panel", None)
-    if panel is not None:
-        lines.append(f"fit = lagwise.fit_panel(table, {model.response!r}, {_literal(regs)},")
-        lines.append(f"                        entity={panel.entity!r}, time={panel.time!r}, "
-                     f"effects={_literal(list(panel.effects))},")
-        lines.append(f"                        intercept={intercept or bool(panel.effects)!r}, "
-                     f"sample={_literal(sample) if sample else None})")
-    elif isinstance(model, engine.IVFit):
-        core = model.core
-        lines.append(f"fit = lagwise.fit_iv(table, {model.response!r}, {_literal(regs)},")
-        lines.append(f"                     endogenous={_literal(core.endogenous)}, "
-                     f"instruments={_literal(core.excluded)},")
-        lines.append(f"                     intercept={intercept!r}, sample="
-                     f"{_literal(sample) if sample else None}, horizon={model.horizon!r})")
-    else:
-        one = getattr(model, "one_period", None)
-        lines.append(f"fit = lagwise.fit_ols(table, {model.response!r}, {_literal(regs)}, "
-                     f"intercept={intercept!r},")
-        lines.append(f"                      sample={_literal(sample) if sample else None}, "
-                     f"horizon={model.horizon!r}"
-                     + (f", one_period={str(one.name)!r})" if one is not None else ")"))
+    recipe = kind_of(model).recipe
+    if recipe is None:
+        raise engine.SpecificationError(f"a {kind_of(model).title} fit is not rebuilt from "
+                                        "its data by a script")
+    function, args = recipe(model)
+    args = {k: v for k, v in args.items() if v is not None}
+    call = f"fit = lagwise.{function}(table, "
+    parts = [f"{k}={_literal(v)}" for k, v in args.items()]
+    lines.append(call + ",\n    ".join(parts) + ")")
     params = ", ".join(f"{k}={_literal(v)}" for k, v in est.params.items())
     lines.append(f"est = lagwise.estimator({est.name!r}{', ' + params if params else ''})")
-    if isinstance(model, engine.IVFit) and method in ("two-step", "iterated", "cue"):
+    if is_gmm(model, method):
         call = {"two-step": "fit.two_step(est)", "iterated": "fit.iterated(est)",
                 "cue": "fit.cue(est)"}[method]
         lines.append(f"gmm = {call}          # the weighting follows the estimator")

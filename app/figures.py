@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import math
 
 import numpy as np
 import pandas as pd
@@ -329,6 +328,15 @@ def envelope(y: np.ndarray, max_points: int = MAX_POINTS):
         seg = y[b]
         keep += sorted({int(b[np.argmin(seg)]), int(b[np.argmax(seg)])})
     return np.array(keep)
+
+
+def residual_chart(fit, kind: str | None) -> go.Figure:
+    """The residual chart a model kind declares: over time ("series"), by period ("panel")."""
+    if kind == "series":
+        return residual_figure(fit)
+    if kind == "panel":
+        return panel_residual_figure(fit)
+    return empty_figure("no residual chart for this kind of model")
 
 
 def residual_figure(fit) -> go.Figure:

@@ -17,7 +17,9 @@ from .work import POLL_MS
 
 REFERENCE_OPTIONS = [{"label": REQUEST_LABELS[k], "value": k, "title": text}
                      for k, text in REQUESTS.items()]
-DEFAULT_FAMILY = "kernel"
+#: The picker's first family before a model exists: the first registered family with a tuning
+#: axis (a fitted model's kind then chooses its own).
+DEFAULT_FAMILY = next(f.name for f in FAMILIES.values() if f.axis is not None)
 DEFAULT_RULE = "andrews"
 HELP = {
     "upload": f"CSV (comma, semicolon, tab or pipe; decimal commas and thousands separators "
@@ -457,7 +459,7 @@ def build_layout(session: str, initial: dict, where: str = "this computer", badg
     return html.Div([
         dcc.Store(id="session", data=session),
         dcc.Store(id="dataset-key", data=initial.get("dataset_key")),
-        dcc.Store(id="fit-key"),
+        dcc.Store(id="fit-key", data=initial.get("fit_key")),
         dcc.Store(id="compare-shown"),
         dcc.Store(id="pending-settings", data=initial.get("settings")),
         dcc.Store(id="initial-spec", data=spec),

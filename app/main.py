@@ -14,8 +14,10 @@ from dash import Dash
 from flask import Response, request
 
 from .._files import assets_dir, demo_file
-from . import callbacks
+from . import callbacks, exports, studies  # noqa: F401 - their callbacks are recorded on import
+from .derived import dataset_from_bytes, dataset_from_table, given_model
 from .layout import build_layout
+from .wiring import register
 from .state import MAX_UPLOAD_BYTES, STORE, CapacityError
 
 DEMO_SPEC = {"response": "exret_12m", "regressors": ["rate_capacity", "credit_spread"],
@@ -40,14 +42,17 @@ def _request_host() -> str:
 
 def create_app(data_path: str | Path | None = None, settings: dict | None = None,
                host: str = "127.0.0.1", allowed_hosts=(), table=None,
-               spec: dict | None = None) -> Dash:
+               spec: dict | None = None, model=None) -> Dash:
     """The Dash app. data_path: a file opened for every new page (default: the demo data);
     settings: a validated settings record applied when the page loads; host: the address the
     server listens on (it decides which Host headers are answered and what the page says about
     where files go); allowed_hosts: more names to answer to. table and spec: a Table already
-    in memory and the model to open on (lagwise.show), instead of a file."""
+    in memory and the model to open on (lagwise.show), instead of a file. model: a fitted
+    model the page opens on as it is (lagwise.show on a kind the page does not refit)."""
     given_spec = spec is not None
-    if table is None:
+    if model is not None:
+        spec, table = {"given_fit": True}, None
+    elif table is None:
         path = Path(data_path) if data_path else demo_file()
         raw = path.read_bytes()
         name = path.name
@@ -71,18 +76,21 @@ def create_app(data_path: str | Path | None = None, settings: dict | None = None
         except CapacityError as exc:
             return build_layout("", {"message": str(exc)}, where, badge)
         key = None
+        if model is not None:
+            fkey = given_model(session, model)
+            return build_layout(session, {"fit_key": fkey, "spec": spec}, where, badge)
         try:
             if table is not None:
-                key = callbacks.dataset_from_table(session, table)
+                key = dataset_from_table(session, table)
             else:
-                key, _ = callbacks.dataset_from_bytes(session, raw, name)
+                key, _ = dataset_from_bytes(session, raw, name)
         except Exception as exc:  # noqa: BLE001 - shown on the page, never a traceback
             logging.getLogger("lagwise").warning("could not load the data: %s", exc)
         return build_layout(session, {"dataset_key": key, "spec": spec, "settings": settings},
                             where, badge)
 
     app.layout = layout
-    callbacks.register(app)
+    register(app)
     _protect(app, _host_names(host, allowed_hosts))
     return app
 

@@ -1,18 +1,19 @@
 """lagwise.show(fit): the dashboard on a fit made in Python, inline in Jupyter or in a browser
-tab, without a file upload. The fit's data become the page's data and its specification the
-page's model (through the same settings record a saved settings file uses)."""
+tab, without a file upload. For a kind the dashboard can refit (least squares, IV, panels), the
+fit's data become the page's data and its specification the page's model (through the same
+settings record a saved settings file uses); for any other kind (a custom GMM, a stacked model)
+the page opens on the fitted model itself, with every card its kind has."""
 
 from __future__ import annotations
 
 import threading
 import webbrowser
-
-import pandas as pd
+from dataclasses import replace
 
 from .. import engine
-from ..engine.data.table import LoadReport, Table
-from ..engine.data.columns import INTERCEPT
+from ..engine.data.table import LoadReport
 from ..engine.io.settings import validate_settings
+from ..engine.kinds import kind_of
 from ..engine.models.iv import METHODS
 
 
@@ -36,61 +37,26 @@ class Shown:
 
 
 def table_and_settings(fit):
-    """The Table the page shows and the settings record that opens it on this fit."""
-    panel = getattr(fit, "panel", None)
-    regs = [t for t in fit.terms if t != INTERCEPT]
-    record = {"response": fit.response, "regressors": regs,
-              "intercept": INTERCEPT in fit.terms or bool(panel and panel.effects),
-              "horizon": getattr(fit, "horizon", None), "level": 0.95, "reference": "auto",
-              "rule": "andrews", "chart_mode": "t"}
-    spec = {"response": fit.response, "regressors": regs,
-            "horizon": getattr(fit, "horizon", None)}
-    table = getattr(fit, "table", None)
-    if isinstance(fit, engine.IVFit):
-        core = fit.core
-        record.update(endogenous=list(core.endogenous), instruments=list(core.excluded),
-                      method=fit.method if fit.method in METHODS else "2sls")
-    if panel is not None:
-        record.update(entity=panel.entity, time=panel.time, effects=list(panel.effects),
-                      estimator="driscoll_kraay")
-        if table is None:
-            values = fit._raw[0] if fit._raw is not None else (
-                fit.X[:, 1:] if INTERCEPT in fit.terms else fit.X)
-            y = fit._raw[1] if fit._raw is not None else fit.y
-            frame = pd.DataFrame(values, columns=regs)
-            frame[fit.response] = y
-            labels = pd.DataFrame({panel.entity: fit.index.get_level_values(0).astype(str),
-                                   panel.time: fit.index.get_level_values(1)})
-            frame.index = pd.RangeIndex(len(frame), name="row")
-            labels.index = frame.index
-            report = LoadReport(source="a fit made in Python", file_format="memory",
-                                rows_read=len(frame), panel=(panel.entity, panel.time))
-            table = Table(frame=frame, report=report, labels=labels)
-    else:
-        record["estimator"] = "kernel"
-        if table is None:
-            cols = {t: fit.X[:, fit.terms.index(t)] for t in regs}
-            frame = pd.DataFrame(cols, index=fit.index)
-            frame[fit.response] = fit.y
-            if isinstance(fit, engine.IVFit):
-                for z in fit.core.excluded:
-                    frame[z] = fit.core.Z[:, fit.core.z_names.index(z)]
-            one = getattr(fit, "one_period", None)
-            if one is not None:
-                frame = frame.reindex(frame.index.union(one.index))
-                frame[one.name] = one.reindex(frame.index).to_numpy()
-            report = LoadReport(source="a fit made in Python", file_format="memory",
-                                rows_read=len(frame))
-            table = Table(frame=frame, report=report,
-                          horizons={fit.response: fit.horizon} if fit.horizon else {})
+    """The Table the page shows and the settings record that opens it on this fit, from the
+    fit's kind: its recipe (how it is refitted from a table) and its data."""
+    kind = kind_of(fit)
+    function, args = kind.recipe(fit)
+    record = {k: v for k, v in args.items() if k in ("response", "regressors", "intercept",
+                                                     "horizon", "endogenous", "instruments",
+                                                     "entity", "time", "effects")}
+    record.update(level=0.95, reference="auto", rule="andrews", chart_mode="t",
+                  estimator=kind.default_family)
+    if "instruments" in kind.cards:
+        record["method"] = fit.method if fit.method in METHODS else "2sls"
+    spec = {"response": fit.response, "regressors": args.get("regressors", []),
+            "horizon": fit.horizon}
+    table = fit.table if fit.table is not None else kind.data(fit)
     if not table.report.source:                   # a Table built in memory, not loaded
-        from dataclasses import replace
         table = replace(table, report=LoadReport(source="a fit made in Python",
                                                  file_format="memory",
                                                  rows_read=len(table.frame)))
-    one = getattr(fit, "one_period", None)
-    if one is not None and getattr(fit, "horizon", None):
-        spec["one_period"] = {fit.response: str(one.name)}
+    if args.get("one_period") and fit.horizon:
+        spec["one_period"] = {fit.response: args["one_period"]}
         spec["horizons"] = {fit.response: fit.horizon}
     record = {k: v for k, v in record.items() if v is not None}
     return table, validate_settings(record), spec
@@ -113,10 +79,14 @@ def show(fit, mode: str | None = None, port: int = 0, host: str = "127.0.0.1"):
     Jupyter), or "background" (a server thread only: the returned handle has `url` and
     `stop()`). port 0 picks a free port. Binds 127.0.0.1 unless told otherwise."""
     from .main import create_app
-    if not isinstance(fit, engine.MomentModel) or isinstance(fit, engine.SeriesModel):
-        raise engine.SpecificationError("lagwise.show takes a least-squares, IV/GMM or panel fit")
-    table, settings, spec = table_and_settings(fit)
-    app = create_app(settings=settings, host=host, table=table, spec=spec)
+    if not isinstance(fit, engine.MomentModel):
+        raise engine.SpecificationError("lagwise.show takes a fitted Lagwise model")
+    kind = kind_of(fit)
+    if kind.recipe is not None and (fit.table is not None or kind.data is not None):
+        table, settings, spec = table_and_settings(fit)
+        app = create_app(settings=settings, host=host, table=table, spec=spec)
+    else:                       # the fitted model itself (a custom GMM, a stacked model, ...)
+        app = create_app(host=host, model=fit)
     if mode is None:
         mode = "inline" if _in_notebook() else "browser"
     if mode in ("inline", "tab", "external", "jupyterlab"):

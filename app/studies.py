@@ -19,27 +19,21 @@ from dash.exceptions import PreventUpdate
 from .. import engine
 from ..engine.data.columns import INTERCEPT, SampleInfo
 from ..engine.models.ols import OLSFit
-from ..engine.studies.predictive import PERSISTENCE_THRESHOLD, horizon_sweep, persistence_report
+from ..engine.studies.predictive import horizon_sweep, persistence_report
 from ..engine.studies.size_check import size_check
 from . import figures as F
 from . import views as V
-from .callbacks import RUNNING, guarded, stored
+from ..engine.kinds import kind_of
+from .derived import stored
+from .wiring import RUNNING, callback
 from .state import STORE, key_for
 from .work import tracked
 
-CALLBACKS: list = []
 #: The size check's replications are bounded per run.
 MAX_REPS = 2000
 #: Bytes the job cache may hold on disk (entries are removed when a job starts).
 JOB_CACHE_BYTES = 512 * 2**20
 _JOBS = {"cache": None}
-
-
-def callback(*args, message: int | None = None, **kwargs):
-    def deco(fn):
-        CALLBACKS.append((args, kwargs, guarded(fn, args, message)))
-        return fn
-    return deco
 
 
 def job_manager():
@@ -59,7 +53,7 @@ def lean_copy(fit) -> OLSFit:
     copy = OLSFit(X=np.array(fit.X), y=np.array(fit.y), terms=fit.terms,
                   index=pd.RangeIndex(fit.nobs), response=fit.response,
                   sample=SampleInfo(fit.nobs, fit.nobs), horizon=fit.horizon)
-    if getattr(fit, "one_period", None) is not None:
+    if fit.capabilities.one_period:
         pos = fit.one_period.index.get_indexer(fit.index)
         src = fit.one_period.to_numpy()
         if (pos >= 0).all() and (np.diff(pos) == 1).all():
@@ -68,8 +62,8 @@ def lean_copy(fit) -> OLSFit:
     return copy
 
 
-def _is_time_series_ols(model) -> bool:
-    return isinstance(model, OLSFit) and getattr(model, "panel", None) is None
+def _has_card(model, card: str) -> bool:
+    return model is not None and card in kind_of(model).cards
 
 
 # --------------------------------------------------------------------------- persistence
@@ -82,7 +76,7 @@ def _is_time_series_ols(model) -> bool:
 def on_persistence(fkey, focus, level, session):
     model = stored(session, fkey)
     hidden = {"display": "none"}
-    if not _is_time_series_ols(model) or focus not in getattr(model, "terms", []):
+    if not _has_card(model, "persistence") or focus not in model.terms:
         return hidden, [], [], F.empty_figure(""), []
     key = key_for(fkey, "persistence", focus, level)
 
@@ -101,7 +95,7 @@ def on_persistence(fkey, focus, level, session):
             return {"error": str(exc)}
         if not overlapping and not rep.persistent:
             return None
-        source = model.one_period.name if getattr(model, "one_period", None) is not None \
+        source = model.one_period.name if model.capabilities.one_period \
             else (model.response if not overlapping else None)
         sweep = None
         notes = list(rep.notes)
@@ -141,7 +135,7 @@ def on_persistence(fkey, focus, level, session):
 def on_size_request(_n, fkey, focus, reps, method, level, session):
     """Put a lean copy of the fit in the job cache and hand the job its token."""
     model = stored(session, fkey)
-    if not _is_time_series_ols(model):
+    if not _has_card(model, "size-check"):
         return no_update, V.error_box("the size check is for least-squares time-series fits")
     if focus not in model.terms or focus == INTERCEPT:
         return no_update, V.error_box("choose a slope as the coefficient in focus")
@@ -168,7 +162,7 @@ def on_size_reset(fkey, session):
     """A new model clears the last size check (its numbers belonged to the old one); the card
     is shown for least-squares time-series fits only."""
     model = stored(session, fkey)
-    style = {} if _is_time_series_ols(model) else {"display": "none"}
+    style = {} if _has_card(model, "size-check") else {"display": "none"}
     return style, F.empty_figure("run the size check for this model"), [], "", "0", "", None
 
 
@@ -244,7 +238,7 @@ def _estimator_options(model) -> list[dict]:
         if key in seen:
             continue
         seen.add(key)
-        out.append({"label": est.label, "value": key})
+        out.append({"label": est.label, "value": key, "axis": est.family.axis is not None})
     return out
 
 
@@ -259,7 +253,7 @@ def on_memo_options(fkey, chosen, session):
     values = [o["value"] for o in options]
     chosen = [c for c in (chosen or []) if c in values]
     if not chosen:
-        chosen = values[:1] + [v for v in values if '"kernel"' in v][:1]
+        chosen = values[:1] + [o["value"] for o in options if o["axis"]][:1]
     return options, chosen
 
 

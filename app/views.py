@@ -11,6 +11,7 @@ import pandas as pd
 from dash import html
 
 from ..engine.io.tables import render
+from ..engine.kinds import model_line
 from ..engine.inference.sweep import times
 
 #: Transform pickers show these titles (engine names are the values).
@@ -304,13 +305,8 @@ def report_html(model, figs, tables: list[tuple[str, pd.DataFrame]], caption: st
              ".note{color:#6b7480;font-size:13px}</style></head><body>",
              "<h1>Lagwise report</h1>"]
     if model is not None:
-        panel = getattr(model, "panel", None)
-        size = (f"N = {model.nobs} rows ({panel.n_entities} entities, {panel.n_periods} periods)"
-                if panel is not None else f"T = {model.nobs}")
-        parts.append(f"<p>{_html.escape(model.response)} on {_html.escape(', '.join(model.terms))}"
-                     f"; {size}, sample {_html.escape(str(model.sample.first))} to "
-                     f"{_html.escape(str(model.sample.last))}.</p>")
-        if getattr(model, "describe_method", None) and model.describe_method():
+        parts.append(f"<p>{_html.escape(model_line(model))}.</p>")
+        if model.describe_method():
             parts.append(f"<p>{_html.escape(model.describe_method())}</p>")
     parts.append(f"<p><strong>Current choice:</strong> {_html.escape(caption)}</p>")
     parts.append(f"<p class='note'>{_html.escape(conventions)}</p>")

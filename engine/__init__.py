@@ -32,6 +32,8 @@ from .models.series import SeriesModel
 from .models.iv import IVFit, fit_iv
 from .models.panel import PanelFit, fit_panel
 from .models.fama_macbeth import FamaMacBethFit, fit_fama_macbeth
+from .models.stacked import StackedModel, stack
+from .models.custom_gmm import GMMFit, fit_gmm
 from .studies.predictive import (HorizonSweep, IVXResult, PersistenceReport, horizon_sweep,
                                  ivx_test, persistence_report)
 from .studies.bootstrap import BootstrapResult, bootstrap
@@ -41,6 +43,7 @@ from .io.formulas import fit
 from .io.adapters import from_statsmodels
 from .io.robustness import RobustnessTable, robustness_table
 from . import distributed as _distributed  # noqa: F401 - registers the Dask path
+from .kinds import KINDS, ModelKind, kind_of, model_line, register_kind
 
 __all__ = [
     "DataError", "EstimationError", "LagwiseError", "LawUnavailable", "SpecificationError",
@@ -49,6 +52,8 @@ __all__ = [
     "Law", "Normal", "StudentT", "EWCLaw", "FixedB",
     "MomentModel", "OLSFit", "SeriesModel", "fit_ols", "INTERCEPT", "IVFit", "fit_iv",
     "PanelFit", "FamaMacBethFit", "fit_panel", "fit_fama_macbeth",
+    "StackedModel", "stack", "GMMFit", "fit_gmm", "Capabilities",
+    "KINDS", "ModelKind", "kind_of", "model_line", "register_kind",
     "persistence_report", "PersistenceReport", "ivx_test", "IVXResult", "horizon_sweep",
     "HorizonSweep", "bootstrap", "BootstrapResult", "size_check", "SizeCheck",
     "fit", "from_statsmodels", "robustness_table", "RobustnessTable",

@@ -17,7 +17,7 @@ import pytest
 import lagwise
 from lagwise.app import figures as F
 from lagwise.app import views as V
-from lagwise.app.callbacks import make_estimator, param_values
+from lagwise.app.derived import make_estimator, param_values
 from lagwise.app.state import CapacityError, SessionError, Store
 from lagwise.engine.inference.compare import compare
 from lagwise._files import assets_dir, demo_file

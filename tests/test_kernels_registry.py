@@ -78,10 +78,10 @@ def test_registered_kernel_works_everywhere(with_daniell, fit, capsys):
 
 def test_registered_kernel_reaches_the_app(with_daniell, fit):
     from lagwise.app import figures as F
-    from lagwise.app.callbacks import sweep_for
+    from lagwise.app.derived import sweep_for
     from lagwise.app.layout import estimator_controls
     from lagwise.app.state import Store
-    import lagwise.app.callbacks as cb
+    import lagwise.app.derived as cb
     controls = estimator_controls("kernel")
     dropdown = [c for c in _walk(controls) if getattr(c, "id", None) ==
                 {"type": "est-param", "name": "kernel"}][0]

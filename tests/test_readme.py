@@ -5,6 +5,7 @@ import os
 import re
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 import lagwise
@@ -26,6 +27,28 @@ def test_readme_engine_example_runs(monkeypatch):
     assert sw.t_stat.shape == (3, 60, 3)
     assert namespace["ewc"].axis.symbol == "B"
     assert len(report.tests) > 10
+
+
+def test_readme_stack_and_own_moments_example_runs(monkeypatch):
+    text = (ROOT / "README.md").read_text()
+    block = [b for b in re.findall(r"```python\n(.*?)```", text, flags=re.S)
+             if "lagwise.stack(" in b][0]
+    monkeypatch.chdir(ROOT)
+    namespace: dict = {"lagwise": lagwise}
+    exec(compile(block, "README.md", "exec"), namespace)   # noqa: S102 - our own docs
+    both, gmm, res = namespace["both"], namespace["gmm"], namespace["res"]
+    assert both.terms[:3] == ["12m:intercept", "12m:rate_capacity", "12m:credit_spread"]
+    assert res.wald(both.across("rate_capacity")).df == 2
+    iv = lagwise.fit_iv(namespace["frame"], "exret_1m", ["rate_capacity"], [],
+                        ["credit_spread"], method="two-step",
+                        weight=lagwise.estimator("kernel", lags=6))
+    z = namespace["z"]
+    same = lagwise.fit_gmm(namespace["moments"], [0.0, 0.0], namespace["frame"],
+                           weighting="two-step", estimator=lagwise.estimator("kernel", lags=6),
+                           first_weight=np.linalg.inv(z.T @ z / len(z)))
+    np.testing.assert_allclose(same.beta, iv.beta, rtol=1e-7)      # the 2SLS first step
+    assert gmm.j_test().df == 1
+    assert np.isfinite(gmm.infer_weighting().table.std_error).all()
 
 
 def test_readme_quick_start_commands_are_the_ci_commands():

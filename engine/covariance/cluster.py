@@ -104,6 +104,6 @@ register_family(Family(
     psd=lambda p: True,
     label=lambda p, lr: _CLUSTER_TITLES[p["by"]]
     + ("" if p["small_sample"] else ", no small-sample factor"),
-    group="cluster", needs=("panel",),
+    group="cluster", needs=("panel",), reference_lines=True,
     presets=lambda model, kernel, bandwidth: [estimator("cluster", by=b)
                                               for b in ("entity", "time", "both")]))

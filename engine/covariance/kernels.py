@@ -188,6 +188,12 @@ def register_kernel(name: str, weight: Callable, *, label: str, reference: str, 
     return kernel
 
 
+def default_kernel() -> str:
+    """The first registered kernel: the one used where a single kernel is drawn or reported
+    beside other estimators (Bartlett as shipped)."""
+    return next(iter(KERNELS))
+
+
 def fixed_b_kernels() -> tuple[str, ...]:
     """Registered kernels with a fixed-b law (the ones scripts/simulate_fixed_b.py tabulates)."""
     return tuple(name for name, k in KERNELS.items() if k.has_fixed_b_theory)

@@ -119,6 +119,9 @@ class Family:
     #: For a panel fit, the options (small_sample, repair) of the panel sweep the chart shows
     #: while this family is picked; None when the family's own axis is charted instead.
     panel_chart: Callable[[dict], dict] | None = lambda params: {}
+    #: True when the panel chart draws this family's comparison presets as horizontal reference
+    #: lines (estimators without a tuning axis that a panel analyst compares against)
+    reference_lines: bool = False
 
     def applies(self, model) -> str | None:
         """Why this family cannot be used on `model` (None when it can): the first capability

@@ -15,7 +15,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from ..errors import DataError, SpecificationError
+from ..errors import DataError
 from .dates import parse_dates, report_spacing
 from .table import LoadReport, Table
 

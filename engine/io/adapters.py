@@ -8,7 +8,7 @@ import pandas as pd
 
 from ..data.columns import INTERCEPT
 from ..data.table import Table
-from ..errors import DataError, SpecificationError
+from ..errors import SpecificationError
 from ..models.ols import fit_ols
 
 

@@ -11,8 +11,7 @@ import re
 import numpy as np
 import pandas as pd
 
-from ..data.columns import INTERCEPT
-from ..data.table import Table, as_table
+from ..data.table import Table
 from ..errors import DataError, SpecificationError
 from ..models.iv import fit_iv
 from ..models.ols import fit_ols
@@ -82,7 +81,7 @@ def design(formula: str, data):
                                  f"{exc}") from None
     except Exception as exc:           # noqa: BLE001 - a term that fails to evaluate
         term = getattr(exc, "factor", None)
-        raise SpecificationError(f"the formula could not be evaluated"
+        raise SpecificationError("the formula could not be evaluated"
                                  + (f" (term {term})" if term else "") + f": "
                                  f"{' '.join(str(exc).split())[:300]}") from None
     lhs, rhs = mm.lhs, mm.rhs

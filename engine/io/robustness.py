@@ -9,7 +9,7 @@ import numpy as np
 import pandas as pd
 
 from ..covariance.registry import as_estimator
-from ..errors import DataError, SpecificationError
+from ..errors import SpecificationError
 from .tables import latex_escape as esc, markdown_cell
 
 SHOW = {"se": "standard errors in parentheses", "t": "t statistics in brackets",
@@ -206,12 +206,11 @@ def robustness_table(fits, estimators, show: str = "se", level: float = 0.95,
         col = f"({i})"
         res = f.infer(e, level=level, reference=reference)
         columns.append(col)
-        spec = fl or f"{f.response}" + (f", h = {f.horizon}" if getattr(f, "horizon", None)
-                                        else "")
+        spec = fl or f"{f.response}" + (f", h = {f.horizon}" if f.horizon else "")
         specs.append(spec if len(fit_items) > 1 or fl else f.response)
         ests.append(el or res.label)
         notes.append(f"{col} {res.describe()}")
-        r2 = getattr(f, "r_squared", float("nan"))
+        r2 = f.r_squared
         extra[col] = {"N": int(f.nobs), "R2": float(r2) if r2 is not None else float("nan")}
         for term, r in res.table.iterrows():
             rows.append({"column": col, "specification": specs[-1], "estimator": ests[-1],

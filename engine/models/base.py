@@ -211,6 +211,11 @@ class MomentModel:
         return self.nobs / self.df_resid
 
     @property
+    def r_squared(self) -> float:
+        """R^2 where the model defines one (NaN otherwise)."""
+        return float("nan")
+
+    @property
     def has_intercept(self) -> bool:
         return INTERCEPT in self.terms
 

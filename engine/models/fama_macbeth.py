@@ -9,6 +9,7 @@ import numpy as np
 import pandas as pd
 import scipy.linalg as sla
 
+from ..covariance.kernels import default_kernel
 from ..covariance.registry import estimator
 from ..data.columns import INTERCEPT, SampleInfo, as_list, index_label
 from ..data.panels import PanelInfo, check_names, checked_panel, large_data_fit, panel_names
@@ -52,9 +53,11 @@ class FamaMacBethFit(SeriesModel):
                 + (f" ({len(self.skipped)} periods skipped)" if self.skipped else ""))
 
     def comparison_presets(self) -> list:
+        kernel = default_kernel()
         return [estimator("classical"),
-                estimator("kernel", kernel="bartlett", bandwidth="andrews", small_sample=True),
-                estimator("kernel", kernel="bartlett", bandwidth="rule-of-thumb",
+                estimator(self.kernel_family, kernel=kernel, bandwidth="andrews",
+                          small_sample=True),
+                estimator(self.kernel_family, kernel=kernel, bandwidth="rule-of-thumb",
                           small_sample=True)]
 
     def comparison_note(self, panel_fit) -> str:

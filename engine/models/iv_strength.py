@@ -13,7 +13,7 @@ import pandas as pd
 import scipy.linalg as sla
 from scipy import optimize, stats
 
-from ..errors import EstimationError, LagwiseError, SpecificationError
+from ..errors import LagwiseError, SpecificationError
 from .series import SeriesModel
 
 
@@ -75,8 +75,6 @@ def first_stage(fit, est):
     res_sys = system.infer(est, reference="normal")
     v_pi = res_sys.cov.to_numpy()
     rows, coefs = [], {}
-    frame = pd.DataFrame(core.Z[:, [i for i, n in enumerate(core.z_names) if n != "intercept"]],
-                         columns=[n for n in core.z_names if n != "intercept"])
     for j, name in enumerate(core.endogenous):
         block = slice(j * L, (j + 1) * L)
         pj, vj = pi[:, j], v_pi[block, block]

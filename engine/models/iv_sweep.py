@@ -9,7 +9,7 @@ from scipy import stats
 
 from ..covariance import longrun
 from ..covariance.kernels import get_kernel
-from ..covariance.registry import ModelInfo, estimator as make_estimator
+from ..covariance.registry import ModelInfo
 from ..errors import LagwiseError, SpecificationError
 from ..inference.sweep import SweepResult
 

@@ -23,22 +23,18 @@ functions registered for it (`register_large_data`; engine.distributed registers
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
 from scipy import fft as sfft
 
 from ..capabilities import Capabilities
-from ..covariance.registry import estimator
-from ..data.columns import INTERCEPT, as_list, check_magnitudes, column_ranges
+from ..data.columns import INTERCEPT, as_list
 from ..data.dates import spacing_note
 from ..data.panels import (PanelInfo, check_names, checked_panel, describe_effects,
-                           large_data_fit, panel_data, panel_names)
-from ..data.table import Table
+                           large_data_fit, panel_names)
 from ..errors import EstimationError, SpecificationError
 from ..inference.compare import compare
-from ..inference.sweep import sweep
 from .fama_macbeth import FamaMacBethFit, fama_macbeth_from_rows
 from .ols import OLSFit
 from .base import MomentModel
@@ -132,15 +128,19 @@ class PanelFit(OLSFit):
         p = self.panel
         return describe_effects(p.effects, p.absorbed, p.components, p.iterations, p.balanced)
 
+    def raw_rows(self):
+        """(regressors, response) of the rows before the within transformation (the intercept
+        column left out)."""
+        if self._raw is not None:
+            return self._raw
+        has = INTERCEPT in self.terms
+        return (self.X[:, 1:] if has else self.X), self.y
+
     def fama_macbeth(self) -> "FamaMacBethFit":
         """Fama-MacBeth on the same rows and regressors (period-by-period slopes with an
         intercept each period), cached."""
         def build():
-            if self._raw is not None:          # effects: the untransformed regressors
-                Xr, yr = self._raw
-            else:
-                has = INTERCEPT in self.terms
-                Xr, yr = (self.X[:, 1:] if has else self.X), self.y
+            Xr, yr = self.raw_rows()          # effects: the untransformed regressors
             Xr = np.column_stack([np.ones(len(yr)), Xr])
             terms = [INTERCEPT] + [t for t in self.terms if t != INTERCEPT]
             return fama_macbeth_from_rows(Xr, yr, self.panel.time_codes, self.panel.periods, terms,

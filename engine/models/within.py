@@ -71,6 +71,6 @@ def effects_of(effects) -> tuple:
     out = tuple(e for e in EFFECTS if e in set(effects))
     unknown = set(effects) - set(EFFECTS)
     if unknown:
-        raise SpecificationError(f"effects must be 'entity', 'time' or both, not "
+        raise SpecificationError("effects must be 'entity', 'time' or both, not "
                                  + ", ".join(repr(u) for u in sorted(map(str, unknown))))
     return out

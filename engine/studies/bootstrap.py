@@ -14,6 +14,7 @@ import numpy as np
 import pandas as pd
 
 from ..covariance.registry import as_estimator, estimator as make
+from ..capabilities import missing
 from ..data.columns import INTERCEPT, SampleInfo
 from ..errors import EstimationError, LagwiseError, SpecificationError
 from ..models.ols import OLSFit
@@ -47,7 +48,7 @@ def block_length(fit, method: str = "moving_block") -> tuple[float, str]:
     which = "stationary" if method == "stationary" else "circular"
     b = float(np.nanmax(table[which].to_numpy()))
     text = f"Politis-White block length {b:.1f} ({which} rule, arch)"
-    h = getattr(fit, "horizon", None) or 1
+    h = fit.horizon or 1
     if not np.isfinite(b) or b < 1:
         b = 1.0
     if b < h:
@@ -84,8 +85,9 @@ def bootstrap(fit, estimator=None, method: str = "moving_block", reps: int = 999
     weights on the residuals; for heteroskedasticity, not autocorrelation)."""
     if method not in BOOTSTRAP_METHODS:
         raise SpecificationError(f"bootstrap method must be one of {', '.join(BOOTSTRAP_METHODS)}")
-    if not isinstance(fit, OLSFit) or getattr(fit, "panel", None) is not None:
-        raise SpecificationError("the bootstrap here is for least-squares time-series fits")
+    why = missing(fit.capabilities, ("time_ordered", "least_squares", "rows"))
+    if why:
+        raise SpecificationError(f"the bootstrap here is for least-squares time-series fits: {why}")
     if isinstance(reps, bool) or not isinstance(reps, (int, np.integer)) or reps < 99:
         raise SpecificationError("use at least 99 bootstrap replications")
     est = as_estimator(estimator) if estimator is not None else make("kernel")

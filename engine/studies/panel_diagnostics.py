@@ -8,7 +8,9 @@ import pandas as pd
 from scipy import stats
 from statsmodels.tsa.stattools import acf
 
+from ..capabilities import missing
 from ..covariance.bandwidth import select_bandwidth
+from ..covariance.kernels import default_kernel
 from ..data.columns import INTERCEPT
 from ..errors import EstimationError
 from .diagnostics import DiagnosticReport, Section, add_row, finite_rows
@@ -67,11 +69,7 @@ def wooldridge_serial(fit):
     correlation in the levels' errors the coefficient is -0.5. Returns (F, df1, df2, p) with the
     coefficient's standard error clustered by entity."""
     p = fit.panel
-    if fit._raw is not None:
-        X, y = fit._raw
-    else:
-        has = INTERCEPT in fit.terms
-        X, y = (fit.X[:, 1:] if has else fit.X), fit.y
+    X, y = fit.raw_rows()
     order = np.lexsort((p.time_codes, p.entity_codes))
     e, t = p.entity_codes[order], p.time_codes[order]
     consecutive = (e[1:] == e[:-1]) & (t[1:] == t[:-1] + 1)
@@ -113,9 +111,10 @@ def diagnose_panel(fit, progress=None):
     corrects for). progress(done, total, what) is called before each of four stages and at the
     end."""
     step = progress or (lambda done, total, what: None)
-    p = getattr(fit, "panel", None)
-    if p is None or not hasattr(fit, "_raw"):
-        raise EstimationError("panel diagnostics need the rows of an in-memory panel fit")
+    why = missing(fit.capabilities, ("panel", "rows", "design"))
+    if why:
+        raise EstimationError(f"panel diagnostics: {why}")
+    p = fit.panel
     resid = fit.resid
     if np.abs(resid).max() <= 1e-12 * (np.abs(fit.y).max() or 1.0):
         raise EstimationError("the regression fits perfectly (all residuals are zero): there "
@@ -187,7 +186,7 @@ def _panel_correlograms(fit, notes):
     score_acf = pd.DataFrame(
         {name: acf(sums[:, i], nlags=nl, fft=True)[1:] if np.ptp(sums[:, i]) > 0
          else np.full(nl, np.nan) for i, name in enumerate(fit.moment_names)}, index=lag_index)
-    andrews = select_bandwidth(fit.period_model, "bartlett", "andrews")
+    andrews = select_bandwidth(fit.period_model, default_kernel(), "andrews")
     persistence = pd.DataFrame({"rho1": score_acf.iloc[0]}).assign(andrews_bartlett_b=andrews.b)
     bands = {"acf": f"95% bands +-1.96/sqrt(N) within entities and +-1.96/sqrt(T_p) for the "
                     f"period average (T_p = {t})",

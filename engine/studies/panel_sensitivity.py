@@ -5,24 +5,22 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..covariance.kernels import KERNELS
-from ..covariance.registry import estimator
+from ..covariance.kernels import KERNELS, default_kernel, get_kernel
 from ..errors import EstimationError, SpecificationError
-from ..inference.sweep import SweepResult, sweep
+from ..inference.sweep import SweepResult
 
 
 def panel_sweep(model, kernels=None, values=None, small_sample: bool = False,
                 repair: bool = True, fama_macbeth: bool = True):
-    """The panel sensitivity sweep: Driscoll-Kraay with each kernel along the bandwidth b (in
-    periods), and Fama-MacBeth's standard error from a Bartlett kernel over its slope series on
-    the same grid (its own estimate; the time-series small-sample factor). One SweepResult; the
-    curve groups are in `extras["curve_group"]`."""
+    """The panel sensitivity sweep: the panel's kernel estimators (its `kernel_family`:
+    Driscoll-Kraay) with each kernel along the bandwidth b (in periods), and Fama-MacBeth's
+    standard error from the first registered kernel over its slope series on the same grid (its
+    own estimate; the time-series small-sample factor). One SweepResult; the curve groups are in
+    `extras["curve_group"]`."""
     kernels = list(KERNELS) if kernels is None else (
         [kernels] if isinstance(kernels, str) else list(kernels))
-    dk = sweep(model, [estimator("driscoll_kraay", kernel=k, bandwidth=1.0,
-                                 small_sample=small_sample, repair=repair) for k in kernels],
-               values)
-    groups = ["Driscoll-Kraay"] * len(kernels)
+    dk = model.sweep(kernels, values, small_sample=small_sample, repair=repair)
+    groups = [dk.family.title.replace(" (panel)", "")] * len(kernels)
     if not fama_macbeth:
         dk.extras["curve_group"] = groups
         return dk
@@ -34,8 +32,7 @@ def panel_sweep(model, kernels=None, values=None, small_sample: bool = False,
         return dk
     terms = dk.terms
     cols = [fm.terms.index(t) if t in fm.terms else None for t in terms]
-    fsw = sweep(fm, [estimator("kernel", kernel="bartlett", bandwidth=1.0, small_sample=True)],
-                dk.values)
+    fsw = fm.sweep([default_kernel()], dk.values, small_sample=True)
     n = len(dk.values)
 
     def pick(arr, fill):
@@ -48,7 +45,7 @@ def panel_sweep(model, kernels=None, values=None, small_sample: bool = False,
         for lr in row:
             lr.span = fm.nobs
     return SweepResult(
-        labels=dk.labels + ["Fama-MacBeth, Bartlett"], estimators=dk.estimators + fsw.estimators,
+        labels=dk.labels + [f"Fama-MacBeth, {get_kernel(default_kernel()).label}"], estimators=dk.estimators + fsw.estimators,
         values=dk.values, terms=terms,
         estimate=np.concatenate([dk.estimate, pick(fsw.estimate, np.nan)]),
         std_error=np.concatenate([dk.std_error, pick(fsw.std_error, np.nan)]),

@@ -182,7 +182,7 @@ def one_period_series(fit) -> tuple[np.ndarray, str]:
     h = fit.horizon or 1
     if h == 1:
         return np.asarray(fit.y, dtype=float), fit.response
-    source = getattr(fit, "one_period", None)
+    source = fit.one_period if fit.capabilities.one_period else None
     if source is None:
         raise SpecificationError(
             f"the response overlaps over {h} periods and its one-period series is not known: "

@@ -23,12 +23,12 @@ import pandas as pd
 from scipy import stats
 
 from ..blas import one_blas_thread
+from ..capabilities import missing
 from ..covariance.registry import as_estimator, estimator
 from ..data.columns import INTERCEPT
 from ..errors import EstimationError, LagwiseError, SpecificationError
 from ..inference.compare import family_presets
 from ..laws.reference import row_suffix
-from ..models.ols import OLSFit
 from .bootstrap import quick_fit
 from .predictive import one_period_series
 
@@ -107,7 +107,7 @@ def _plan(fit, focus: str, method: str):
             "keep": keep, "coef_r": coef_r, "const": const, "xcols": xcols, "h": h,
             "response": fit.response, "X_const": X[0, const] if const else np.zeros(0)}
     one = None
-    if h > 1 and getattr(fit, "one_period", None) is not None:
+    if h > 1 and fit.capabilities.one_period:
         y1, _ = one_period_series(fit)
         if np.isfinite(y1).all():
             one = y1
@@ -234,8 +234,9 @@ def size_check(fit, estimators=None, reps: int = 1000, method: str = "var", seed
     presets for this fit). progress(done, total) is called as chunks finish; cancel() returning
     True stops early (the result then covers the replications done and says so). workers: worker
     processes (default: the machine's cores, at most 2 per 1,000 replications; 1 runs here)."""
-    if not isinstance(fit, OLSFit) or getattr(fit, "panel", None) is not None:
-        raise SpecificationError("the size check is for least-squares time-series fits")
+    why = missing(fit.capabilities, ("time_ordered", "least_squares", "rows"))
+    if why:
+        raise SpecificationError(f"the size check is for least-squares time-series fits: {why}")
     if method not in SIZE_METHODS:
         raise SpecificationError(f"method must be one of {', '.join(SIZE_METHODS)}")
     if isinstance(reps, bool) or not isinstance(reps, (int, np.integer)) or reps < 20:
