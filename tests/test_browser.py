@@ -5,6 +5,7 @@ Skipped locally without chromium; CI sets LAGWISE_REQUIRE_BROWSER=1 so they fail
 import json
 from pathlib import Path
 
+import numpy as np
 import pytest
 from playwright.sync_api import Page, expect
 
@@ -476,6 +477,37 @@ def test_show_opens_the_dashboard_on_a_statsmodels_fit(page: Page):
         expect(cells(page, "coef-table", "estimate").nth(1)).to_have_text(
             fmt(res.params["rate_capacity"]))
         expect(page.locator("#load-report")).to_contain_text("a fit made in Python")
+        assert not [e for e in errors if "Error" in e], errors
+    finally:
+        shown.stop()
+
+
+def test_show_opens_a_custom_gmm_fit_with_the_cards_that_apply(page: Page):
+    """A GMM fit of a moment function written in Python: the page opens on the fitted model
+    itself (the server never runs the moment function), with its coefficient table, the
+    comparison and the sensitivity chart, and says that residual diagnostics do not apply."""
+    frame = lagwise.load_table(DEMO).frame.dropna(subset=["exret_1m", "rate_capacity",
+                                                          "credit_spread"])
+    y = frame["exret_1m"].to_numpy()
+    x = frame["rate_capacity"].to_numpy()
+    z = np.column_stack([np.ones(len(y)), x, frame["credit_spread"].to_numpy()])
+    fit = lagwise.fit_gmm(lambda th, d: z * (y - th[0] - th[1] * x)[:, None], [0.0, 0.0],
+                          frame, weighting="two-step", names=["intercept", "rate_capacity"])
+    shown = lagwise.show(fit, mode="background")
+    try:
+        errors = []
+        page.on("console", lambda m: errors.append(m.text) if m.type == "error" else None)
+        page.goto(shown.url)
+        expect(cells(page, "coef-table", "term")).to_have_text(["intercept", "rate_capacity"],
+                                                               timeout=30_000)
+        expected = fit.infer(lagwise.estimator("kernel", bandwidth="andrews"))
+        expect(se_cell(page, 1)).to_have_text(fmt(expected.table.std_error.iloc[1]),
+                                              timeout=20_000)
+        expect(page.locator("#fit-message")).to_contain_text("GMM: 2 parameters")
+        expect(page.locator("#sens-graph .scatterlayer .trace").first).to_be_attached(
+            timeout=30_000)
+        expect(cells(page, "compare-table", "estimator").first).to_be_visible(timeout=30_000)
+        expect(page.locator("#diag-reading")).to_contain_text("not offered", timeout=30_000)
         assert not [e for e in errors if "Error" in e], errors
     finally:
         shown.stop()

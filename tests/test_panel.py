@@ -175,8 +175,7 @@ def test_row_order_does_not_matter(seed, entities, periods, drop, effects):
 
 
 @common
-@given(**panel_args, kernel=st.sampled_from(["bartlett", "parzen", "quadratic_spectral",
-                                             "truncated"]),
+@given(**panel_args, kernel=st.sampled_from(list(lagwise.KERNELS)),
        small=st.booleans())
 def test_driscoll_kraay_sweep_equals_infer(seed, entities, periods, drop, kernel, small):
     f = fit(panel_frame(seed=seed, entities=entities, periods=periods, drop=drop))
