@@ -29,19 +29,16 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from scipy import optimize, stats
+from scipy import optimize
 
 from ..capabilities import Capabilities
-from ..covariance.registry import Estimator, as_estimator
+from ..covariance.registry import as_estimator
 from ..data.columns import SampleInfo, index_label
 from ..data.table import Table
 from ..errors import EstimationError, LagwiseError, SpecificationError
-from ..inference.infer import infer
-from ..inference.sweep import SweepResult, sweep
-from ..covariance.longrun import LongRun
-from ..covariance.registry import ModelInfo
+from ..inference.sweep import sweep
 from .base import MomentModel
-from .iv import JTest
+from .gmm_common import WeightedGMM, axis_sweep, fixed_bandwidth, inverse_weight, with_j
 
 WEIGHTINGS = {
     "identity": "one-step GMM with the identity weight (or the fixed weight given)",
@@ -190,7 +187,7 @@ def _accept(res, what: str) -> np.ndarray:
                           "simpler weighting")
 
 
-class GMMFit(MomentModel):
+class GMMFit(WeightedGMM, MomentModel):
     """A GMM fit of the analyst's moment conditions (see the module docstring)."""
 
     kind = "GMM (own moment function)"
@@ -277,21 +274,19 @@ class GMMFit(MomentModel):
         g = self.working_contributions
         return g.T @ g / self.nobs
 
+    j_subject = "the contributions"
+
+    def mean_moment(self) -> np.ndarray:
+        return self.working_contributions.mean(axis=0)
+
+    def weighting_words(self) -> str:
+        if self.weight is None:
+            return "the fixed weight given" if self.method == "identity" else ""
+        return f"{self.weight.label} on the first step's contributions"
+
     @property
     def overidentification(self) -> int:
         return self.m - self.k
-
-    def covariance_form(self, lr) -> str:
-        s = lr.S
-        if s is None or not np.isfinite(s).all():
-            return ""
-        prod = self.W @ s
-        scale = np.trace(prod) / len(prod)
-        if scale > 0 and np.allclose(prod, scale * np.eye(len(prod)), rtol=1e-7,
-                                     atol=1e-9 * abs(scale)):
-            return ("efficient form V = (D'S^-1 D)^-1 / T: the weighting uses this same "
-                    "estimate of S")
-        return "general GMM sandwich (D'WD)^-1 D'W S W D (D'WD)^-1 / T"
 
     def describe_method(self) -> str:
         text = WEIGHTINGS.get(self.method, "GMM with a fixed weight matrix")
@@ -309,24 +304,13 @@ class GMMFit(MomentModel):
                       weighting_run=run, first_step=self.first_step or self,
                       iterations=iterations, label=self.response)
 
-    def _weight_from(self, est: Estimator, model: "GMMFit"):
-        lr = est.long_run(model)
-        try:
-            w = np.linalg.inv(lr.S)
-        except np.linalg.LinAlgError:
-            raise EstimationError(f"the {est.label} estimate of S is singular, so its inverse "
-                                  "cannot weight the moments") from None
-        if not np.isfinite(w).all():
-            raise EstimationError(f"the {est.label} estimate of S cannot be inverted")
-        return 0.5 * (w + w.T), lr
-
     def two_step(self, estimator, max_iter: int = 100) -> "GMMFit":
         """Two-step efficient GMM with this fit as the first step, S from `estimator`."""
         est = as_estimator(estimator)
         cache = self.caches.get("two_step", dict)
         key = repr(est)
         if key not in cache:
-            w, lr = self._weight_from(est, self)
+            w, lr = inverse_weight(est, self)
             theta = minimise(self.problem, w, self.beta, max_iter)
             if len(cache) >= 8:
                 cache.pop(next(iter(cache)))
@@ -337,7 +321,7 @@ class GMMFit(MomentModel):
         est = as_estimator(estimator)
         current, steps = self, 1
         while True:
-            w, lr = self._weight_from(est, current)
+            w, lr = inverse_weight(est, current)
             theta = minimise(self.problem, w, current.beta, max_iter)
             change = np.max(np.abs(theta - current.beta) / (np.abs(current.beta) + 1e-8))
             current = self._child(theta, w, "iterated", est, lr, steps + 1)
@@ -347,14 +331,14 @@ class GMMFit(MomentModel):
             if steps > max_iter:
                 raise EstimationError(f"iterated GMM did not converge in {max_iter} iterations "
                                       f"(last relative change {change:.2g}); use two-step")
-        w, lr = self._weight_from(est, current)
+        w, lr = inverse_weight(est, current)
         return self._child(current.beta, w, "iterated", est, lr, steps)
 
     def cue(self, estimator, max_iter: int = 100, tol: float = 1e-8) -> "GMMFit":
         est = as_estimator(estimator)
         start = self.iterated(est, max_iter=max_iter, tol=max(tol, 1e-6)) \
             if not est.family.fixed_weight else self.two_step(est)
-        fixed = _fixed_bandwidth(est, start)
+        fixed = fixed_bandwidth(est, start)
         problem = self.problem
 
         def objective(theta):
@@ -370,35 +354,8 @@ class GMMFit(MomentModel):
                                     options={"gtol": 1e-9, "maxiter": 50 * max_iter})
         theta = _accept(res, "the continuously updated objective")
         trial = self._child(theta, start.W, "cue", None, None, 0)
-        w, lr = self._weight_from(fixed, trial)
+        w, lr = inverse_weight(fixed, trial)
         return self._child(theta, w, "cue", fixed, lr, int(res.nit) + 1)
-
-    def infer_weighting(self, level: float = 0.95, reference: str = "auto"):
-        """Inference with the weighting's own estimate of S (W = S^-1): the efficient form."""
-        if self.weighting is None:
-            raise SpecificationError("a one-step fit has no estimated weighting; use "
-                                     "infer(estimator)")
-        return infer(self, self.weight, level=level, reference=reference,
-                     long_run=self.weighting)
-
-    def j_test(self, est=None) -> JTest:
-        """Hansen's J = T gbar' S^-1 gbar at the estimate, chi-square(m - p); S: the weighting's
-        (default), or `est` on this fit's contributions."""
-        df = self.overidentification
-        g = self.working_contributions.mean(axis=0)
-        if est is None and self.weighting is not None:
-            s, s_from = self.weighting.S, f"the weighting estimate ({self.weight.label})"
-        else:
-            est = as_estimator(est if est is not None else "hc0")
-            s, s_from = est.long_run(self).S, f"{est.label} on the contributions"
-        if df == 0:
-            return JTest(0.0, 0, float("nan"), s_from, "exactly identified: J = 0")
-        try:
-            j = float(self.nobs * g @ np.linalg.solve(s, g))
-        except np.linalg.LinAlgError:
-            raise EstimationError("S is singular: the J test is not defined") from None
-        return JTest(j, df, float(stats.chi2.sf(j, df)), s_from,
-                     f"H0: all {self.m} moment conditions hold")
 
     # ------------------------------------------------------------------ sensitivity
     def sweep_axis(self, estimators, values=None):
@@ -409,90 +366,12 @@ class GMMFit(MomentModel):
         ests = [as_estimator(e) for e in (estimators if isinstance(estimators, (list, tuple))
                                           else [estimators])]
         if self.method not in ("two-step", "iterated", "cue"):
-            out = sweep(self, ests, values)
-            return _with_j(self, out)
-        return _reweighted_sweep(self.first_step or self, ests, values)
+            return with_j(self, sweep(self, ests, values))
+        return axis_sweep(self.first_step or self, ests, values)
 
     def __repr__(self):
         return (f"GMMFit(parameters={self.terms}, moments={self.m}, method={self.method!r}, "
                 f"T={self.nobs})")
-
-
-def _with_j(fit, result):
-    j = np.full(result.status.shape, np.nan)
-    if fit.overidentification > 0:
-        g = fit.working_contributions.mean(axis=0)
-        for c, est in enumerate(result.estimators):
-            for i, v in enumerate(result.values):
-                if result.status[c, i] in ("collapsed", "unavailable"):
-                    continue
-                try:
-                    s = est.at(_axis_value(est, v)).long_run(fit).S
-                    j[c, i] = float(fit.nobs * g @ np.linalg.solve(s, g))
-                except (LagwiseError, np.linalg.LinAlgError):
-                    continue
-    df = fit.overidentification
-    result.extras.update({"j_stat": j, "j_df": df,
-                          "j_p_value": stats.chi2.sf(j, df) if df > 0 else j})
-    return result
-
-
-def _axis_value(est, value):
-    return float(value) if est.family.axis.param == "bandwidth" else int(value)
-
-
-def _reweighted_sweep(first, estimators, values):
-    """Two-step estimates along the axis, warm-started from the previous point."""
-    family = estimators[0].family
-    if family.axis is None:
-        raise SpecificationError(f"{family.title} has no tuning parameter to sweep")
-    v = family.axis.grid(first) if values is None else np.atleast_1d(np.asarray(values,
-                                                                                dtype=float))
-    nc, n, k = len(estimators), len(v), first.k
-    beta = np.full((nc, n, k), np.nan)
-    se = np.full((nc, n, k), np.nan)
-    j = np.full((nc, n), np.nan)
-    lags = np.full((nc, n), -1, dtype=int)
-    status = np.full((nc, n), "", dtype=object)
-    reasons = np.full((nc, n), "", dtype=object)
-    runs = []
-    for c, est in enumerate(estimators):
-        row = []
-        for i, value in enumerate(v):
-            try:
-                point = est.at(_axis_value(est, value))
-                step = first.two_step(point)
-                res = step.infer_weighting()
-                beta[c, i] = step.beta
-                se[c, i] = res.table.std_error.to_numpy()
-                j[c, i] = step.j_test().statistic
-                lr = res.long_run
-                if lr.lags is not None:
-                    lags[c, i] = lr.lags
-                row.append(LongRun(S=None, bandwidth=lr.bandwidth, lags=lr.lags, law=lr.law,
-                                   tuning=float(value)))
-            except LagwiseError as exc:
-                status[c, i], reasons[c, i] = "unavailable", str(exc)
-                row.append(LongRun(S=None, tuning=float(value)))
-        runs.append(row)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        t = np.where(se > 0, beta / se, np.nan)
-    df = first.overidentification
-    return SweepResult(labels=[family.curve_label(e.params) for e in estimators],
-                       estimators=estimators, values=v, terms=list(first.terms), estimate=beta,
-                       std_error=se, t_stat=t, lags=lags, status=status, reasons=reasons,
-                       long_runs=runs, info=ModelInfo(first.nobs, first.df_resid),
-                       extras={"j_stat": j, "j_df": df,
-                               "j_p_value": stats.chi2.sf(j, df) if df > 0 else j})
-
-
-def _fixed_bandwidth(est: Estimator, model) -> Estimator:
-    """The same estimator with a data-driven bandwidth replaced by its value on `model`."""
-    bw = est.params.get("bandwidth")
-    if isinstance(bw, str):
-        lr = est.long_run(model)
-        return est.with_params(bandwidth=max(lr.bandwidth, 1e-6))
-    return est
 
 
 def _index_of(data, nobs):

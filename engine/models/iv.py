@@ -27,15 +27,16 @@ import scipy.linalg as sla
 from scipy import optimize, stats
 
 from ..capabilities import Capabilities
-from ..covariance.registry import Estimator, as_estimator
+from ..covariance.registry import as_estimator
 from ..data.columns import (INTERCEPT, as_list, check_horizon, check_magnitudes, column_ranges,
                             frame_and_meta, index_label, numeric_block)
 from ..errors import EstimationError, LagwiseError, SpecificationError
-from ..inference.infer import infer
 from ..inference.sweep import sweep
 from .base import MomentModel, residuals_vanish
 from .iv_strength import FirstStage, anderson_rubin, anderson_rubin_test, first_stage
-from .iv_sweep import gmm_curves, with_j
+from .gmm_common import (JTest, WeightedGMM, fixed_bandwidth, inverse_weight,
+                          with_j)
+from .iv_sweep import gmm_curves
 from .ols import RANK_TOLERANCE, cholesky_qr2, collinearity_message
 
 METHODS = {"2sls": "two-stage least squares (W = (Z'Z/T)^-1)",
@@ -190,22 +191,7 @@ def fit_iv(data, response: str, regressors=None, endogenous=None, instruments=No
     return first.cue(weight, max_iter=max_iter, tol=tol)
 
 
-@dataclass
-class JTest:
-    statistic: float
-    df: int
-    p_value: float
-    s_from: str                      # which estimate of S the statistic uses
-    description: str = ""
-
-    def summary(self) -> str:
-        if self.df == 0:
-            return "J test: not defined (exactly identified: J = 0 with 0 degrees of freedom)"
-        return (f"J = {self.statistic:.4g} with {self.df} df, p = {self.p_value:.4g} "
-                f"(chi-square; S: {self.s_from})")
-
-
-class IVFit(MomentModel):
+class IVFit(WeightedGMM, MomentModel):
     """A fitted linear IV / GMM model (see the module docstring)."""
 
     kind = "instrumental-variables"
@@ -273,6 +259,10 @@ class IVFit(MomentModel):
             return np.linalg.solve(aw @ self.core.A, aw)
         return self.caches.get("influence_map", build)
 
+    def mean_moment(self) -> np.ndarray:
+        """gbar in the working basis: Q'u / T."""
+        return (self.core.b - self.core.A @ self.beta) / self.nobs
+
     @property
     def overidentification(self) -> int:
         return len(self.core.z_names) - self.k
@@ -282,20 +272,6 @@ class IVFit(MomentModel):
         centre = self.y.mean() if self.has_intercept else 0.0
         tss = float(((self.y - centre) ** 2).sum())
         return 1.0 - self.ssr / tss if tss > 0 else float("nan")
-
-    def covariance_form(self, lr) -> str:
-        """Which sandwich the covariance is: the efficient form when W = S^-1 for this S."""
-        s = lr.S
-        if s is None or not np.isfinite(s).all():
-            return ""
-        prod = self.W @ s
-        scale = np.trace(prod) / len(prod)
-        if scale > 0 and np.allclose(prod, scale * np.eye(len(prod)), rtol=1e-7,
-                                     atol=1e-9 * abs(scale)):
-            return ("efficient form V = (D'S^-1 D)^-1 / T: the weighting uses this same "
-                    "estimate of S")
-        return (f"general GMM sandwich (D'WD)^-1 D'W S W D (D'WD)^-1 / T, W from "
-                f"{self.weighting_words()}")
 
     def weighting_words(self) -> str:
         if self.method == "2sls":
@@ -312,17 +288,6 @@ class IVFit(MomentModel):
         return text
 
     # ------------------------------------------------------------------ other weightings
-    def _weight_from(self, est: Estimator, model: "IVFit"):
-        lr = est.long_run(model)
-        try:
-            w = np.linalg.inv(lr.S)
-        except np.linalg.LinAlgError:
-            raise EstimationError(f"the {est.label} estimate of S is singular, so its inverse "
-                                  "cannot weight the moments") from None
-        if not np.isfinite(w).all():
-            raise EstimationError(f"the {est.label} estimate of S cannot be inverted")
-        return 0.5 * (w + w.T), lr
-
     def _two_step_cache(self) -> dict:
         return self.caches.get("two_step", dict)
 
@@ -333,7 +298,7 @@ class IVFit(MomentModel):
         cache = self._two_step_cache()
         key = repr(weight)
         if key not in cache:
-            w, lr = self._weight_from(weight, self)
+            w, lr = inverse_weight(weight, self)
             if len(cache) >= 8:
                 cache.pop(next(iter(cache)))
             cache[key] = IVFit(self.core, w, method="two-step", weight=weight, weighting=lr,
@@ -344,7 +309,7 @@ class IVFit(MomentModel):
         weight = as_estimator(weight)
         current, steps = self, 1
         while True:
-            w, lr = self._weight_from(weight, current)
+            w, lr = inverse_weight(weight, current)
             nxt = IVFit(self.core, w, method="iterated", weight=weight, weighting=lr,
                         iterations=steps + 1, first_step=self)
             change = np.max(np.abs(nxt.beta - current.beta) / (np.abs(current.beta) + 1e-8))
@@ -355,7 +320,7 @@ class IVFit(MomentModel):
                 raise EstimationError(f"iterated GMM did not converge in {max_iter} iterations "
                                       f"(last relative change {change:.2g}); use two-step")
         # at convergence the weighting S is S(beta): refresh it so W = S^-1 for the final S
-        w, lr = self._weight_from(weight, current)
+        w, lr = inverse_weight(weight, current)
         final = IVFit(self.core, w, method="iterated", weight=weight, weighting=lr,
                       iterations=steps, first_step=self)
         return final
@@ -367,7 +332,7 @@ class IVFit(MomentModel):
         weight = as_estimator(weight)
         start = self.iterated(weight, max_iter=max_iter, tol=max(tol, 1e-6)) \
             if not weight.family.fixed_weight else self.two_step(weight)
-        fixed = _fixed_bandwidth(weight, start)
+        fixed = fixed_bandwidth(weight, start)
         core = self.core
 
         def objective(beta):
@@ -384,39 +349,11 @@ class IVFit(MomentModel):
             raise EstimationError("the continuously updated objective is not finite near the "
                                   "two-step estimate; use two-step or iterated GMM")
         trial = IVFit(core, start.W, method="cue", beta=res.x)
-        w, lr = self._weight_from(fixed, trial)
+        w, lr = inverse_weight(fixed, trial)
         return IVFit(core, w, method="cue", weight=fixed, weighting=lr,
                      iterations=int(res.nit) + 1, first_step=self, beta=res.x)
 
-    def infer_weighting(self, level: float = 0.95, reference: str = "auto"):
-        """Inference with the estimate of S behind the weighting (W = S^-1): the efficient form
-        V = (D'S^-1 D)^-1 / T, as the GMM sweep reports it."""
-        if self.weighting is None:
-            raise SpecificationError("2SLS has no estimated weighting; use infer(estimator)")
-        return infer(self, self.weight, level=level, reference=reference,
-                     long_run=self.weighting)
-
     # ------------------------------------------------------------------ specification
-    def j_test(self, est=None) -> JTest:
-        """Hansen's J = T g' S^-1 g at the estimate, chi-square(L - k). S: the estimate behind
-        the weighting (default; for 2SLS, HC0 on the 2SLS residuals), or `est` on this fit's
-        residuals."""
-        df = self.overidentification
-        g = (self.core.b - self.core.A @ self.beta) / self.nobs
-        if est is None and self.weighting is not None:
-            s, s_from = self.weighting.S, f"the weighting estimate ({self.weight.label})"
-        else:
-            est = as_estimator(est if est is not None else "hc0")
-            s, s_from = est.long_run(self).S, f"{est.label} on the residuals"
-        if df == 0:
-            return JTest(0.0, 0, float("nan"), s_from, "exactly identified: J = 0")
-        try:
-            j = float(self.nobs * g @ np.linalg.solve(s, g))
-        except np.linalg.LinAlgError:
-            raise EstimationError("S is singular: the J test is not defined") from None
-        return JTest(j, df, float(stats.chi2.sf(j, df)), s_from,
-                     f"H0: all {len(self.core.z_names)} moment conditions hold")
-
     def difference_j(self, subset, est=None) -> JTest:
         """Difference-in-J (C) test that the instruments in `subset` are valid, given the
         others: J(all) - J(without them), both with the full model's S (its sub-block for the
@@ -475,10 +412,3 @@ class IVFit(MomentModel):
                 f"{self.core.z_names}, method={self.method!r}, T={self.nobs})")
 
 
-def _fixed_bandwidth(est: Estimator, model) -> Estimator:
-    """The same estimator with a data-driven bandwidth replaced by its value on `model`."""
-    bw = est.params.get("bandwidth")
-    if isinstance(bw, str):
-        lr = est.long_run(model)
-        return est.with_params(bandwidth=max(lr.bandwidth, 1e-6))
-    return est
