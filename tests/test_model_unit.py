@@ -215,6 +215,10 @@ def test_per_coefficient_degrees_of_freedom_for_unequal_members():
     res = st_.infer("classical")
     assert res.law.per_coefficient
     np.testing.assert_allclose(res.law.df, [197] * 3 + [148] * 2)
+    assert list(st_.df_by_equation) == [197, 148]
+    resid = st_.residuals
+    assert resid["b"].isna().sum() == 50 and resid["a"].notna().all()
+    np.testing.assert_allclose(resid["b"].dropna().to_numpy(), b.resid)
     cv = res.critical_value
     np.testing.assert_allclose(cv, stats.t.ppf(0.975, res.law.df))
     np.testing.assert_allclose(res.table.p_value,

@@ -149,6 +149,23 @@ class StackedModel(MomentModel):
     def equations(self) -> list[str]:
         return list(self.labels)
 
+    @property
+    def residuals(self) -> pd.DataFrame:
+        """Each equation's residuals on the joined index (NaN where a member has no row, and for
+        a member without one residual series)."""
+        out = pd.DataFrame(np.nan, index=self.index, columns=pd.Index(self.labels,
+                                                                       name="equation"))
+        for label, model, rows in zip(self.labels, self.members, self.rows):
+            if model.resid is not None:
+                out.iloc[rows, self.labels.index(label)] = model.resid
+        return out
+
+    @property
+    def df_by_equation(self) -> pd.Series:
+        """Each equation's residual degrees of freedom."""
+        return pd.Series([float(np.min(m.df_resid)) for m in self.members],
+                         index=pd.Index(self.labels, name="equation"), name="df_resid")
+
     def member(self, label: str) -> MomentModel:
         """The member model with this label."""
         if label not in self.labels:
