@@ -24,7 +24,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 import scipy.linalg as sla
-from scipy import optimize, stats
+from scipy import optimize
 
 from ..capabilities import Capabilities
 from ..covariance.registry import Estimator, as_estimator
@@ -32,6 +32,7 @@ from ..data.columns import (INTERCEPT, as_list, check_horizon, check_magnitudes,
                             frame_and_meta, index_label, numeric_block)
 from ..errors import EstimationError, LagwiseError, SpecificationError
 from ..inference.infer import infer
+from ..laws.reference import chi_square_upper
 from ..inference.sweep import sweep
 from .base import MomentModel, residuals_vanish
 from .iv_strength import FirstStage, anderson_rubin, anderson_rubin_test, first_stage
@@ -414,7 +415,7 @@ class IVFit(MomentModel):
             j = float(self.nobs * g @ np.linalg.solve(s, g))
         except np.linalg.LinAlgError:
             raise EstimationError("S is singular: the J test is not defined") from None
-        return JTest(j, df, float(stats.chi2.sf(j, df)), s_from,
+        return JTest(j, df, chi_square_upper(j, df), s_from,
                      f"H0: all {len(self.core.z_names)} moment conditions hold")
 
     def difference_j(self, subset, est=None) -> JTest:
@@ -441,7 +442,7 @@ class IVFit(MomentModel):
         g_sub = zy - zx @ b_sub
         j_sub = self.nobs * g_sub @ w_sub @ g_sub
         c = float(j_full - j_sub)
-        return JTest(c, len(subset), float(stats.chi2.sf(max(c, 0.0), len(subset))),
+        return JTest(c, len(subset), chi_square_upper(max(c, 0.0), len(subset)),
                      f"{est.label}, the full model's estimate",
                      f"H0: {', '.join(subset)} are valid instruments given the others")
 

@@ -5,13 +5,13 @@ value); for 2SLS the ordinary sweep with J added."""
 from __future__ import annotations
 
 import numpy as np
-from scipy import stats
 
 from ..covariance import longrun
 from ..covariance.kernels import get_kernel
 from ..covariance.registry import ModelInfo, estimator as make_estimator
 from ..errors import LagwiseError, SpecificationError
 from ..inference.sweep import SweepResult
+from ..laws.reference import chi_square_upper
 
 
 def gmm_sweep(fit, estimators, bandwidths=None):
@@ -64,7 +64,7 @@ def gmm_sweep(fit, estimators, bandwidths=None):
         t = np.where(se > 0, est / se, np.nan)
     df = L - k
     extras = {"j_stat": jstat, "j_df": df,
-              "j_p_value": stats.chi2.sf(jstat, df) if df > 0 else np.full_like(jstat, np.nan)}
+              "j_p_value": chi_square_upper(jstat, df) if df > 0 else np.full_like(jstat, np.nan)}
     return SweepResult(labels=[fam.curve_label(e.params) for e in ests], estimators=ests,
                        values=b, terms=list(first.terms), estimate=est, std_error=se,
                        t_stat=t, lags=lags, status=status,
@@ -90,7 +90,7 @@ def with_j(fit, sweep):
                 except (LagwiseError, np.linalg.LinAlgError):
                     continue
     sweep.extras.update({"j_stat": j, "j_df": df,
-                         "j_p_value": stats.chi2.sf(j, df) if df > 0 else j})
+                         "j_p_value": chi_square_upper(j, df) if df > 0 else j})
     return sweep
 
 
@@ -145,4 +145,4 @@ def gmm_axis_sweep(fit, est, values=None):
                        lags=lags, status=status, reasons=reasons, long_runs=[runs],
                        info=ModelInfo(first.nobs, first.df_resid),
                        extras={"j_stat": j, "j_df": df,
-                               "j_p_value": stats.chi2.sf(j, df) if df > 0 else j})
+                               "j_p_value": chi_square_upper(j, df) if df > 0 else j})

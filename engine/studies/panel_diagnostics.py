@@ -5,12 +5,12 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 from statsmodels.tsa.stattools import acf
 
 from ..covariance.bandwidth import select_bandwidth
 from ..data.columns import INTERCEPT
 from ..errors import EstimationError
+from ..laws.reference import f_upper, normal_two_sided
 from .diagnostics import DiagnosticReport, Section, add_row, finite_rows
 
 
@@ -99,7 +99,7 @@ def wooldridge_serial(fit):
     groups = int(np.count_nonzero(np.bincount(g, minlength=p.n_entities)))
     var = groups / (groups - 1.0) * float(sums @ sums) / float(b @ b) ** 2
     f = (rho + 0.5) ** 2 / var
-    return f, 1, groups - 1, float(stats.f.sf(f, 1, groups - 1)), rho
+    return f, 1, groups - 1, f_upper(f, 1, groups - 1), rho
 
 
 def diagnose_panel(fit, progress=None):
@@ -127,7 +127,7 @@ def diagnose_panel(fit, progress=None):
         step(0, 4, "cross-sectional dependence")
         with Section("Pesaran CD", notes):
             cd, used, pairs = pesaran_cd(resid, p.entity_codes, p.time_codes, g, t)
-            add_row(rows, "Pesaran CD", cd, np.nan, 2 * stats.norm.sf(abs(cd)),
+            add_row(rows, "Pesaran CD", cd, np.nan, normal_two_sided(cd),
                  "no cross-sectional dependence of the residuals",
                  f"scaled sum of pairwise residual correlations over common periods, N(0,1) "
                  f"(Pesaran 2004); {pairs} pairs of {used} entities"
@@ -149,7 +149,7 @@ def diagnose_panel(fit, progress=None):
                 d1, d2 = groups - 1, n - groups
                 f = (between / d1) / (within / d2)
                 add_row(rows, f"{dim.capitalize()} means of residuals", f, d1,
-                     float(stats.f.sf(f, d1, d2)),
+                     f_upper(f, d1, d2),
                      f"residuals have the same mean in every {dim}",
                      f"one-way analysis of variance of the residuals by {dim} "
                      f"({between / (between + within):.1%} of their variance between "

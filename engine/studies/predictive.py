@@ -21,12 +21,13 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from scipy import signal, stats
+from scipy import signal
 
 from ..covariance.registry import estimator
 from ..data.columns import INTERCEPT, as_list
 from ..data.table import as_table
 from ..errors import EstimationError, SpecificationError
+from ..laws.reference import chi_square_upper, normal_critical
 from ..models.ols import fit_ols
 
 #: A regressor whose first-order autocorrelation exceeds this is treated as persistent
@@ -136,7 +137,7 @@ def ivx_test(returns, predictors, horizon: int = 1, c_z: float = IVX_CZ,
     if not np.isfinite(w_stat) or w_stat < 0:
         raise EstimationError("the IVX statistic is not defined for these data (its variance "
                               "is not positive definite)")
-    return IVXResult(statistic=w_stat, p_value=float(stats.chi2.sf(w_stat, r)), df=r,
+    return IVXResult(statistic=w_stat, p_value=chi_square_upper(w_stat, r), df=r,
                      coefficients=a_ivx, horizon=k, nobs=n,
                      tuning={"c_z": c_z, "beta": beta, "lags": m_lags})
 
@@ -214,7 +215,7 @@ def persistence_report(fit, predictor: str | None = None, level: float = 0.95) -
     n_x = len(x)
     rho, rho_se, mu = _ar1(x)
     n = n_x - 1
-    z = stats.norm.ppf(0.5 + level / 2)
+    z = normal_critical(level)
     rho_adj = rho + (1.0 + 3.0 * rho) / n
     interval = (rho_adj - z * rho_se, rho_adj + z * rho_se)
     h = fit.horizon or 1
