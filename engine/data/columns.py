@@ -10,7 +10,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import DataError, SpecificationError
-from .table import Table
+from .table import Table, example_value
 
 INTERCEPT = "intercept"
 
@@ -101,7 +101,8 @@ def numeric_block(frame, cols, non_numeric, sample, what="column", ones: bool = 
             example = non_numeric[col]
             example = example.item() if isinstance(example, np.generic) else example
             raise DataError(f"column '{col}' is not numeric (it holds values such as "
-                            f"{example!r}); choose a numeric column or clean the file")
+                            f"'{example_value(example)}'); choose a numeric column or clean "
+                            "the file")
         if col not in frame.columns:
             raise SpecificationError(f"no {what} named '{col}'; available: "
                                      + ", ".join(map(str, list(frame.columns)[:20])))

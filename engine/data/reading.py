@@ -13,11 +13,12 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pyarrow as pa
+import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from ..errors import DataError, SpecificationError
 from .dates import parse_dates, report_spacing
-from .table import LoadReport, Table
+from .table import LoadReport, Table, example_value
 
 
 #: Default upper bound on the size of a file the engine will parse (bytes).
@@ -41,6 +42,21 @@ MAX_COLUMNS = 500
 MAX_LINE_CHARS = 100_000
 
 MAX_CELLS = 50_000_000
+
+#: Parquet files are bounded in bytes as well as cells, from the file's own metadata before
+#: anything is read: the uncompressed size of the columns a load reads, all together. (A
+#: column's metadata size is what its pages hold; a dictionary-encoded text column holds each
+#: distinct value once, so the text bounds below apply to what it expands to.)
+MAX_PARQUET_BYTES = 512 * 1024**2
+
+#: Text columns are needed only as dates, identifiers or numbers written as text, all short:
+#: a Parquet text column is read as a dictionary (each distinct value once) only while its
+#: metadata size and then its text expanded over the rows fit this budget (all text columns
+#: together), and only when no value is longer than MAX_TEXT_VALUE characters. Other text
+#: columns are left out and the report says why.
+MAX_TEXT_BYTES = 64 * 1024**2
+
+MAX_TEXT_VALUE = 200
 
 _NA_VALUES = sorted({v for t in _MISSING_TOKENS for v in (t, t.upper(), t.title())})
 
@@ -86,6 +102,49 @@ def load_table(source, *, name: str | None = None, max_bytes: int = MAX_BYTES,
     return table
 
 
+def _is_text_type(t) -> bool:
+    if pa.types.is_dictionary(t):
+        return _is_text_type(t.value_type)
+    return pa.types.is_string(t) or pa.types.is_large_string(t) or (
+        hasattr(pa.types, "is_string_view") and pa.types.is_string_view(t))
+
+
+def _column_bytes(meta, names) -> dict[str, int]:
+    """Uncompressed bytes of each top-level column over every row group, from the metadata."""
+    out = dict.fromkeys(names, 0)
+    for rg in range(meta.num_row_groups):
+        group = meta.row_group(rg)
+        for c in range(group.num_columns):
+            col = group.column(c)
+            top = col.path_in_schema.split(".", 1)[0]
+            if top in out:
+                out[top] += max(int(col.total_uncompressed_size), 0)
+    return out
+
+
+def _mib(n: int) -> str:
+    return f"{n / 2**20:,.1f} MiB"
+
+
+def _text_extent(column) -> tuple[int, int, str]:
+    """(longest value in characters, characters over every row, the longest value) of a text
+    column read as a dictionary: from the distinct values and their counts, never expanded."""
+    longest, total, sample = 0, 0, ""
+    for chunk in column.chunks:
+        if not pa.types.is_dictionary(chunk.type):
+            chunk = chunk.dictionary_encode()
+        values = chunk.dictionary
+        if len(values) == 0:
+            continue
+        lengths = pc.utf8_length(values).to_numpy(zero_copy_only=False).astype(np.int64)
+        idx = chunk.indices.drop_null().to_numpy(zero_copy_only=False)
+        total += int(np.bincount(idx, minlength=len(values)) @ lengths) if idx.size else 0
+        j = int(np.argmax(lengths))
+        if lengths[j] > longest:
+            longest, sample = int(lengths[j]), values[j].as_py()[:80]
+    return longest, total, sample
+
+
 def _load_parquet(raw: bytes, label: str, max_cells: int, step) -> Table:
     try:
         pf = pq.ParquetFile(io.BytesIO(raw))
@@ -104,22 +163,73 @@ def _load_parquet(raw: bytes, label: str, max_cells: int, step) -> Table:
     if dup:
         raise DataError(f"{label} has repeated column names ('{sorted(dup)[0]}')")
     report = LoadReport(source=label, file_format="parquet", rows_read=n_rows)
-    keep = []
+    sizes = _column_bytes(meta, names)
+    keep, text = [], []
+    text_budget = MAX_TEXT_BYTES
     for fld in schema:
         if pa.types.is_binary(fld.type) or pa.types.is_large_binary(fld.type) \
                 or pa.types.is_fixed_size_binary(fld.type):
             report.non_numeric[fld.name] = "binary data"
         elif pa.types.is_nested(fld.type):
             report.non_numeric[fld.name] = f"nested values ({fld.type})"
+        elif _is_text_type(fld.type):
+            if sizes[fld.name] > text_budget:
+                report.non_numeric[fld.name] = "text, not read"
+                report.notes.append(f"column '{fld.name}' holds {_mib(sizes[fld.name])} of "
+                                    f"text; it was not read (text columns are read within "
+                                    f"{_mib(MAX_TEXT_BYTES)} in all)")
+                continue
+            text_budget -= sizes[fld.name]
+            keep.append(fld.name)
+            text.append(fld.name)
         else:
             keep.append(fld.name)
     if not keep:
         raise DataError(f"{label} has no columns that can hold numbers")
+    total = sum(sizes[c] for c in keep)
+    if total > MAX_PARQUET_BYTES:
+        big = sorted(keep, key=lambda c: -sizes[c])[:3]
+        raise DataError(f"{label} holds {_mib(total)} uncompressed in the columns to be read; "
+                        f"the limit is {_mib(MAX_PARQUET_BYTES)} (largest: "
+                        + ", ".join(f"'{c}' {_mib(sizes[c])}" for c in big)
+                        + "). Load fewer rows or columns.")
     step(1, 3, f"reading {n_rows:,} rows")
     try:
-        frame = pf.read(columns=keep).to_pandas()
+        pf = pq.ParquetFile(io.BytesIO(raw), read_dictionary=text)
+        arrow = pf.read(columns=keep)
     except Exception as exc:  # pyarrow raises several types for corrupt files
         raise DataError(f"{label} could not be read as Parquet: {_oneline(exc)}") from None
+    expanded = 0
+    for col in text:
+        try:
+            longest, chars, sample = _text_extent(arrow.column(col))
+        except (pa.ArrowException, ValueError) as exc:
+            raise DataError(f"{label}: column '{col}' could not be read: "
+                            f"{_oneline(exc)}") from None
+        why = None
+        if longest > MAX_TEXT_VALUE:
+            why = (f"column '{col}' holds text values up to {longest:,} characters long (e.g. "
+                   f"'{example_value(sample)}'); a date, an identifier or a number is at most "
+                   f"{MAX_TEXT_VALUE} characters, so it was left out")
+        elif expanded + chars > MAX_TEXT_BYTES:
+            why = (f"column '{col}' holds {chars:,} characters of text over its rows; it was "
+                   f"left out (text columns are kept within {MAX_TEXT_BYTES:,} characters in "
+                   "all)")
+        if why:
+            arrow = arrow.drop_columns([col])
+            report.non_numeric[col] = example_value(sample)
+            report.notes.append(why)
+        else:
+            expanded += chars
+    if arrow.num_columns == 0:
+        raise DataError(f"{label} has no columns that can hold numbers")
+    try:
+        frame = arrow.to_pandas()
+    except Exception as exc:  # pyarrow raises several types for odd logical types
+        raise DataError(f"{label} could not be read as Parquet: {_oneline(exc)}") from None
+    for col in frame.columns:
+        if isinstance(frame[col].dtype, pd.CategoricalDtype):
+            frame[col] = frame[col].astype(object)
     if isinstance(frame.columns, pd.MultiIndex):
         frame.columns = [" / ".join(str(x) for x in col if str(x)) for col in frame.columns]
         report.notes.append("the file's column names have several levels; joined with ' / '")
@@ -352,11 +462,12 @@ def _finish(frame: pd.DataFrame, report: LoadReport) -> Table:
         if kind == "number":
             numeric[col] = frame[col].to_numpy(dtype=float, na_value=np.nan)
         elif kind == "bool":
-            rejected[col] = str(text[col].dropna().iloc[0]) if text[col].notna().any() else ""
+            rejected[col] = example_value(text[col].dropna().iloc[0]) \
+                if text[col].notna().any() else ""
         elif kind == "text":
             values, how, bad = _to_number(text[col], decimal_comma_file)
             if values is None:
-                rejected[col] = bad
+                rejected[col] = example_value(bad)
             else:
                 numeric[col] = values.to_numpy()
                 if how:
