@@ -26,11 +26,15 @@ MAX_BYTES = 200 * 1024 * 1024
 
 _MISSING_TOKENS = {"", "na", "n/a", "nan", "null", "none", "#n/a", "."}
 
-_THOUSANDS_COMMA = re.compile(r"^[+-]?\d{1,3}(,\d{3})+(\.\d*)?$")
+# Number conventions. A thousands group never starts with a zero group ("0.125" is not
+# 125 with a thousands dot, "0,125" not 125 with a thousands comma).
+_THOUSANDS_COMMA = re.compile(r"^[+-]?[1-9]\d{0,2}(,\d{3})+(\.\d*)?$")
 
-_THOUSANDS_DOT_DECIMAL_COMMA = re.compile(r"^[+-]?\d{1,3}(\.\d{3})+(,\d*)?$")
+_THOUSANDS_DOT_DECIMAL_COMMA = re.compile(r"^[+-]?[1-9]\d{0,2}(\.\d{3})+(,\d*)?$")
 
 _DECIMAL_COMMA = re.compile(r"^[+-]?\d*,\d+$")
+
+_WHOLE = re.compile(r"^[+-]?\d+$")
 
 _DATE_NAME_HINT = re.compile(r"date|time|month|period|day|week|quarter", re.I)
 
@@ -392,35 +396,71 @@ def _is_missing(s: pd.Series) -> pd.Series:
     return s.isna() | s.str.strip().str.lower().isin(_MISSING_TOKENS)
 
 
-def _to_number(s: pd.Series, decimal_comma_file: bool):
-    """Parse a string column as floats. Returns (values or None, how, example bad value)."""
+#: The conventions a text column of numbers may be written in: name -> what the report says.
+CONVENTIONS = {"plain": None,
+               "thousands comma": "removing thousands separators ','",
+               "decimal comma": "reading ',' as the decimal mark (and '.' as a thousands "
+                                "separator)"}
+
+
+def _to_number(s: pd.Series, decimal_comma_file: bool, column: str = ""):
+    """Parse a string column as floats. Returns (values or None, how, example bad value).
+
+    A convention is chosen only when EVERY non-missing cell is written in it: plain (a decimal
+    point, no commas), thousands commas (1,234.5; plain cells fit too) or decimal commas (2,5
+    and 1.234,5; whole numbers fit too). When both separator conventions fit every cell (1,234
+    alone), the file's own decimal mark decides. A column whose cells each fit some convention
+    but no convention fits them all is refused with a DataError naming two rows that disagree;
+    a cell that fits none makes the column non-numeric (returned as the example)."""
     miss = _is_missing(s)
     vals = s[~miss].str.strip().str.replace(r"[\s\u00a0\u202f]", "", regex=True)
     if vals.empty:
         return pd.Series(np.nan, index=s.index), None, None
-    parsed = pd.to_numeric(vals, errors="coerce")
-    how = None
-    if parsed.isna().any():
-        attempts = []
-        if vals.str.match(_THOUSANDS_COMMA).any() and not decimal_comma_file:
-            attempts.append(("removing thousands separators ','", vals.str.replace(",", "")))
-        attempts.append(("reading ',' as the decimal mark",
-                         vals.str.replace(".", "", regex=False).str.replace(",", ".")
-                         if vals.str.match(_THOUSANDS_DOT_DECIMAL_COMMA).any()
-                         else vals.str.replace(",", ".")))
-        if vals.str.match(_THOUSANDS_COMMA).any() and decimal_comma_file:
-            attempts.append(("removing thousands separators ','", vals.str.replace(",", "")))
-        for label, candidate in attempts:
-            trial = pd.to_numeric(candidate, errors="coerce")
-            if trial.notna().all():
-                parsed, how = trial, label
-                break
-    if parsed.isna().any():
-        bad = vals[parsed.isna()]
-        return None, None, str(bad.iloc[0])
-    out = pd.Series(np.nan, index=s.index, dtype=float)
+    plain = pd.to_numeric(vals, errors="coerce")
+    plain_ok = plain.notna() & ~vals.str.contains(",", regex=False)
+    if plain_ok.all():
+        return _placed(s.index, miss, plain), None, None
+    fits = {"thousands comma": plain_ok | vals.str.match(_THOUSANDS_COMMA),
+            "decimal comma": vals.str.match(_WHOLE) | vals.str.match(_THOUSANDS_DOT_DECIMAL_COMMA)
+            | vals.str.match(_DECIMAL_COMMA)}
+    every = [name for name, ok in fits.items() if ok.all()]
+    if len(every) == 2:
+        every = ["decimal comma" if decimal_comma_file else "thousands comma"]
+    if every:
+        name = every[0]
+        text = vals.str.replace(",", "", regex=False) if name == "thousands comma" else \
+            vals.str.replace(".", "", regex=False).str.replace(",", ".", regex=False)
+        values = pd.to_numeric(text, errors="coerce")
+        if values.notna().all():
+            return _placed(s.index, miss, values), CONVENTIONS[name], None
+    neither = ~(plain_ok | fits["thousands comma"] | fits["decimal comma"])
+    if neither.any():
+        return None, None, str(vals[neither].iloc[0])
+    point = vals[(plain_ok | fits["thousands comma"]) & ~fits["decimal comma"]]
+    comma = vals[fits["decimal comma"] & ~fits["thousands comma"]]
+    if len(point) and len(comma):
+        first, second = sorted([(_row(s, point.index[0]), point.iloc[0], "a decimal point"),
+                                (_row(s, comma.index[0]), comma.iloc[0], "a decimal comma")])
+        raise DataError(
+            f"column '{column}' mixes number conventions: data row {first[0]} holds "
+            f"'{example_value(first[1])}' ({first[2]}) and data row {second[0]} holds "
+            f"'{example_value(second[1])}' ({second[2]}); reading either way would change "
+            "some values. Write every value of the column in one convention.")
+    return None, None, str(vals.iloc[0])                         # pragma: no cover
+
+
+def _row(s: pd.Series, label) -> int:
+    """A row label of the read frame as a data row number (1 = the first row below the
+    header; rows dropped as empty keep their numbers)."""
+    if isinstance(label, (int, np.integer)):
+        return int(label) + 1
+    return int(s.index.get_loc(label)) + 1
+
+
+def _placed(index, miss, parsed) -> pd.Series:
+    out = pd.Series(np.nan, index=index, dtype=float)
     out[~miss] = parsed.astype(float).to_numpy()
-    return out, how, None
+    return out
 
 
 def _kind(s: pd.Series) -> str:
@@ -465,7 +505,7 @@ def _finish(frame: pd.DataFrame, report: LoadReport) -> Table:
             rejected[col] = example_value(text[col].dropna().iloc[0]) \
                 if text[col].notna().any() else ""
         elif kind == "text":
-            values, how, bad = _to_number(text[col], decimal_comma_file)
+            values, how, bad = _to_number(text[col], decimal_comma_file, col)
             if values is None:
                 rejected[col] = example_value(bad)
             else:
