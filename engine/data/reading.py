@@ -545,8 +545,7 @@ def _date_index(frame, text, kinds, rejected, report):
         if dates is None or not dates.notna().all():
             continue
         if dates.duplicated().any():
-            report.notes.append(f"column '{col}' holds dates with repeated values; it is not "
-                                "used as the time index")
+            report.notes.append(_repeated_dates_note(col, dates))
             continue
         rejected.pop(col, None)
         report.date_column = col
@@ -554,9 +553,46 @@ def _date_index(frame, text, kinds, rejected, report):
     return None, None
 
 
+def _repeated_dates_note(col, dates) -> str:
+    """Which date repeats, in which data rows, and what the loader did about it."""
+    dup = dates[dates.duplicated(keep=False)]
+    first = dup.iloc[0]
+    rows = [_row(dates, label) for label in dates.index[(dates == first).to_numpy()]]
+    shown = ", ".join(map(str, rows[:5])) + (", ..." if len(rows) > 5 else "")
+    others = int(dup.nunique()) - 1
+    when = first.date().isoformat() if first == first.normalize() else str(first)
+    return (f"column '{col}' repeats the date {when} (data rows {shown})"
+            + (f" and {others} other date(s)" if others else "")
+            + "; it is not used as the time index: the rows are kept in file order as one "
+            "series. Remove or merge the repeated rows to use the dates.")
+
+
+#: An entity column of a stacked panel has at most this share of distinct values per row, and
+#: at least this share of its entities appear at two or more dates.
+ENTITY_MAX_DISTINCT = 0.5
+
+ENTITY_MIN_REPEATED = 0.5
+
+
+def _identifier_like(values: pd.Series, kind: str) -> bool:
+    """Text, or whole numbers, with far fewer distinct values than rows and none missing."""
+    if values.isna().any():
+        return False
+    if kind == "number":
+        v = values.to_numpy(dtype=float)
+        if not (np.isfinite(v).all() and np.all(v == np.round(v))):
+            return False
+    elif kind != "text":
+        return False
+    distinct = values.nunique()
+    return 2 <= distinct <= ENTITY_MAX_DISTINCT * len(values)
+
+
 def _report_panel(frame, kinds, text, rejected, report) -> None:
-    """A date column with repeated dates next to an identifier column whose pairs with it are
-    unique is a stacked panel: say so (the rows are not one time series)."""
+    """A date column with repeated dates next to an identifier column (text or whole numbers,
+    far fewer distinct values than rows, its entities repeated across dates) whose pairs with
+    it are unique is a stacked panel: say so (the rows are not one time series). Any other
+    column, such as a response with one repeated date, is never taken for an entity."""
     date_cols = [c for c in rejected if c in text and _DATE_NAME_HINT.search(c)]
     for dcol in date_cols:
         dates = parse_dates(text[dcol])
@@ -564,14 +600,18 @@ def _report_panel(frame, kinds, text, rejected, report) -> None:
             continue
         for icol in [c for c in frame.columns if c != dcol and kinds.get(c) in ("text", "number")]:
             ids = frame[icol]
-            if ids.isna().any() or ids.nunique() < 2:
+            if not _identifier_like(ids, kinds[icol]):
                 continue
             pairs = pd.DataFrame({"i": ids.to_numpy(), "t": dates.to_numpy()})
-            if not pairs.duplicated().any():
-                report.panel = (icol, dcol)
-                report.notes = [n for n in report.notes if not n.startswith(
-                    f"column '{dcol}' holds dates with repeated values")]
-                report.notes.append(
-                    f"a stacked panel: entity '{icol}' ({ids.nunique()} entities) by time "
-                    f"'{dcol}' ({dates.nunique()} periods); the rows are not one time series")
-                return
+            if pairs.duplicated().any():
+                continue
+            seen = pairs.groupby("i", sort=False)["t"].nunique()
+            if (seen >= 2).mean() < ENTITY_MIN_REPEATED:
+                continue
+            report.panel = (icol, dcol)
+            report.notes = [n for n in report.notes if not n.startswith(
+                f"column '{dcol}' repeats the date")]
+            report.notes.append(
+                f"a stacked panel: entity '{icol}' ({ids.nunique()} entities) by time "
+                f"'{dcol}' ({dates.nunique()} periods); the rows are not one time series")
+            return
