@@ -39,6 +39,7 @@ from formulaic.utils.structured import Structured
 
 from ..data.columns import INTERCEPT
 from ..data.table import Table, as_table
+from ..data.transforms import check_periods
 from ..errors import DataError, LagwiseError, SpecificationError
 from ..models.iv import fit_iv
 from ..models.ols import fit_ols
@@ -66,24 +67,14 @@ def _shift(x, p):
     return pd.Series(np.asarray(x, dtype=float)).shift(p).to_numpy()
 
 
-def _periods(name: str, p, n: int, least: int = 1) -> int:
-    """A whole number of periods for a transform inside a formula, checked against the rows."""
-    if isinstance(p, bool) or not isinstance(p, (int, np.integer)) or p < least:
-        raise SpecificationError(f"{name} needs a whole number of periods >= {least}, got {p!r}")
-    if p >= n:
-        raise SpecificationError(f"{name} of {p} periods is not shorter than the sample "
-                                 f"({n} rows)")
-    return int(p)
-
-
 def formula_context() -> dict:
     """The names a formula may call (besides formulaic's C and I): our transforms and a numpy
     namespace holding only NUMPY_FUNCTIONS."""
     def lag(x, p=1):
-        return _shift(x, _periods("lag", p, len(x)))
+        return _shift(x, check_periods("lag", p, len(x)))
 
     def lead(x, p=1):
-        return _shift(x, -_periods("lead", p, len(x)))
+        return _shift(x, -check_periods("lead", p, len(x)))
 
     def difference(x):
         return np.diff(np.asarray(x, dtype=float), prepend=np.nan)
@@ -95,7 +86,7 @@ def formula_context() -> dict:
         return np.diff(np.log(v), prepend=np.nan)
 
     def sum_next(x, h):
-        h = _periods("sum_next", h, len(x))
+        h = check_periods("sum-next", h, len(x))
         s = pd.Series(np.asarray(x, dtype=float))
         return s[::-1].rolling(h, min_periods=h).sum()[::-1].shift(-1).to_numpy()
     numpy = types.SimpleNamespace(**{name: getattr(np, name) for name in NUMPY_FUNCTIONS})

@@ -174,9 +174,8 @@ def fit_iv(data, response: str, regressors=None, endogenous=None, instruments=No
     y = np.ascontiguousarray(values[:, -1])
     info.rows_used = len(values)
     info.first, info.last = index_label(index[0]), index_label(index[-1])
-    horizon = check_horizon(horizon)
-    if horizon is None:
-        horizon = horizons.get(response)
+    horizon = check_horizon(horizon if horizon is not None else horizons.get(response),
+                            len(values))
     core = IVCore(X=np.ascontiguousarray(X), y=y, Z=Z, terms=terms, z_names=z_names,
                   endogenous=endog, excluded=instr, exogenous=exog, index=index,
                   response=response, sample=info, horizon=horizon, table=table)

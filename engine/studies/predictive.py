@@ -344,8 +344,9 @@ def horizon_sweep(data, response: str, predictors, horizons=range(1, 37), estima
     for step, h in enumerate(hs, start=1):
         if progress:
             progress(step - 1, len(hs))
-        if h >= n - 2:
-            notes.append(f"h = {h} is too long for {n} rows; stopped")
+        if 2 * h > n - h:
+            notes.append(f"h = {h} leaves too few observations in {n} rows (an h-period "
+                         "response needs T >= 2h); stopped")
             break
         ahead = np.full(n, np.nan)
         ahead[: n - h] = csum[1 + h: n + 1] - csum[1: n - h + 1]
