@@ -33,6 +33,9 @@ from ..models.ols import fit_ols
 #: A regressor whose first-order autocorrelation exceeds this is treated as persistent
 #: (a rule of thumb, stated wherever it is used).
 PERSISTENCE_THRESHOLD = 0.9
+#: The persistence report needs this many rows at least: the augmented regression has three
+#: coefficients on the T - 1 pairs of consecutive rows, and keeps two degrees of freedom.
+MIN_PERSISTENCE_ROWS = 6
 #: IVX tuning constants (Kostakis, Magdalinos & Stamatogiannis 2015): R_nz = 1 + c_z / n^beta.
 IVX_CZ = -1.0
 IVX_BETA = 0.95
@@ -169,11 +172,21 @@ class PersistenceReport:
 
 
 def _ols(y, X):
+    dof = len(y) - X.shape[1]
+    if dof < 1:
+        raise EstimationError(f"{len(y)} rows are too few for a regression with "
+                              f"{X.shape[1]} coefficients")
     coef, *_ = np.linalg.lstsq(X, y, rcond=None)
     resid = y - X @ coef
-    dof = len(y) - X.shape[1]
     s2 = float(resid @ resid) / dof
-    cov = s2 * np.linalg.inv(X.T @ X)
+    try:
+        cov = s2 * np.linalg.inv(X.T @ X)
+    except np.linalg.LinAlgError:
+        raise EstimationError("the regression's regressors are collinear (a constant "
+                              "predictor?)") from None
+    if not np.isfinite(cov).all():
+        raise EstimationError("the regression's regressors are collinear (a constant "
+                              "predictor?)")
     return coef, resid, cov
 
 
@@ -204,6 +217,11 @@ def persistence_report(fit, predictor: str | None = None, level: float = 0.95) -
     terms = [t for t in fit.terms if t != INTERCEPT]
     if not terms:
         raise SpecificationError("the model has no predictor")
+    if fit.nobs < MIN_PERSISTENCE_ROWS:
+        raise SpecificationError(
+            f"the persistence report needs at least {MIN_PERSISTENCE_ROWS} rows (the "
+            "predictor's AR(1) and the augmented regression with three coefficients on the "
+            f"pairs of consecutive rows need degrees of freedom left); this fit has {fit.nobs}")
     j_of = {t: fit.terms.index(t) for t in terms}
     if predictor is None:
         rhos = {t: _ar1(fit.X[:, j_of[t]])[0] for t in terms}
