@@ -84,20 +84,25 @@ def check_folder(path: Path, columns, numeric) -> list[Path]:
     files = _dataset_files(path)
     if not any(f.suffix in (".parquet", ".parq", ".pq") for f in files):
         raise DataError(f"folder {path} holds no Parquet files (*.parquet)")
-    seen: dict[str, tuple[str, Path]] = {}
+    schemas = []
     for f in files:
         rel = f.relative_to(path)
         try:
-            schema = pq.read_schema(f)
+            schemas.append((rel, pq.read_schema(f)))
         except Exception as exc:               # pyarrow raises several types for bad files
             raise DataError(f"'{rel}' in {path} is not a readable Parquet file (its footer "
                             f"cannot be read: {' '.join(str(exc).split())[:160]}); remove it "
                             "or replace it with a complete Parquet file") from None
+    seen: dict[str, tuple[str, Path]] = {}
+    for rel, schema in schemas:
         keys = {part.split("=", 1)[0] for part in rel.parts[:-1] if "=" in part}
         for c in columns:
             if c not in schema.names:
                 if c in keys:
                     continue
+                if not any(c in other.names for _, other in schemas):
+                    raise SpecificationError(f"no column named '{c}'; available: "
+                                             + ", ".join(schema.names[:20]))
                 raise DataError(f"'{rel}' in {path} has no column '{c}' (its columns: "
                                 + ", ".join(schema.names[:12]) + "); every file of the folder "
                                 "needs the model's columns")
