@@ -25,7 +25,7 @@ DW_EXACT_MAX_T = 1500
 #: Fewest observations for which the diagnostics are computed at all.
 MIN_T = 10
 _NUMERIC_FAILURES = (ValueError, np.linalg.LinAlgError, ZeroDivisionError, FloatingPointError,
-                     IndexError)
+                     IndexError, EstimationError)
 
 
 class Section:

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+from scipy import sparse
 from statsmodels.tsa.stattools import acf
 
 from ..covariance.bandwidth import select_bandwidth
@@ -17,6 +18,10 @@ from .diagnostics import DiagnosticReport, Section, add_row, finite_rows
 #: Pesaran's CD uses every pair of entities up to this many entities (a random subset beyond).
 CD_MAX_ENTITIES = 2000
 
+#: Pesaran's CD works on a dense period x entity grid up to this many cells, else from the rows
+#: (sparse products over the periods each pair shares): the same sums either way.
+CD_DENSE_CELLS = 4_000_000
+
 
 def _dense(values, e_codes, t_codes, n_e, n_t):
     out = np.full((n_t, n_e), np.nan)
@@ -24,13 +29,16 @@ def _dense(values, e_codes, t_codes, n_e, n_t):
     return out
 
 
-def pesaran_cd(resid, e_codes, t_codes, n_e, n_t, min_overlap: int = 3, seed: int = 0):
+def pesaran_cd(resid, e_codes, t_codes, n_e, n_t, min_overlap: int = 3, seed: int = 0,
+               dense_cells: int | None = None):
     """Pesaran's CD statistic of cross-sectional dependence: sqrt(2/(N(N-1))) sum_{i<j}
     sqrt(T_ij) rho_ij, with rho_ij the correlation of entities i and j over their T_ij common
     periods (each entity's residuals demeaned over its own rows), pairs with fewer than
     `min_overlap` common periods left out; N(0,1) under no cross-sectional dependence
     (Pesaran 2004, CESifo WP 1229; 2015, Econometric Reviews 34 [M: recalled]).
-    Returns (CD, entities used, pairs used)."""
+    Returns (CD, entities used, pairs used). The pair sums come from a dense period x entity
+    grid when it has at most `dense_cells` cells (default CD_DENSE_CELLS), else from the rows
+    as sparse products (a sparse panel never allocates the grid)."""
     used = np.arange(n_e)
     if n_e > CD_MAX_ENTITIES:
         used = np.sort(np.random.default_rng(seed).choice(n_e, CD_MAX_ENTITIES, replace=False))
@@ -41,13 +49,24 @@ def pesaran_cd(resid, e_codes, t_codes, n_e, n_t, min_overlap: int = 3, seed: in
     n = used.size
     counts = np.bincount(e_codes, minlength=n)
     means = np.bincount(e_codes, weights=resid, minlength=n) / np.maximum(counts, 1)
-    dense = _dense(resid - means[e_codes], e_codes, t_codes, n, n_t)
-    present = np.isfinite(dense)
-    e = np.where(present, dense, 0.0)
-    m = present.astype(float)
-    overlap = m.T @ m
-    num = e.T @ e
-    sq = (e**2).T @ m            # [i, j] = sum over common periods of e_i^2
+    centred = resid - means[e_codes]
+    limit = CD_DENSE_CELLS if dense_cells is None else dense_cells
+    if n_t * n <= limit:
+        dense = _dense(centred, e_codes, t_codes, n, n_t)
+        present = np.isfinite(dense)
+        e = np.where(present, dense, 0.0)
+        m = present.astype(float)
+        overlap = m.T @ m
+        num = e.T @ e
+        sq = (e**2).T @ m            # [i, j] = sum over common periods of e_i^2
+    else:
+        shape = (n, n_t)
+        e = sparse.csr_matrix((centred, (e_codes, t_codes)), shape=shape)
+        m = sparse.csr_matrix((np.ones(len(centred)), (e_codes, t_codes)), shape=shape)
+        e2 = sparse.csr_matrix((centred**2, (e_codes, t_codes)), shape=shape)
+        overlap = (m @ m.T).toarray()
+        num = (e @ e.T).toarray()
+        sq = (e2 @ m.T).toarray()
     with np.errstate(invalid="ignore", divide="ignore"):
         rho = num / np.sqrt(sq * sq.T)
     iu = np.triu_indices(n, 1)
@@ -84,10 +103,10 @@ def wooldridge_serial(fit):
     u = dy - dx @ coef
     ent = e[1:][consecutive]
     tim = t[1:][consecutive]
-    # pairs (u_t, u_{t-1}) within an entity: consecutive differences
-    key = ent.astype(np.int64) * (p.n_periods + 1) + tim
-    pos = {int(k): i for i, k in enumerate(key)}
-    lagged = np.array([pos.get(int(k) - 1, -1) for k in key])
+    # pairs (u_t, u_{t-1}) within an entity: consecutive differences, found among the sorted
+    # rows (the previous difference of the same entity, one period earlier)
+    prev_ok = np.r_[False, (ent[1:] == ent[:-1]) & (tim[1:] == tim[:-1] + 1)]
+    lagged = np.where(prev_ok, np.arange(len(ent)) - 1, -1)
     ok = lagged >= 0
     if ok.sum() < 10:
         raise EstimationError("too few entities with three consecutive periods for the serial "
@@ -164,21 +183,35 @@ def diagnose_panel(fit, progress=None):
                             notes=notes)
 
 
+def within_autocorrelation(resid, e_codes, t_codes, max_lag: int) -> np.ndarray:
+    """The pooled autocorrelation of residuals within entities at lags 1..max_lag periods:
+    sum over entities and periods of e_it e_i,t-j over sum of e_it^2, from the rows sorted by
+    entity and period (a lag of j periods is at most j rows back within an entity)."""
+    order = np.lexsort((t_codes, e_codes))
+    e, t, r = e_codes[order], t_codes[order], np.asarray(resid, dtype=float)[order]
+    denom = float(r @ r)
+    out = np.zeros(max_lag)
+    for back in range(1, max_lag + 1):
+        later = np.arange(back, len(r))
+        earlier = later - back
+        same = e[later] == e[earlier]
+        lag = t[later] - t[earlier]
+        hit = same & (lag >= 1) & (lag <= max_lag)
+        out += np.bincount(lag[hit] - 1, weights=r[later][hit] * r[earlier][hit],
+                           minlength=max_lag)[:max_lag]
+    return out / denom if denom > 0 else np.full(max_lag, np.nan)
+
+
 def _panel_correlograms(fit, notes):
     p = fit.panel
     t = p.n_periods
     nl = int(min(12, max(1, t // 4)))
     lag_index = pd.RangeIndex(1, nl + 1, name="lag")
-    dense = _dense(fit.resid, p.entity_codes, p.time_codes, p.n_entities, t)
-    present = np.isfinite(dense)
-    d = np.where(present, dense, 0.0)
-    within = np.full(nl, np.nan)
-    denom = float((d**2).sum())
-    for j in range(1, nl + 1):
-        both = present[j:] & present[:-j]
-        within[j - 1] = float((d[j:] * d[:-j])[both].sum()) / denom if denom > 0 else np.nan
-    avg = np.nanmean(dense, axis=1)
-    avg = avg[np.isfinite(avg)] - np.nanmean(avg)
+    within = within_autocorrelation(fit.resid, p.entity_codes, p.time_codes, nl)
+    counts = np.bincount(p.time_codes, minlength=t)
+    sums = np.bincount(p.time_codes, weights=fit.resid, minlength=t)
+    avg = sums[counts > 0] / counts[counts > 0]             # the period-average residual
+    avg = avg - avg.mean()
     avg_acf = acf(avg, nlags=nl, fft=True)[1:] if np.ptp(avg) > 0 else np.full(nl, np.nan)
     acf_df = pd.DataFrame({"resid": within, "resid_sq": avg_acf,
                            "resid_band": np.full(nl, 1.96 / np.sqrt(fit.nobs)),
