@@ -173,7 +173,11 @@ def sweep_for(session, fkey, model, est, method="2sls"):
 
     def build():
         if gmm:
-            return gmm_curves(model, curves)
+            sw = gmm_curves(model, curves)
+            if method != "two-step":          # the cheaper curve: named as what it is
+                sw.extras["curve_suffix"] = ", two-step"
+                sw.extras["chart_note"] += f"; the table shows {method} GMM"
+            return sw
         if isinstance(model, engine.IVFit):
             return with_j(model, engine.sweep(model, curves))
         return engine.sweep(model, curves)

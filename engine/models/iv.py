@@ -388,9 +388,23 @@ class IVFit(MomentModel):
         return IVFit(core, w, method="cue", weight=fixed, weighting=lr,
                      iterations=int(res.nit) + 1, first_step=self, beta=res.x)
 
+    def long_run_for(self, estimator):
+        """S for a table under `estimator`. For a GMM fit under its own weighting estimator,
+        the estimate of S behind the weighting (W = S^-1: from the first-step residuals for
+        two-step GMM, at the final estimate for iterated GMM and CUE), so that the estimate, its
+        covariance (the efficient form V = (D'S^-1 D)^-1 / T; Hansen 1982, Hayashi 2000 sec.
+        3.5 [recalled]) and J all use one S; the coefficient table, the comparison's row and
+        the GMM sweep's point for the same setting are then the same numbers. Any other
+        estimator is applied to this fit's residuals (the general sandwich with W fixed).
+        linearmodels' convention after two-step GMM (S re-estimated from the final residuals)
+        is infer(fit, est, long_run=est.long_run(fit))."""
+        if self.weighting is not None and estimator == self.weight:
+            return self.weighting
+        return estimator.long_run(self)
+
     def infer_weighting(self, level: float = 0.95, reference: str = "auto"):
         """Inference with the estimate of S behind the weighting (W = S^-1): the efficient form
-        V = (D'S^-1 D)^-1 / T, as the GMM sweep reports it."""
+        V = (D'S^-1 D)^-1 / T, as the GMM sweep reports it; the same as infer(self.weight)."""
         if self.weighting is None:
             raise SpecificationError("2SLS has no estimated weighting; use infer(estimator)")
         return infer(self, self.weight, level=level, reference=reference,

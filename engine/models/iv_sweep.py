@@ -1,6 +1,13 @@
 """Sensitivity of an IV/GMM fit along a tuning axis: for a GMM fit the weighting follows the
 estimator (the two-step estimate, its efficient-form standard error and Hansen's J at every
-value); for 2SLS the ordinary sweep with J added."""
+value); for 2SLS the ordinary sweep with J added.
+
+Each point of a two-step sweep is the two-step fit weighted by the estimator at that value, with
+the S behind its weighting (from the first-step residuals) giving the standard errors: the same
+numbers as `fit.two_step(est).infer(est)` and the comparison's row for that setting
+(`IVFit.long_run_for`). The sweep result says so in `extras["chart_note"]`; a chart drawn for an
+iterated or continuously updated fit shows these two-step curves (the cheaper curve) and names
+them as such (`TWO_STEP_NOTE`)."""
 
 from __future__ import annotations
 
@@ -12,6 +19,10 @@ from ..covariance.registry import ModelInfo, estimator as make_estimator
 from ..errors import LagwiseError, SpecificationError
 from ..inference.sweep import SweepResult
 from ..laws.reference import chi_square_upper
+
+#: What a GMM sweep's curves are, for the chart.
+TWO_STEP_NOTE = ("two-step GMM at each value: S from the first-step residuals weights the "
+                 "moments and gives the standard errors (efficient form)")
 
 
 def gmm_sweep(fit, estimators, bandwidths=None):
@@ -64,7 +75,8 @@ def gmm_sweep(fit, estimators, bandwidths=None):
         t = np.where(se > 0, est / se, np.nan)
     df = L - k
     extras = {"j_stat": jstat, "j_df": df,
-              "j_p_value": chi_square_upper(jstat, df) if df > 0 else np.full_like(jstat, np.nan)}
+              "j_p_value": chi_square_upper(jstat, df) if df > 0 else np.full_like(jstat, np.nan),
+              "chart_note": TWO_STEP_NOTE}
     return SweepResult(labels=[fam.curve_label(e.params) for e in ests], estimators=ests,
                        values=b, terms=list(first.terms), estimate=est, std_error=se,
                        t_stat=t, lags=lags, status=status,
@@ -145,4 +157,5 @@ def gmm_axis_sweep(fit, est, values=None):
                        lags=lags, status=status, reasons=reasons, long_runs=[runs],
                        info=ModelInfo(first.nobs, first.df_resid),
                        extras={"j_stat": j, "j_df": df,
-                               "j_p_value": chi_square_upper(j, df) if df > 0 else j})
+                               "j_p_value": chi_square_upper(j, df) if df > 0 else j,
+                               "chart_note": TWO_STEP_NOTE})
