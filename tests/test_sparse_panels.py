@@ -188,3 +188,15 @@ def test_wooldridge_from_sorted_rows_equals_a_reference_loop(seed):
     f, _, _, _, rho = pd_diag.wooldridge_serial(fit)
     f_ref, rho_ref = wooldridge_reference(fit)
     assert abs(f - f_ref) <= 1e-10 * max(1.0, abs(f_ref)) and abs(rho - rho_ref) <= 1e-12
+
+
+def test_the_dask_paths_cell_map_is_checked_against_its_budget(tmp_path, monkeypatch):
+    from lagwise.engine.distributed import panel as dpanel
+    rng = np.random.default_rng(4)
+    frame = pd.DataFrame({"firm": np.repeat(np.arange(50), 2),
+                          "day": rng.permutation(1000)[:100], "x": rng.normal(size=100)})
+    frame["y"] = frame.x + rng.normal(size=100)
+    frame.to_parquet(tmp_path / "part.parquet", index=False)
+    monkeypatch.setattr(dpanel, "MAX_CELL_MAP", 1000, raising=False)
+    with pytest.raises(lagwise.EstimationError, match=r"50 x 100 = 5,000 cells"):
+        lagwise.fit_panel(tmp_path, "y", ["x"], entity="firm", time="day")

@@ -45,6 +45,12 @@ from ..models.fama_macbeth import FamaMacBethFit, assemble_fama_macbeth
 from ..models.panel import ABSORBED_TOL, PeriodSums, compare_panel
 
 
+#: The counting pass keeps a map of the (entity, period) cells present (duplicates, balance):
+#: at most this many cells (one byte each in a partition's pass, one bit once combined), checked
+#: before the pass.
+MAX_CELL_MAP = 100_000_000
+
+
 def is_distributed(data) -> bool:
     """A Dask DataFrame, or a path to a folder (of Parquet files)."""
     if isinstance(data, (str, os.PathLike)):
@@ -351,6 +357,13 @@ def _prepare(data, response, regs, entity, time, effects, sample, client, fama_m
             "e_lookup": ent_raw, "e_codes": e_codes.astype(np.int64),
             "t_lookup": tim_raw, "t_codes": t_codes.astype(np.int64),
             "n_entities": len(entities), "n_periods": len(periods)}
+    cells = len(entities) * len(periods)
+    if cells > MAX_CELL_MAP:
+        raise EstimationError(
+            f"the Dask path tracks each (entity, period) cell in a map of entities x periods: "
+            f"{len(entities):,} x {len(periods):,} = {cells:,} cells, more than its budget of "
+            f"{MAX_CELL_MAP:,} (a sparse panel); fit it in memory, where nothing is laid out "
+            "on that grid")
     (counts,) = _compute(client, _map(ddf, _pass_counts, spec))
     n = int(counts["n"][0])
     for j in np.flatnonzero(counts["inf"]):
