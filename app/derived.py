@@ -118,7 +118,12 @@ def sweep_for(session, fkey, model, est, method="2sls"):
 
     def build():
         if gmm:      # two-step estimates along the axis, from this fit as the first step
-            return model.two_step(curves[0]).sweep_axis(curves)
+            sw = model.two_step(curves[0]).sweep_axis(curves)
+            if method != "two-step":          # the cheaper curve: named as what it is
+                sw.extras["curve_suffix"] = ", two-step"
+                sw.extras["chart_note"] = (sw.extras.get("chart_note", "")
+                                           + f"; the table shows {method} GMM")
+            return sw
         return model.sweep_axis(curves)
     what = family.axis.title if family.axis is not None else "settings"
     return STORE.derived(session, key, lambda: tracked(

@@ -13,7 +13,8 @@ import plotly.graph_objects as go
 from dash import ALL, Input, Output, State, ctx, no_update
 
 from .. import engine
-from ..engine.io.settings import SETTINGS_VERSION, load_settings, settings_json
+from ..engine.io.settings import (SETTINGS_VERSION, check_against_sample, load_settings,
+                                  settings_json)
 from ..engine.io.tables import FORMATS, render
 from . import views as V
 from ..engine.kinds import kind_of
@@ -244,6 +245,11 @@ def on_load_settings(contents, pending, filename, dkey, session):
     else:
         return nothing
     table = stored(session, dkey)
+    if table is not None:
+        try:
+            check_against_sample(s, len(table.frame))
+        except engine.LagwiseError as exc:
+            return (V.error_box(f"{exc}; nothing was changed"),) + nothing[1:]
     new_key = no_update
     steps = [tuple(x) for x in s.get("transforms") or []]
     if table is not None and steps:

@@ -91,10 +91,20 @@ def sensitivity_figure(sweep, term: str, mode: str = "t", level: float = 0.95,
     fig.update_xaxes(title_text=xlab)
     fig.update_yaxes(title_text=ylab)
     what = "bandwidth" if sweep.axis.symbol == "b" else sweep.axis.title
+    note = sweep.extras.get("chart_note")            # which estimator and S the curves show
+    sub = f"<br><span style='font-size:11px;color:{MUTED}'>{note}</span>" if note else ""
     if "j_p_value" in sweep.extras and np.isfinite(sweep.extras["j_p_value"]).any():
         fig = _with_j_panel(fig, sweep, current_curve, xlab)
-        return _base(fig, f"How {term} and the J test depend on the {what}", 520)
-    return _base(fig, f"How {term} depends on the {what}", 400)
+        return _top_room(_base(fig, f"How {term} and the J test depend on the {what}{sub}",
+                               520), sub)
+    return _top_room(_base(fig, f"How {term} depends on the {what}{sub}", 400), sub)
+
+
+def _top_room(fig: go.Figure, sub: str) -> go.Figure:
+    """Room above the plot for a title's second line."""
+    if sub:
+        fig.update_layout(margin={"t": 66})
+    return fig
 
 
 def _add_reference_lines(fig, lines, rng):
@@ -158,7 +168,7 @@ def _curve_style(sweep, c, current: bool):
     from ..engine.covariance.kernels import KERNELS
     kern = KERNELS.get(sweep.estimators[c].params.get("kernel", ""))
     color = kern.color if kern else PALETTE[c % len(PALETTE)]
-    short = kern.short if kern else sweep.labels[c]
+    short = (kern.short if kern else sweep.labels[c]) + sweep.extras.get("curve_suffix", "")
     groups = sweep.extras.get("curve_group")
     if groups and groups[c] != groups[0]:
         color, short = INK, f"{groups[c]} ({short})"

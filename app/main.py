@@ -8,17 +8,19 @@ origins, bounds request bodies, and issues every session id itself."""
 from __future__ import annotations
 
 import logging
+import threading
 from pathlib import Path
 
 from dash import Dash
 from flask import Response, request
 
 from .._files import assets_dir, demo_file
+from ..engine.data.reading import load_table
 from . import callbacks, exports, studies  # noqa: F401 - their callbacks are recorded on import
-from .derived import dataset_from_bytes, dataset_from_table, given_model
+from .derived import given_model
 from .layout import build_layout
 from .wiring import register
-from .state import MAX_UPLOAD_BYTES, STORE, CapacityError
+from .state import MAX_UPLOAD_BYTES, STORE, CapacityError, content_hash, key_for
 
 DEMO_SPEC = {"response": "exret_12m", "regressors": ["rate_capacity", "credit_spread"],
              "horizon": 12, "horizons": {"exret_12m": 12, "exret_36m": 36},
@@ -70,24 +72,37 @@ def create_app(data_path: str | Path | None = None, settings: dict | None = None
     where = "this computer" if local else f"{host} (other machines can reach it)"
     badge = f"local session · {host}" if local else f"served on {host} · reachable by others"
 
+    initial: dict = {}
+    initial_lock = threading.Lock()
+
+    def initial_key():
+        """The data every page opens on, loaded once and shared by every session (a page load
+        stores nothing of its own)."""
+        with initial_lock:
+            if "key" not in initial:
+                initial["key"] = None
+                try:
+                    if table is not None:
+                        initial["key"] = STORE.put_shared(key_for("data", "table", id(table)),
+                                                          table)
+                    else:
+                        loaded = load_table(raw, name=name, max_bytes=MAX_UPLOAD_BYTES)
+                        initial["key"] = STORE.put_shared(key_for("data", content_hash(raw)),
+                                                          loaded)
+                except Exception as exc:  # noqa: BLE001 - shown on the page, never a traceback
+                    logging.getLogger("lagwise").warning("could not load the data: %s", exc)
+            return initial["key"]
+
     def layout():
         try:
             session = STORE.open_session()
         except CapacityError as exc:
             return build_layout("", {"message": str(exc)}, where, badge)
-        key = None
         if model is not None:
             fkey = given_model(session, model)
             return build_layout(session, {"fit_key": fkey, "spec": spec}, where, badge)
-        try:
-            if table is not None:
-                key = dataset_from_table(session, table)
-            else:
-                key, _ = dataset_from_bytes(session, raw, name)
-        except Exception as exc:  # noqa: BLE001 - shown on the page, never a traceback
-            logging.getLogger("lagwise").warning("could not load the data: %s", exc)
-        return build_layout(session, {"dataset_key": key, "spec": spec, "settings": settings},
-                            where, badge)
+        return build_layout(session, {"dataset_key": initial_key(), "spec": spec,
+                                      "settings": settings}, where, badge)
 
     app.layout = layout
     register(app)

@@ -190,8 +190,9 @@ def test_store_budgets_are_per_session():
         store.put(a, "more", np.zeros(6000))             # live session's data
     assert store.get(b, "x4") is not None and store.get(c, "y2") is not None
     assert store.get(a, "data") is not None              # a refusal changes nothing
-    with pytest.raises(CapacityError):
-        store.open_session()                             # at most max_sessions
+    e = store.open_session()                             # issuing an id is never refused,
+    with pytest.raises(CapacityError):                   # but at most max_sessions hold data
+        store.put(e, "first", np.zeros(10))
 
 
 def test_store_counts_a_fits_caches(fit):

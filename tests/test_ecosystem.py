@@ -60,7 +60,8 @@ def test_formula_with_categories_and_functions_equals_statsmodels():
 
 
 def test_bad_formulas_name_the_term(table):
-    with pytest.raises(lagwise.SpecificationError, match="`nothing`"):
+    with pytest.raises(lagwise.SpecificationError,
+                       match="term 'nothing' is not allowed: 'nothing' is not a column"):
         lagwise.fit("exret_12m ~ rate_capacity + nothing", table)
     with pytest.raises(lagwise.SpecificationError, match="looks like"):
         lagwise.fit("exret_12m rate_capacity", table)

@@ -1,12 +1,20 @@
 """Property test: whatever bytes arrive, the loader returns a Table or raises DataError - never
 another exception (which the app would turn into a silent failure)."""
 
+import os
 import string
 
 import numpy as np
 from hypothesis import HealthCheck, given, settings, strategies as st
 
 import lagwise
+
+#: LAGWISE_FUZZ_EXAMPLES raises every count (the full corpus: 10000).
+EXAMPLES = os.environ.get("LAGWISE_FUZZ_EXAMPLES")
+
+
+def count(default: int) -> int:
+    return int(EXAMPLES) if EXAMPLES else default
 
 cell = st.one_of(st.floats(allow_nan=True, allow_infinity=True).map(str),
                  st.integers(-10**6, 10**6).map(str),
@@ -25,7 +33,7 @@ def csv_text(draw):
     return "\n".join(sep.join(r) for r in [header] + rows)
 
 
-@settings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=count(300), deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(text=csv_text())
 def test_loader_only_raises_data_error_on_text(text):
     try:
@@ -36,7 +44,7 @@ def test_loader_only_raises_data_error_on_text(text):
     assert all(np.issubdtype(t, np.floating) for t in table.frame.dtypes)
 
 
-@settings(max_examples=200, deadline=None)
+@settings(max_examples=count(200), deadline=None)
 @given(raw=st.binary(max_size=300))
 def test_loader_only_raises_data_error_on_bytes(raw):
     try:

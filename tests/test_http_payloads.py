@@ -18,8 +18,10 @@ GARBAGE = [None, 0, -1, 1e308, True, "", "x" * 300, "data:,", "data:text/csv;bas
 def app_and_session():
     app = create_app()
     layout = app.layout()
-    session = next(c.data for c in layout._traverse() if getattr(c, "id", None) == "session")
-    return app, session
+    found = {c.id: c.data for c in layout._traverse()
+             if getattr(c, "id", None) in ("session", "dataset-key")}
+    app.layout_key = found["dataset-key"]
+    return app, found["session"]
 
 
 def _items(spec):
@@ -76,7 +78,10 @@ def test_no_callback_answers_a_malformed_payload_with_500(app_and_session):
 def test_unknown_session_reaches_no_data(app_and_session):
     app, session = app_and_session
     from lagwise.app.state import STORE
-    key = STORE.keys(session)[0]
-    assert STORE.get(session, key) is not None
-    assert STORE.get("made-up-session", key) is None and STORE.get(session + "x", key) is None
-    assert STORE.get(["not", "a", "string"], key) is None
+    STORE.put(session, "own:entry", [1.0, 2.0])
+    for key in ("own:entry", app.layout_key):            # its own entry and the shared data
+        assert STORE.get(session, key) is not None
+    for key in ("own:entry", app.layout_key):
+        assert STORE.get("made-up-session", key) is None
+        assert STORE.get(session + "x", key) is None
+        assert STORE.get(["not", "a", "string"], key) is None

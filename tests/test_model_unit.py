@@ -316,7 +316,8 @@ def test_a_nonlinear_model_equals_statsmodels_generic_gmm():
     """statsmodels NonlinearIVGMM: first-step weight (Z'Z/T)^-1 (its IV default), two steps
     (maxiter=2), weights_method="cov" with centered=False (uncentred HC0 S, divisor T); its bse
     is the sandwich with S re-estimated at the final estimate and W from the first step, which
-    is our `infer("hc0")` on the two-step fit; its J uses the weighting's S."""
+    is our infer with `long_run=` HC0 on the two-step fit's residuals (our own table under the
+    weighting estimator uses the weighting's S); its J uses the weighting's S."""
     from statsmodels.sandbox.regression.gmm import NonlinearIVGMM
     rng = np.random.default_rng(5)
     t = 800
@@ -331,7 +332,9 @@ def test_a_nonlinear_model_equals_statsmodels_generic_gmm():
     g = lagwise.fit_gmm(lambda th, d: zz * (y - np.exp(xx @ th))[:, None], [0.1, 0.1], None,
                         weighting="two-step", first_weight=np.linalg.inv(zz.T @ zz / t))
     np.testing.assert_allclose(g.beta, res.params, rtol=1e-7)
-    np.testing.assert_allclose(g.infer("hc0").table.std_error, res.bse, rtol=1e-6)
+    hc0 = lagwise.estimator("hc0")
+    sandwich = lagwise.infer(g, hc0, long_run=hc0.long_run(g))
+    np.testing.assert_allclose(sandwich.table.std_error, res.bse, rtol=1e-6)
     assert g.j_test().statistic == pytest.approx(res.jval, rel=1e-6)
 
 

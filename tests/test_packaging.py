@@ -30,7 +30,7 @@ def test_wheel_holds_only_the_lagwise_package(wheel):
     assert tops == {"lagwise", wheel.name.split("-")[0] + "-" + wheel.name.split("-")[1]
                     + ".dist-info"}, tops
     for needed in ("lagwise/__init__.py", "lagwise/engine/__init__.py", "lagwise/app/main.py",
-                   "lagwise/engine/tables/fixed_b.json", "lagwise/assets/lagwise.css",
+                   "lagwise/engine/laws/tables/fixed_b.json", "lagwise/assets/lagwise.css",
                    "lagwise/demo_data/freight_index.csv"):
         assert needed in names, needed
 

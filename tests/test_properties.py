@@ -32,7 +32,12 @@ common = settings(max_examples=30, deadline=None, suppress_health_check=[HealthC
        kernel=st.sampled_from(PSD_KERNELS))
 def test_psd_kernels_give_psd_covariance(seed, n, k, rho, b, kernel):
     fit = lagwise.fit_ols(frame(seed, n, k, rho), "y", [f"x{i}" for i in range(k)])
-    res = fit.infer(lagwise.estimator("kernel", kernel=kernel, bandwidth=b))
+    est = lagwise.estimator("kernel", kernel=kernel, bandwidth=b)
+    if b > n:                            # beyond the sample (issue 21, item 7): refused
+        with pytest.raises(lagwise.SpecificationError, match=f"T = {n}"):
+            fit.infer(est)
+        return
+    res = fit.infer(est)
     s = res.long_run.S
     assert np.linalg.eigvalsh(s).min() >= -1e-10 * np.abs(s).max()
     cov = res.cov.to_numpy()
@@ -44,6 +49,10 @@ def test_psd_kernels_give_psd_covariance(seed, n, k, rho, b, kernel):
        bws=st.lists(st.floats(0.5, 80.0), min_size=1, max_size=6))
 def test_sweep_equals_one_at_a_time_infer(seed, n, k, rho, kernel, small, bws):
     fit = lagwise.fit_ols(frame(seed, n, k, rho), "y", [f"x{i}" for i in range(k)])
+    if max(bws) > n:                     # beyond the sample (issue 21, item 7): refused
+        with pytest.raises(lagwise.SpecificationError, match=f"T = {n}"):
+            fit.sweep(kernels=[kernel], bandwidths=bws, small_sample=small)
+        bws = [b for b in bws if b <= n] or [float(n)]
     sw = fit.sweep(kernels=[kernel], bandwidths=bws, small_sample=small)
     for i, b in enumerate(bws):
         est = lagwise.estimator("kernel", kernel=kernel, bandwidth=b, small_sample=small)

@@ -9,7 +9,8 @@ Conventions matched with linearmodels: `debiased=False` (no small-sample factor,
 `center=False` (moment contributions not re-centred, as ours); its kernel `bandwidth=m` is the
 maximum lag for Bartlett and Parzen, our b = m + 1, and b itself for Quadratic Spectral; its
 covariance after two-step GMM uses S from the final residuals with the weighting from the first
-step (our `infer`, the general sandwich); its J statistic uses the weighting S (our `j_test()`).
+step (our general sandwich: `infer(fit, est, long_run=est.long_run(fit))`; our own tables use
+the weighting's S, IVFit.long_run_for); its J statistic uses the weighting S (our `j_test()`).
 """
 
 import numpy as np
@@ -87,9 +88,11 @@ def test_two_step_gmm_matches_linearmodels(data, m):
     lm = lm_model(data, IVGMM, weight_type="kernel", kernel="bartlett", bandwidth=m,
                   center=False).fit(cov_type="kernel", kernel="bartlett", bandwidth=m)
     np.testing.assert_allclose(fit.beta, ordered(lm.params), rtol=1e-9)
-    np.testing.assert_allclose(fit.infer(est).cov.to_numpy(),
+    general = lagwise.infer(fit, est, long_run=est.long_run(fit))
+    np.testing.assert_allclose(general.cov.to_numpy(),
                                lm.cov.loc[["const", "x", "w"], ["const", "x", "w"]].to_numpy(),
                                rtol=1e-8)
+    assert "efficient form" in fit.infer(est).form        # our tables: the weighting's S
     j = fit.j_test()
     assert j.df == 2 and j.statistic == pytest.approx(lm.j_stat.stat, rel=1e-8)
     assert j.p_value == pytest.approx(lm.j_stat.pval, rel=1e-7)

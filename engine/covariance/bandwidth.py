@@ -42,6 +42,13 @@ RULES = {
 #: AR(1) coefficients are capped at this absolute value in the Andrews plug-in.
 RHO_CAP = 0.97
 
+#: A bandwidth may be at most this multiple of T, the observations (periods) the kernel runs
+#: over: beyond b = T every lag is weighted nearly flat, S tends to zero and t statistics grow
+#: without bound, and no theory covers it (fixed-b values cover b/T <= 1). Values up to T are
+#: estimated; where S collapses there the estimate is refused (sweeps mark the point
+#: "collapsed").
+MAX_BANDWIDTH_OVER_T = 1.0
+
 
 @dataclass
 class BandwidthChoice:
@@ -69,11 +76,28 @@ def check_bandwidth_setting(value):
             raise SpecificationError(f"unknown bandwidth rule {value!r}; use a positive number "
                                      f"or one of {', '.join(RULES)}")
         return value
-    if isinstance(value, bool) or not isinstance(value, (int, float, np.number)) \
-            or not np.isfinite(value) or value <= 0:
+    try:
+        number = float(value) if not isinstance(value, bool) else math.nan
+    except (OverflowError, TypeError, ValueError):
+        number = math.nan
+    if not isinstance(value, (int, float, np.number)) or not math.isfinite(number) \
+            or number <= 0:
+        text = repr(value) if len(repr(value)) <= 30 else f"a number of {len(repr(value))} digits"
         raise SpecificationError(f"bandwidth must be a positive number or a rule name, "
-                                 f"got {value!r}")
-    return float(value)
+                                 f"got {text}")
+    return number
+
+
+def check_bandwidth_range(bandwidths, nobs: int) -> None:
+    """Refuse a bandwidth beyond MAX_BANDWIDTH_OVER_T x T, naming the value and T."""
+    b = np.atleast_1d(np.asarray(bandwidths, dtype=float))
+    bad = ~(b <= MAX_BANDWIDTH_OVER_T * nobs)
+    if bad.any():
+        raise SpecificationError(
+            f"bandwidth b = {b[bad][0]:.6g} is beyond the sample: T = {nobs}, and a bandwidth "
+            f"may be at most {MAX_BANDWIDTH_OVER_T:g} x T = {MAX_BANDWIDTH_OVER_T * nobs:g} "
+            "(beyond it every lag is weighted nearly flat and the standard errors collapse "
+            "towards zero). Choose a smaller bandwidth.")
 
 
 def moment_weights(constant: np.ndarray) -> np.ndarray:

@@ -23,6 +23,7 @@ import scipy.fft as sfft
 from ..blas import blas_threads, single_blas_thread
 from ..caches import nbytes_of
 from ..errors import SpecificationError
+from .bandwidth import check_bandwidth_range
 from .kernels import get_kernel
 
 
@@ -97,6 +98,7 @@ class MomentCache:
         lags 0..ceil(b)-1 (one matrix product); infinite-support kernels use every lag 0..T-1,
         the far lags by a factorised trigonometric sum (see `_qs_sums`)."""
         b = np.atleast_1d(np.asarray(bandwidths, dtype=float))
+        check_bandwidth_range(b, self.nobs)
         if kernel.finite_support:
             n_lags = int(kernel.lags_many(b, self.nobs).max()) + 1
             return kernel.weights(b, n_lags) @ self.packed(n_lags - 1)

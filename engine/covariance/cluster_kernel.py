@@ -7,7 +7,7 @@ import numpy as np
 
 from ..errors import EstimationError
 from . import longrun
-from .bandwidth import RULES, resolve_bandwidth, rule_title
+from .bandwidth import RULES, check_bandwidth_range, resolve_bandwidth, rule_title
 from .cluster import one_way
 from .driscoll_kraay import PERIOD_BANDWIDTH, period_grid
 from .kernels import Kernel, get_kernel
@@ -19,6 +19,7 @@ def within_kernel(model, kernel: Kernel, bandwidth: float) -> np.ndarray:
     entity: a kernel over time inside each entity (the overlap of clustering by entity and a
     time kernel)."""
     w = model.within_lags()
+    check_bandwidth_range(bandwidth, w.shape[0])
     lags = kernel.lags_used(bandwidth, w.shape[0])
     weights = kernel.weights([bandwidth], lags + 1)[0]
     s = w[0].copy()

@@ -243,6 +243,20 @@ def _validate(family: Family, given: dict) -> dict:
             for p in family.params}
 
 
+def _finite(value) -> bool:
+    """A finite number that fits a float (a Python integer of 400 digits does not)."""
+    try:
+        return bool(np.isfinite(float(value)))
+    except (OverflowError, TypeError, ValueError):
+        return False
+
+
+def _shown(value) -> str:
+    """A value as a message quotes it (a huge integer by its size)."""
+    text = repr(value)
+    return text if len(text) <= 30 else f"a number of {len(text)} digits"
+
+
 def _check_param(owner: str, p: Param, value):
     if p.kind in ("choice", "kernel"):
         if not isinstance(value, str) or value not in p.options:
@@ -255,8 +269,9 @@ def _check_param(owner: str, p: Param, value):
     elif p.kind in ("int", "float"):
         if value is not None:
             if isinstance(value, bool) or not isinstance(value, (int, float, np.number)) \
-                    or not np.isfinite(value):
-                raise SpecificationError(f"{owner}: {p.name} must be a number, got {value!r}")
+                    or not _finite(value):
+                raise SpecificationError(f"{owner}: {p.name} must be a finite number, got "
+                                         f"{_shown(value)}")
             if p.kind == "int":
                 if float(value) != int(value):
                     raise SpecificationError(f"{owner}: {p.name} must be a whole number, "
@@ -273,11 +288,11 @@ def _check_param(owner: str, p: Param, value):
                 raise SpecificationError(f"{owner}: {p.name}={value!r} is not a whole number "
                                          f"or one of {', '.join(p.choices)}")
         elif isinstance(value, bool) or not isinstance(value, (int, np.integer, float)) \
-                or not np.isfinite(value) or not float(value).is_integer() \
+                or not _finite(value) or not float(value).is_integer() \
                 or value < (p.minimum or 1):
             raise SpecificationError(f"{owner}: {p.name} must be a whole number >= "
                                      f"{p.minimum or 1:g} or one of {', '.join(p.choices)}, "
-                                     f"got {value!r}")
+                                     f"got {_shown(value)}")
         else:
             value = int(value)
     elif p.kind == "bandwidth":
@@ -305,8 +320,9 @@ def estimator(name: str, **params) -> Estimator:
         lags = params.pop("lags")
         if "bandwidth" in params:
             raise SpecificationError("give either lags or bandwidth, not both")
-        if isinstance(lags, bool) or not isinstance(lags, (int, np.integer)) or lags < 0:
-            raise SpecificationError(f"lags must be a whole number >= 0, got {lags!r}")
+        if isinstance(lags, bool) or not isinstance(lags, (int, np.integer)) or lags < 0 \
+                or not _finite(lags):
+            raise SpecificationError(f"lags must be a whole number >= 0, got {_shown(lags)}")
         params["bandwidth"] = float(lags) + 1.0
     return Estimator(family, _validate(family, params))
 

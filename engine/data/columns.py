@@ -10,7 +10,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import DataError, SpecificationError
-from .table import Table
+from .table import Table, example_value
 
 INTERCEPT = "intercept"
 
@@ -101,7 +101,8 @@ def numeric_block(frame, cols, non_numeric, sample, what="column", ones: bool = 
             example = non_numeric[col]
             example = example.item() if isinstance(example, np.generic) else example
             raise DataError(f"column '{col}' is not numeric (it holds values such as "
-                            f"{example!r}); choose a numeric column or clean the file")
+                            f"'{example_value(example)}'); choose a numeric column or clean "
+                            "the file")
         if col not in frame.columns:
             raise SpecificationError(f"no {what} named '{col}'; available: "
                                      + ", ".join(map(str, list(frame.columns)[:20])))
@@ -151,8 +152,24 @@ def numeric_block(frame, cols, non_numeric, sample, what="column", ones: bool = 
     return values, index, info
 
 
-def check_horizon(horizon):
+def shown_number(value) -> str:
+    """A number as a message quotes it (an integer of hundreds of digits by its size)."""
+    text = repr(value)
+    return text if len(text) <= 30 else f"a number of {len(text)} digits"
+
+
+def check_horizon(horizon, nobs: int | None = None):
+    """A horizon h: a whole number >= 1 and, given the usable observations T, at most T / 2
+    (an overlapping h-period response needs at least two non-overlapping h-period sums)."""
     if horizon is not None and (isinstance(horizon, bool)
                                 or not isinstance(horizon, (int, np.integer)) or horizon < 1):
-        raise SpecificationError(f"horizon must be a whole number of periods >= 1, got {horizon!r}")
-    return None if horizon is None else int(horizon)
+        raise SpecificationError(f"horizon must be a whole number of periods >= 1, got "
+                                 f"{shown_number(horizon)}")
+    if horizon is None:
+        return None
+    if nobs is not None and 2 * horizon > nobs:
+        raise SpecificationError(
+            f"horizon h = {shown_number(int(horizon))} leaves too few observations: T = {nobs}, "
+            "and an overlapping h-period response needs T >= 2h (at least two non-overlapping "
+            "h-period sums). Use a shorter horizon or more data.")
+    return int(horizon)

@@ -12,7 +12,7 @@ import pandas as pd
 from ..errors import DataError, SpecificationError
 from .columns import INTERCEPT, SampleInfo, check_magnitudes, column_ranges, index_label
 from .dates import parse_dates
-from .table import Table
+from .table import Table, example_value
 
 
 def id_values(series: pd.Series, name: str, what: str) -> pd.Series:
@@ -66,7 +66,8 @@ def time_values(series: pd.Series, name: str) -> pd.Series:
         why = "values that are neither dates nor whole period numbers"
     example = bad.iloc[0]
     row = int(np.flatnonzero((text == example).fillna(False).to_numpy())[0]) + 1
-    raise DataError(f"time column '{name}' holds {why} (e.g. {example!r} in row {row}); give "
+    raise DataError(f"time column '{name}' holds {why} (e.g. '{example_value(example)}' in row "
+                    f"{row}); give "
                     "dates such as 2024-01-31 or whole period numbers")
 
 
@@ -157,7 +158,8 @@ def panel_data(data, response, regs, entity, time, sample=None) -> PanelData:
                 example = nonnull.iloc[0] if len(nonnull) else None
             example = example.item() if isinstance(example, np.generic) else example
             raise DataError(f"column '{col}' is not numeric (it holds values such as "
-                            f"{example!r}); choose a numeric column or clean the file")
+                            f"'{example_value(example)}'); choose a numeric column or clean "
+                            "the file")
     raw = {}
     for what, col in (("entity", entity), ("time", time)):
         s = get(col)

@@ -13,11 +13,12 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pyarrow as pa
+import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from ..errors import DataError
 from .dates import parse_dates, report_spacing
-from .table import LoadReport, Table
+from .table import LoadReport, Table, example_value
 
 
 #: Default upper bound on the size of a file the engine will parse (bytes).
@@ -25,11 +26,15 @@ MAX_BYTES = 200 * 1024 * 1024
 
 _MISSING_TOKENS = {"", "na", "n/a", "nan", "null", "none", "#n/a", "."}
 
-_THOUSANDS_COMMA = re.compile(r"^[+-]?\d{1,3}(,\d{3})+(\.\d*)?$")
+# Number conventions. A thousands group never starts with a zero group ("0.125" is not
+# 125 with a thousands dot, "0,125" not 125 with a thousands comma).
+_THOUSANDS_COMMA = re.compile(r"^[+-]?[1-9]\d{0,2}(,\d{3})+(\.\d*)?$")
 
-_THOUSANDS_DOT_DECIMAL_COMMA = re.compile(r"^[+-]?\d{1,3}(\.\d{3})+(,\d*)?$")
+_THOUSANDS_DOT_DECIMAL_COMMA = re.compile(r"^[+-]?[1-9]\d{0,2}(\.\d{3})+(,\d*)?$")
 
 _DECIMAL_COMMA = re.compile(r"^[+-]?\d*,\d+$")
+
+_WHOLE = re.compile(r"^[+-]?\d+$")
 
 _DATE_NAME_HINT = re.compile(r"date|time|month|period|day|week|quarter", re.I)
 
@@ -41,6 +46,21 @@ MAX_COLUMNS = 500
 MAX_LINE_CHARS = 100_000
 
 MAX_CELLS = 50_000_000
+
+#: Parquet files are bounded in bytes as well as cells, from the file's own metadata before
+#: anything is read: the uncompressed size of the columns a load reads, all together. (A
+#: column's metadata size is what its pages hold; a dictionary-encoded text column holds each
+#: distinct value once, so the text bounds below apply to what it expands to.)
+MAX_PARQUET_BYTES = 512 * 1024**2
+
+#: Text columns are needed only as dates, identifiers or numbers written as text, all short:
+#: a Parquet text column is read as a dictionary (each distinct value once) only while its
+#: metadata size and then its text expanded over the rows fit this budget (all text columns
+#: together), and only when no value is longer than MAX_TEXT_VALUE characters. Other text
+#: columns are left out and the report says why.
+MAX_TEXT_BYTES = 64 * 1024**2
+
+MAX_TEXT_VALUE = 200
 
 _NA_VALUES = sorted({v for t in _MISSING_TOKENS for v in (t, t.upper(), t.title())})
 
@@ -86,6 +106,49 @@ def load_table(source, *, name: str | None = None, max_bytes: int = MAX_BYTES,
     return table
 
 
+def _is_text_type(t) -> bool:
+    if pa.types.is_dictionary(t):
+        return _is_text_type(t.value_type)
+    return pa.types.is_string(t) or pa.types.is_large_string(t) or (
+        hasattr(pa.types, "is_string_view") and pa.types.is_string_view(t))
+
+
+def _column_bytes(meta, names) -> dict[str, int]:
+    """Uncompressed bytes of each top-level column over every row group, from the metadata."""
+    out = dict.fromkeys(names, 0)
+    for rg in range(meta.num_row_groups):
+        group = meta.row_group(rg)
+        for c in range(group.num_columns):
+            col = group.column(c)
+            top = col.path_in_schema.split(".", 1)[0]
+            if top in out:
+                out[top] += max(int(col.total_uncompressed_size), 0)
+    return out
+
+
+def _mib(n: int) -> str:
+    return f"{n / 2**20:,.1f} MiB"
+
+
+def _text_extent(column) -> tuple[int, int, str]:
+    """(longest value in characters, characters over every row, the longest value) of a text
+    column read as a dictionary: from the distinct values and their counts, never expanded."""
+    longest, total, sample = 0, 0, ""
+    for chunk in column.chunks:
+        if not pa.types.is_dictionary(chunk.type):
+            chunk = chunk.dictionary_encode()
+        values = chunk.dictionary
+        if len(values) == 0:
+            continue
+        lengths = pc.utf8_length(values).to_numpy(zero_copy_only=False).astype(np.int64)
+        idx = chunk.indices.drop_null().to_numpy(zero_copy_only=False)
+        total += int(np.bincount(idx, minlength=len(values)) @ lengths) if idx.size else 0
+        j = int(np.argmax(lengths))
+        if lengths[j] > longest:
+            longest, sample = int(lengths[j]), values[j].as_py()[:80]
+    return longest, total, sample
+
+
 def _load_parquet(raw: bytes, label: str, max_cells: int, step) -> Table:
     try:
         pf = pq.ParquetFile(io.BytesIO(raw))
@@ -104,22 +167,73 @@ def _load_parquet(raw: bytes, label: str, max_cells: int, step) -> Table:
     if dup:
         raise DataError(f"{label} has repeated column names ('{sorted(dup)[0]}')")
     report = LoadReport(source=label, file_format="parquet", rows_read=n_rows)
-    keep = []
+    sizes = _column_bytes(meta, names)
+    keep, text = [], []
+    text_budget = MAX_TEXT_BYTES
     for fld in schema:
         if pa.types.is_binary(fld.type) or pa.types.is_large_binary(fld.type) \
                 or pa.types.is_fixed_size_binary(fld.type):
             report.non_numeric[fld.name] = "binary data"
         elif pa.types.is_nested(fld.type):
             report.non_numeric[fld.name] = f"nested values ({fld.type})"
+        elif _is_text_type(fld.type):
+            if sizes[fld.name] > text_budget:
+                report.non_numeric[fld.name] = "text, not read"
+                report.notes.append(f"column '{fld.name}' holds {_mib(sizes[fld.name])} of "
+                                    f"text; it was not read (text columns are read within "
+                                    f"{_mib(MAX_TEXT_BYTES)} in all)")
+                continue
+            text_budget -= sizes[fld.name]
+            keep.append(fld.name)
+            text.append(fld.name)
         else:
             keep.append(fld.name)
     if not keep:
         raise DataError(f"{label} has no columns that can hold numbers")
+    total = sum(sizes[c] for c in keep)
+    if total > MAX_PARQUET_BYTES:
+        big = sorted(keep, key=lambda c: -sizes[c])[:3]
+        raise DataError(f"{label} holds {_mib(total)} uncompressed in the columns to be read; "
+                        f"the limit is {_mib(MAX_PARQUET_BYTES)} (largest: "
+                        + ", ".join(f"'{c}' {_mib(sizes[c])}" for c in big)
+                        + "). Load fewer rows or columns.")
     step(1, 3, f"reading {n_rows:,} rows")
     try:
-        frame = pf.read(columns=keep).to_pandas()
+        pf = pq.ParquetFile(io.BytesIO(raw), read_dictionary=text)
+        arrow = pf.read(columns=keep)
     except Exception as exc:  # pyarrow raises several types for corrupt files
         raise DataError(f"{label} could not be read as Parquet: {_oneline(exc)}") from None
+    expanded = 0
+    for col in text:
+        try:
+            longest, chars, sample = _text_extent(arrow.column(col))
+        except (pa.ArrowException, ValueError) as exc:
+            raise DataError(f"{label}: column '{col}' could not be read: "
+                            f"{_oneline(exc)}") from None
+        why = None
+        if longest > MAX_TEXT_VALUE:
+            why = (f"column '{col}' holds text values up to {longest:,} characters long (e.g. "
+                   f"'{example_value(sample)}'); a date, an identifier or a number is at most "
+                   f"{MAX_TEXT_VALUE} characters, so it was left out")
+        elif expanded + chars > MAX_TEXT_BYTES:
+            why = (f"column '{col}' holds {chars:,} characters of text over its rows; it was "
+                   f"left out (text columns are kept within {MAX_TEXT_BYTES:,} characters in "
+                   "all)")
+        if why:
+            arrow = arrow.drop_columns([col])
+            report.non_numeric[col] = example_value(sample)
+            report.notes.append(why)
+        else:
+            expanded += chars
+    if arrow.num_columns == 0:
+        raise DataError(f"{label} has no columns that can hold numbers")
+    try:
+        frame = arrow.to_pandas()
+    except Exception as exc:  # pyarrow raises several types for odd logical types
+        raise DataError(f"{label} could not be read as Parquet: {_oneline(exc)}") from None
+    for col in frame.columns:
+        if isinstance(frame[col].dtype, pd.CategoricalDtype):
+            frame[col] = frame[col].astype(object)
     if isinstance(frame.columns, pd.MultiIndex):
         frame.columns = [" / ".join(str(x) for x in col if str(x)) for col in frame.columns]
         report.notes.append("the file's column names have several levels; joined with ' / '")
@@ -282,35 +396,71 @@ def _is_missing(s: pd.Series) -> pd.Series:
     return s.isna() | s.str.strip().str.lower().isin(_MISSING_TOKENS)
 
 
-def _to_number(s: pd.Series, decimal_comma_file: bool):
-    """Parse a string column as floats. Returns (values or None, how, example bad value)."""
+#: The conventions a text column of numbers may be written in: name -> what the report says.
+CONVENTIONS = {"plain": None,
+               "thousands comma": "removing thousands separators ','",
+               "decimal comma": "reading ',' as the decimal mark (and '.' as a thousands "
+                                "separator)"}
+
+
+def _to_number(s: pd.Series, decimal_comma_file: bool, column: str = ""):
+    """Parse a string column as floats. Returns (values or None, how, example bad value).
+
+    A convention is chosen only when EVERY non-missing cell is written in it: plain (a decimal
+    point, no commas), thousands commas (1,234.5; plain cells fit too) or decimal commas (2,5
+    and 1.234,5; whole numbers fit too). When both separator conventions fit every cell (1,234
+    alone), the file's own decimal mark decides. A column whose cells each fit some convention
+    but no convention fits them all is refused with a DataError naming two rows that disagree;
+    a cell that fits none makes the column non-numeric (returned as the example)."""
     miss = _is_missing(s)
     vals = s[~miss].str.strip().str.replace(r"[\s\u00a0\u202f]", "", regex=True)
     if vals.empty:
         return pd.Series(np.nan, index=s.index), None, None
-    parsed = pd.to_numeric(vals, errors="coerce")
-    how = None
-    if parsed.isna().any():
-        attempts = []
-        if vals.str.match(_THOUSANDS_COMMA).any() and not decimal_comma_file:
-            attempts.append(("removing thousands separators ','", vals.str.replace(",", "")))
-        attempts.append(("reading ',' as the decimal mark",
-                         vals.str.replace(".", "", regex=False).str.replace(",", ".")
-                         if vals.str.match(_THOUSANDS_DOT_DECIMAL_COMMA).any()
-                         else vals.str.replace(",", ".")))
-        if vals.str.match(_THOUSANDS_COMMA).any() and decimal_comma_file:
-            attempts.append(("removing thousands separators ','", vals.str.replace(",", "")))
-        for label, candidate in attempts:
-            trial = pd.to_numeric(candidate, errors="coerce")
-            if trial.notna().all():
-                parsed, how = trial, label
-                break
-    if parsed.isna().any():
-        bad = vals[parsed.isna()]
-        return None, None, str(bad.iloc[0])
-    out = pd.Series(np.nan, index=s.index, dtype=float)
+    plain = pd.to_numeric(vals, errors="coerce")
+    plain_ok = plain.notna() & ~vals.str.contains(",", regex=False)
+    if plain_ok.all():
+        return _placed(s.index, miss, plain), None, None
+    fits = {"thousands comma": plain_ok | vals.str.match(_THOUSANDS_COMMA),
+            "decimal comma": vals.str.match(_WHOLE) | vals.str.match(_THOUSANDS_DOT_DECIMAL_COMMA)
+            | vals.str.match(_DECIMAL_COMMA)}
+    every = [name for name, ok in fits.items() if ok.all()]
+    if len(every) == 2:
+        every = ["decimal comma" if decimal_comma_file else "thousands comma"]
+    if every:
+        name = every[0]
+        text = vals.str.replace(",", "", regex=False) if name == "thousands comma" else \
+            vals.str.replace(".", "", regex=False).str.replace(",", ".", regex=False)
+        values = pd.to_numeric(text, errors="coerce")
+        if values.notna().all():
+            return _placed(s.index, miss, values), CONVENTIONS[name], None
+    neither = ~(plain_ok | fits["thousands comma"] | fits["decimal comma"])
+    if neither.any():
+        return None, None, str(vals[neither].iloc[0])
+    point = vals[(plain_ok | fits["thousands comma"]) & ~fits["decimal comma"]]
+    comma = vals[fits["decimal comma"] & ~fits["thousands comma"]]
+    if len(point) and len(comma):
+        first, second = sorted([(_row(s, point.index[0]), point.iloc[0], "a decimal point"),
+                                (_row(s, comma.index[0]), comma.iloc[0], "a decimal comma")])
+        raise DataError(
+            f"column '{column}' mixes number conventions: data row {first[0]} holds "
+            f"'{example_value(first[1])}' ({first[2]}) and data row {second[0]} holds "
+            f"'{example_value(second[1])}' ({second[2]}); reading either way would change "
+            "some values. Write every value of the column in one convention.")
+    return None, None, str(vals.iloc[0])                         # pragma: no cover
+
+
+def _row(s: pd.Series, label) -> int:
+    """A row label of the read frame as a data row number (1 = the first row below the
+    header; rows dropped as empty keep their numbers)."""
+    if isinstance(label, (int, np.integer)):
+        return int(label) + 1
+    return int(s.index.get_loc(label)) + 1
+
+
+def _placed(index, miss, parsed) -> pd.Series:
+    out = pd.Series(np.nan, index=index, dtype=float)
     out[~miss] = parsed.astype(float).to_numpy()
-    return out, how, None
+    return out
 
 
 def _kind(s: pd.Series) -> str:
@@ -352,11 +502,12 @@ def _finish(frame: pd.DataFrame, report: LoadReport) -> Table:
         if kind == "number":
             numeric[col] = frame[col].to_numpy(dtype=float, na_value=np.nan)
         elif kind == "bool":
-            rejected[col] = str(text[col].dropna().iloc[0]) if text[col].notna().any() else ""
+            rejected[col] = example_value(text[col].dropna().iloc[0]) \
+                if text[col].notna().any() else ""
         elif kind == "text":
-            values, how, bad = _to_number(text[col], decimal_comma_file)
+            values, how, bad = _to_number(text[col], decimal_comma_file, col)
             if values is None:
-                rejected[col] = bad
+                rejected[col] = example_value(bad)
             else:
                 numeric[col] = values.to_numpy()
                 if how:
@@ -394,8 +545,7 @@ def _date_index(frame, text, kinds, rejected, report):
         if dates is None or not dates.notna().all():
             continue
         if dates.duplicated().any():
-            report.notes.append(f"column '{col}' holds dates with repeated values; it is not "
-                                "used as the time index")
+            report.notes.append(_repeated_dates_note(col, dates))
             continue
         rejected.pop(col, None)
         report.date_column = col
@@ -403,9 +553,46 @@ def _date_index(frame, text, kinds, rejected, report):
     return None, None
 
 
+def _repeated_dates_note(col, dates) -> str:
+    """Which date repeats, in which data rows, and what the loader did about it."""
+    dup = dates[dates.duplicated(keep=False)]
+    first = dup.iloc[0]
+    rows = [_row(dates, label) for label in dates.index[(dates == first).to_numpy()]]
+    shown = ", ".join(map(str, rows[:5])) + (", ..." if len(rows) > 5 else "")
+    others = int(dup.nunique()) - 1
+    when = first.date().isoformat() if first == first.normalize() else str(first)
+    return (f"column '{col}' repeats the date {when} (data rows {shown})"
+            + (f" and {others} other date(s)" if others else "")
+            + "; it is not used as the time index: the rows are kept in file order as one "
+            "series. Remove or merge the repeated rows to use the dates.")
+
+
+#: An entity column of a stacked panel has at most this share of distinct values per row, and
+#: at least this share of its entities appear at two or more dates.
+ENTITY_MAX_DISTINCT = 0.5
+
+ENTITY_MIN_REPEATED = 0.5
+
+
+def _identifier_like(values: pd.Series, kind: str) -> bool:
+    """Text, or whole numbers, with far fewer distinct values than rows and none missing."""
+    if values.isna().any():
+        return False
+    if kind == "number":
+        v = values.to_numpy(dtype=float)
+        if not (np.isfinite(v).all() and np.all(v == np.round(v))):
+            return False
+    elif kind != "text":
+        return False
+    distinct = values.nunique()
+    return 2 <= distinct <= ENTITY_MAX_DISTINCT * len(values)
+
+
 def _report_panel(frame, kinds, text, rejected, report) -> None:
-    """A date column with repeated dates next to an identifier column whose pairs with it are
-    unique is a stacked panel: say so (the rows are not one time series)."""
+    """A date column with repeated dates next to an identifier column (text or whole numbers,
+    far fewer distinct values than rows, its entities repeated across dates) whose pairs with
+    it are unique is a stacked panel: say so (the rows are not one time series). Any other
+    column, such as a response with one repeated date, is never taken for an entity."""
     date_cols = [c for c in rejected if c in text and _DATE_NAME_HINT.search(c)]
     for dcol in date_cols:
         dates = parse_dates(text[dcol])
@@ -413,14 +600,18 @@ def _report_panel(frame, kinds, text, rejected, report) -> None:
             continue
         for icol in [c for c in frame.columns if c != dcol and kinds.get(c) in ("text", "number")]:
             ids = frame[icol]
-            if ids.isna().any() or ids.nunique() < 2:
+            if not _identifier_like(ids, kinds[icol]):
                 continue
             pairs = pd.DataFrame({"i": ids.to_numpy(), "t": dates.to_numpy()})
-            if not pairs.duplicated().any():
-                report.panel = (icol, dcol)
-                report.notes = [n for n in report.notes if not n.startswith(
-                    f"column '{dcol}' holds dates with repeated values")]
-                report.notes.append(
-                    f"a stacked panel: entity '{icol}' ({ids.nunique()} entities) by time "
-                    f"'{dcol}' ({dates.nunique()} periods); the rows are not one time series")
-                return
+            if pairs.duplicated().any():
+                continue
+            seen = pairs.groupby("i", sort=False)["t"].nunique()
+            if (seen >= 2).mean() < ENTITY_MIN_REPEATED:
+                continue
+            report.panel = (icol, dcol)
+            report.notes = [n for n in report.notes if not n.startswith(
+                f"column '{dcol}' repeats the date")]
+            report.notes.append(
+                f"a stacked panel: entity '{icol}' ({ids.nunique()} entities) by time "
+                f"'{dcol}' ({dates.nunique()} periods); the rows are not one time series")
+            return

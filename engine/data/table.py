@@ -10,6 +10,20 @@ import pandas as pd
 from ..errors import DataError
 from .transforms import current_column_name, transform, transform_kind, transform_name
 
+#: An example value quoted in a report or a message shows at most this many characters.
+EXAMPLE_CHARS = 40
+
+
+def example_value(value, limit: int = EXAMPLE_CHARS) -> str:
+    """A value as a report quotes it: one line of at most `limit` characters, a longer value cut
+    and marked with an ellipsis (cutting again changes nothing)."""
+    if value is None:
+        return ""
+    text = value if isinstance(value, str) else str(value)
+    if len(text) > limit + 1 or (len(text) == limit + 1 and not text.endswith("\u2026")):
+        text = text[:limit] + "\u2026"
+    return " ".join(text.split()) if text.strip() else text
+
 
 @dataclass
 class LoadReport:
@@ -40,6 +54,7 @@ class LoadReport:
         for col, how in self.converted.items():
             out.append(f"column '{col}' read as numbers after {how}")
         for col, example in self.non_numeric.items():
+            example = example_value(example)
             if self.panel and col in self.panel:
                 what = "entity" if col == self.panel[0] else "time"
                 out.append(f"column '{col}' kept as the panel's {what} labels (e.g. '{example}')")
@@ -118,7 +133,8 @@ def as_table(data) -> Table:
                 numeric[str(col)] = s.astype(float)
             else:
                 nonnull = s.dropna()
-                report.non_numeric[str(col)] = nonnull.iloc[0] if len(nonnull) else None
+                report.non_numeric[str(col)] = example_value(nonnull.iloc[0]) if len(nonnull) \
+                    else None
         frame = pd.DataFrame(numeric, index=data.index)
         report.missing = {c: int(n) for c, n in frame.isna().sum().items() if n}
         return Table(frame=frame, report=report)

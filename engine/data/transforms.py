@@ -55,17 +55,34 @@ def current_column_name(name: str) -> str:
     return transform_name(m.group(4), m.group(5))
 
 
+#: Transforms that look ahead (a horizon): they must leave at least as many rows as periods.
+AHEAD = ("lead", "sum-next")
+
+
+def check_periods(kind: str, p, n: int) -> int:
+    """The periods p of a lag, lead or forward sum over n rows: a whole number >= 1, shorter
+    than the sample, and for the look-ahead transforms at most n / 2 (a horizon that leaves
+    fewer rows than it spans leaves too few observations)."""
+    if isinstance(p, bool) or not isinstance(p, (int, np.integer)) or p < 1:
+        text = repr(p) if len(repr(p)) <= 30 else f"a number of {len(repr(p))} digits"
+        raise SpecificationError(f"{kind} needs a whole number of periods >= 1, got {text}")
+    if p >= n:
+        size = str(p) if len(str(p)) <= 30 else f"a number of {len(str(p))} digits"
+        raise SpecificationError(f"{kind} of {size} periods is not shorter than the sample "
+                                 f"({n} rows)")
+    if kind in AHEAD and 2 * p > n:
+        raise SpecificationError(f"{kind} of {p} periods leaves too few rows: {n} rows, and a "
+                                 f"{kind} of p periods needs at least 2p rows")
+    return int(p)
+
+
 def transform(frame: pd.DataFrame, kind: str, column: str, p: int = 1):
     """Compute one transform. Returns (name, values, horizon or None)."""
     kind = transform_kind(kind)
     if column not in frame.columns:
         raise SpecificationError(f"no numeric column named {column!r} to transform")
     if kind in ("lag", "lead", "sum-next"):
-        if isinstance(p, bool) or not isinstance(p, (int, np.integer)) or p < 1:
-            raise SpecificationError(f"{kind} needs a whole number of periods >= 1, got {p!r}")
-        if p >= len(frame):
-            raise SpecificationError(f"{kind} of {p} periods is not shorter than the sample "
-                                     f"({len(frame)} rows)")
+        check_periods(kind, p, len(frame))
     x = frame[column].astype(float)
     name = transform_name(kind, column, p)
     horizon = None

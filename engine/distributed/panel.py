@@ -30,6 +30,8 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
+import pyarrow.parquet as pq
 import scipy.linalg as sla
 
 from ..errors import DataError, EstimationError, SpecificationError
@@ -43,6 +45,12 @@ from ..models.fama_macbeth import FamaMacBethFit, assemble_fama_macbeth
 from ..models.panel import ABSORBED_TOL, PeriodSums, compare_panel
 
 
+#: The counting pass keeps a map of the (entity, period) cells present (duplicates, balance):
+#: at most this many cells (one byte each in a partition's pass, one bit once combined), checked
+#: before the pass.
+MAX_CELL_MAP = 100_000_000
+
+
 def is_distributed(data) -> bool:
     """A Dask DataFrame, or a path to a folder (of Parquet files)."""
     if isinstance(data, (str, os.PathLike)):
@@ -51,13 +59,78 @@ def is_distributed(data) -> bool:
     return mod.startswith("dask") and hasattr(data, "map_partitions")
 
 
-def _frame(data, columns):
+def _family(t) -> str:
+    """A column type's kind, for comparing files: number, text, date, bool, null or the type."""
+    if pa.types.is_dictionary(t):
+        t = t.value_type
+    if pa.types.is_integer(t) or pa.types.is_floating(t) or pa.types.is_decimal(t):
+        return "number"
+    if pa.types.is_string(t) or pa.types.is_large_string(t):
+        return "text"
+    if pa.types.is_timestamp(t) or pa.types.is_date(t):
+        return "date"
+    if pa.types.is_boolean(t):
+        return "bool"
+    if pa.types.is_null(t):
+        return "null"
+    return str(t)
+
+
+def _dataset_files(path: Path) -> list[Path]:
+    """The files a Parquet dataset read of the folder takes: every file whose path (inside the
+    folder) has no part starting with '.' or '_' (Arrow's own rule), whatever its suffix."""
+    return sorted(f for f in path.rglob("*") if f.is_file() and not any(
+        part.startswith((".", "_")) for part in f.relative_to(path).parts))
+
+
+def check_folder(path: Path, columns, numeric) -> list[Path]:
+    """Every file of a Parquet folder checked before any pass: its footer readable, each of
+    `columns` present (or a hive partition key in its path), the `numeric` columns numbers, and
+    each column of one kind across the files. DataError names the file and the column."""
+    files = _dataset_files(path)
+    if not any(f.suffix in (".parquet", ".parq", ".pq") for f in files):
+        raise DataError(f"folder {path} holds no Parquet files (*.parquet)")
+    schemas = []
+    for f in files:
+        rel = f.relative_to(path)
+        try:
+            schemas.append((rel, pq.read_schema(f)))
+        except Exception as exc:               # pyarrow raises several types for bad files
+            raise DataError(f"'{rel}' in {path} is not a readable Parquet file (its footer "
+                            f"cannot be read: {' '.join(str(exc).split())[:160]}); remove it "
+                            "or replace it with a complete Parquet file") from None
+    seen: dict[str, tuple[str, Path]] = {}
+    for rel, schema in schemas:
+        keys = {part.split("=", 1)[0] for part in rel.parts[:-1] if "=" in part}
+        for c in columns:
+            if c not in schema.names:
+                if c in keys:
+                    continue
+                if not any(c in other.names for _, other in schemas):
+                    raise SpecificationError(f"no column named '{c}'; available: "
+                                             + ", ".join(schema.names[:20]))
+                raise DataError(f"'{rel}' in {path} has no column '{c}' (its columns: "
+                                + ", ".join(schema.names[:12]) + "); every file of the folder "
+                                "needs the model's columns")
+            kind = _family(schema.field(c).type)
+            if c in numeric and kind not in ("number", "null"):
+                raise DataError(f"column '{c}' of '{rel}' in {path} holds "
+                                f"{schema.field(c).type}, not numbers")
+            if kind == "null":
+                continue
+            first = seen.setdefault(c, (kind, rel))
+            if first[0] != kind:
+                raise DataError(f"column '{c}' holds {kind} values in '{rel}' but {first[0]} "
+                                f"values in '{first[1]}' ({path}); every file needs the same "
+                                "kind of values")
+    return files
+
+
+def _frame(data, columns, numeric=()):
     import dask.dataframe as dd
     if isinstance(data, (str, os.PathLike)):
         path = Path(data)
-        files = [p for p in path.rglob("*") if p.suffix in (".parquet", ".parq", ".pq")]
-        if not files:
-            raise DataError(f"folder {path} holds no Parquet files (*.parquet)")
+        check_folder(path, columns, numeric)
         try:
             ddf = dd.read_parquet(str(path))
         except Exception as exc:               # pyarrow and fsspec raise many kinds
@@ -69,15 +142,24 @@ def _frame(data, columns):
     if missing:
         raise SpecificationError(f"no column named '{missing[0]}'; available: "
                                  + ", ".join(map(str, list(ddf.columns)[:20])))
+    for c in numeric:
+        dtype = ddf.dtypes[c]
+        if not (pd.api.types.is_numeric_dtype(dtype) and not pd.api.types.is_bool_dtype(dtype)):
+            raise DataError(f"column '{c}' holds {dtype} values, not numbers")
     return ddf[columns]
 
 
 def _compute(client, *things):
     import dask
-    if client is not None:
-        futures = client.compute(list(things))
-        return client.gather(futures)
-    return dask.compute(*things)
+    try:
+        if client is not None:
+            futures = client.compute(list(things))
+            return client.gather(futures)
+        return dask.compute(*things)
+    except (pa.ArrowException, OSError, EOFError) as exc:
+        # the files were checked up front; a page damaged inside a file shows only here
+        raise DataError(f"the data could not be read: {' '.join(str(exc).split())[:300]}") \
+            from None
 
 
 def _tree(delayed_parts, combine):
@@ -242,7 +324,7 @@ def _prepare(data, response, regs, entity, time, effects, sample, client, fama_m
              progress=None):
     step = progress or (lambda done, total, what: None)
     cols = [*regs, response]
-    ddf = _frame(data, [entity, time, *cols])
+    ddf = _frame(data, [entity, time, *cols], numeric=cols)
     from dask import delayed
     step(0, 4, "reading the labels")
     parts = [delayed(_labels, pure=True)(p, entity, time) for p in ddf.to_delayed()]
@@ -275,6 +357,13 @@ def _prepare(data, response, regs, entity, time, effects, sample, client, fama_m
             "e_lookup": ent_raw, "e_codes": e_codes.astype(np.int64),
             "t_lookup": tim_raw, "t_codes": t_codes.astype(np.int64),
             "n_entities": len(entities), "n_periods": len(periods)}
+    cells = len(entities) * len(periods)
+    if cells > MAX_CELL_MAP:
+        raise EstimationError(
+            f"the Dask path tracks each (entity, period) cell in a map of entities x periods: "
+            f"{len(entities):,} x {len(periods):,} = {cells:,} cells, more than its budget of "
+            f"{MAX_CELL_MAP:,} (a sparse panel); fit it in memory, where nothing is laid out "
+            "on that grid")
     (counts,) = _compute(client, _map(ddf, _pass_counts, spec))
     n = int(counts["n"][0])
     for j in np.flatnonzero(counts["inf"]):

@@ -200,14 +200,16 @@ class Inference:
 def infer(model, est, level: float = 0.95, reference: str = "auto",
           long_run=None) -> Inference:
     """Coefficient table for `model` under estimator `est` (an Estimator or a registry name).
-    long_run: an estimate of S already made with `est` (otherwise computed here)."""
+    long_run: an estimate of S already made with `est` (otherwise the model's own choice,
+    `model.long_run_for(est)`: for a GMM fit under its weighting estimator, the estimate of S
+    behind the weighting)."""
     est = as_estimator(est)
     if isinstance(level, bool) or not isinstance(level, (int, float)) or not 0.5 <= level < 1:
         raise SpecificationError(f"confidence level must be between 0.5 and 1, got {level!r}")
     if model.fits_exactly():
         raise EstimationError("the model fits the data exactly (every residual is zero): "
                               "standard errors are zero and t statistics are not defined")
-    lr = est.long_run(model) if long_run is None else long_run
+    lr = model.long_run_for(est) if long_run is None else long_run
     law = est.family.law(reference, est.params, lr, model)
     cov = model.covariance_from_long_run(lr.S)
     var = np.diag(cov).copy()

@@ -7,6 +7,9 @@ import html
 
 import numpy as np
 import pandas as pd
+from openpyxl import Workbook
+from openpyxl.cell.cell import ILLEGAL_CHARACTERS_RE
+from openpyxl.styles import Alignment, Font
 
 from ..covariance.registry import as_estimator
 from ..errors import SpecificationError
@@ -132,8 +135,6 @@ class RobustnessTable:
         """A workbook: sheet "table" laid out like the paper's table with estimates and
         statistics as numbers (number formats add the brackets), sheet "numbers" the long
         frame, and the notes under the table."""
-        from openpyxl import Workbook
-        from openpyxl.styles import Alignment, Font
         wb = Workbook()
         ws = wb.active
         ws.title = "table"
@@ -142,13 +143,13 @@ class RobustnessTable:
         header = [[""] + self.specs, [""] + self.estimators, [""] + self.columns]
         for r, row in enumerate(header, start=1):
             for c, v in enumerate(row, start=1):
-                cell = ws.cell(row=r, column=c, value=v)
+                cell = _put(ws, r, c, v)
                 cell.font = Font(bold=(r == 3))
                 cell.alignment = Alignment(horizontal="center")
         r = 4
         field = {"se": "std_error", "t": "t_stat", "p": "p_value"}.get(self.show)
         for term in self.terms:
-            ws.cell(row=r, column=1, value=term)
+            _put(ws, r, 1, term)
             for c, col in enumerate(self.columns, start=2):
                 v = self._value(col, term, "estimate")
                 if v is not None:
@@ -158,10 +159,10 @@ class RobustnessTable:
                     if s is not None and np.isfinite(s):
                         ws.cell(row=r + 1, column=c, value=float(s)).number_format = fmt_stat
                 else:
-                    ws.cell(row=r + 1, column=c, value=self._stat_text(col, term, digits))
+                    _put(ws, r + 1, c, self._stat_text(col, term, digits))
             r += 2
-        ws.cell(row=r, column=1, value="observations")
-        ws.cell(row=r + 1, column=1, value="R²")
+        _put(ws, r, 1, "observations")
+        _put(ws, r + 1, 1, "R²")
         for c, col in enumerate(self.columns, start=2):
             ws.cell(row=r, column=c, value=int(self.extra[col]["N"]))
             r2 = self.extra[col]["R2"]
@@ -169,14 +170,15 @@ class RobustnessTable:
                 ws.cell(row=r + 1, column=c, value=float(r2)).number_format = "0.000"
         r += 3
         for note in self.foot():
-            ws.cell(row=r, column=1, value=note)
+            _put(ws, r, 1, note)
             r += 1
         ws2 = wb.create_sheet("numbers")
-        cols = list(self.frame.columns)
-        ws2.append(cols)
-        for rec in self.frame.itertuples(index=False):
-            ws2.append([(float(v) if isinstance(v, (float, np.floating)) else
-                         (int(v) if isinstance(v, (np.integer,)) else v)) for v in rec])
+        for c, name in enumerate(self.frame.columns, start=1):
+            _put(ws2, 1, c, str(name))
+        for r, rec in enumerate(self.frame.itertuples(index=False), start=2):
+            for c, v in enumerate(rec, start=1):
+                _put(ws2, r, c, float(v) if isinstance(v, (float, np.floating)) else
+                     int(v) if isinstance(v, np.integer) else v)
         wb.save(path)
 
     def _repr_html_(self) -> str:
@@ -222,3 +224,29 @@ def robustness_table(fits, estimators, show: str = "se", level: float = 0.95,
         raise SpecificationError(f"no coefficient named {unknown[0]!r} in these fits")
     return RobustnessTable(frame[frame.term.isin(order)].reset_index(drop=True), columns,
                            specs, ests, order, show, level, notes, extra)
+
+
+#: Text a spreadsheet would take for a formula or a command if it were typed in (the same
+#: characters the CSV export neutralises).
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def _put(ws, row: int, column: int, value):
+    """Write one cell: numbers as numbers, every text as text (type "s", never a formula;
+    text that a spreadsheet would read as a formula when typed also gets the quote prefix, so
+    editing the cell keeps it text)."""
+    cell = ws.cell(row=row, column=column)
+    if isinstance(value, str):
+        value = ILLEGAL_CHARACTERS_RE.sub("\ufffd", value)   # control characters XML refuses
+        cell.value = value
+        cell.data_type = "s"
+        if value.startswith(_FORMULA_START):
+            cell.quotePrefix = True
+    elif isinstance(value, (bool, np.bool_)):
+        cell.value = bool(value)
+    elif value is None or isinstance(value, (int, float)):
+        cell.value = value
+    else:
+        cell.value = ILLEGAL_CHARACTERS_RE.sub("\ufffd", str(value))
+        cell.data_type = "s"
+    return cell

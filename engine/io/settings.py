@@ -4,9 +4,14 @@ estimator, law, level), validated when read back so a settings file cannot carry
 from __future__ import annotations
 
 import json
+import math
 
+from ..covariance.bandwidth import MAX_BANDWIDTH_OVER_T
 from ..covariance.registry import FAMILIES, estimator
-from ..data.transforms import OLD_TRANSFORM_NAMES, TRANSFORMS, current_column_name, transform_kind
+from ..data.columns import shown_number
+from ..data.reading import MAX_CELLS
+from ..data.transforms import (AHEAD, OLD_TRANSFORM_NAMES, TRANSFORMS, current_column_name,
+                               transform_kind)
 from ..errors import DataError, LagwiseError
 from ..laws.reference import REQUESTS
 from ..models.iv import METHODS
@@ -34,7 +39,7 @@ _FIELDS = {
     "estimator": ((str,), None),
     "params": ((dict,), None),
     "rule": ((str,), None),
-    "value": ((int, float, type(None)), None),
+    "value": ((int, float, type(None)), "tuning"),
     "reference": ((str,), None),
     "level": ((float, int), "level"),
     "focus": ((str, type(None)), None),
@@ -112,6 +117,41 @@ def _upgrade(data: dict) -> dict:
     return out
 
 
+#: No table the loader accepts has more rows than this (its cell bound with one column): a
+#: horizon or a tuning value beyond it can never fit any sample.
+MAX_SAMPLE = MAX_CELLS
+
+
+def _finite(value) -> bool:
+    try:
+        return math.isfinite(float(value))
+    except (OverflowError, TypeError, ValueError):
+        return False
+
+
+def check_against_sample(settings: dict, nobs: int) -> None:
+    """Refuse a settings record whose horizon, transforms or tuning value cannot fit a sample
+    of `nobs` rows (DataError naming the value and T): a horizon needs T >= 2h, a look-ahead
+    transform at least 2p rows, a tuning value (bandwidth, cosine terms, order) at most
+    MAX_BANDWIDTH_OVER_T x T."""
+    h = settings.get("horizon")
+    if h is not None and 2 * h > nobs:
+        raise DataError(f"settings: horizon h = {shown_number(h)} leaves too few observations "
+                        f"for this data (T = {nobs}; an h-period response needs T >= 2h)")
+    for kind, column, p in settings.get("transforms") or []:
+        if transform_kind(kind) in AHEAD and 2 * p > nobs:
+            raise DataError(f"settings: {kind} of {shown_number(p)} periods of '{column}' "
+                            f"leaves too few rows for this data (T = {nobs})")
+    top = MAX_BANDWIDTH_OVER_T * nobs
+    values = [("value", settings.get("value"))] + [
+        (name, v) for name, v in (settings.get("params") or {}).items()
+        if name in ("bandwidth", "cosines", "max_order") and not isinstance(v, (str, bool))]
+    for name, v in values:
+        if v is not None and _finite(v) and float(v) > top:
+            raise DataError(f"settings: {name} = {shown_number(v)} is beyond this data "
+                            f"(T = {nobs}; at most {top:g})")
+
+
 def validate_settings(data: dict) -> dict:
     unknown = sorted(set(data) - set(_FIELDS))
     if unknown:
@@ -131,13 +171,20 @@ def validate_settings(data: dict) -> dict:
             raise DataError(f"settings: '{key}' must be a short list of column names")
         if check == "effects" and not all(v in ("entity", "time") for v in value):
             raise DataError("settings: 'effects' may hold 'entity' and 'time' only")
-        if check == "positive" and value is not None and value < 1:
-            raise DataError("settings: 'horizon' must be a whole number >= 1")
-        if check == "level" and not 0.5 <= float(value) < 1:
+        if check == "positive" and value is not None and not 1 <= value <= MAX_SAMPLE // 2:
+            raise DataError(f"settings: 'horizon' must be a whole number from 1 to "
+                            f"{MAX_SAMPLE // 2:,} (half the rows of the largest table the "
+                            f"loader accepts), got {shown_number(value)}")
+        if check == "tuning" and value is not None and not (
+                _finite(value) and 0 < value <= MAX_SAMPLE):
+            raise DataError(f"settings: 'value' must be a positive number of at most "
+                            f"{MAX_SAMPLE:,} (the rows of the largest table the loader "
+                            f"accepts), got {shown_number(value)}")
+        if check == "level" and not (_finite(value) and 0.5 <= float(value) < 1):
             raise DataError("settings: 'level' must be between 0.5 and 1")
         if check == "window" and value is not None and (
                 len(value) != 2 or not all(isinstance(v, int) and not isinstance(v, bool)
-                                           for v in value)):
+                                           and abs(v) <= MAX_SAMPLE for v in value)):
             raise DataError("settings: 'window' must be two row positions")
         if check == "transforms":
             if len(value) > 50:
@@ -147,6 +194,9 @@ def validate_settings(data: dict) -> dict:
                         and isinstance(step[1], str) and isinstance(step[2], int)
                         and not isinstance(step[2], bool)):
                     raise DataError("settings: each transform is [kind, column, periods]")
+                if not 1 <= step[2] <= MAX_SAMPLE:
+                    raise DataError(f"settings: the periods of a transform must be from 1 to "
+                                    f"{MAX_SAMPLE:,}, got {shown_number(step[2])}")
                 try:
                     transform_kind(step[0])
                 except LagwiseError:

@@ -109,6 +109,45 @@ def _finite_or_nan(t, p):
     return np.where(np.isfinite(t), p, np.nan)
 
 
+# --------------------------------------------------------------------------- the tail functions
+# Every p-value Lagwise shows is computed by one of these (through a Law, or directly by the
+# specification tests: J, IVX, first-stage Wald, residual diagnostics); tests/test_p_values.py
+# scans the sources for a distribution's tail function used anywhere else.
+
+def _float_or_array(p):
+    return float(p) if np.ndim(p) == 0 else p
+
+
+def normal_two_sided(z):
+    """Two-sided p-values of standard normal statistics, 2 P(Z > |z|) (NaN where z is not
+    finite)."""
+    a = np.abs(np.asarray(z, dtype=float))
+    with np.errstate(invalid="ignore"):
+        return _float_or_array(_finite_or_nan(a, 2 * stats.norm.sf(a)))
+
+
+def chi_square_upper(w, df):
+    """P(chi-square(df) > w): a Wald, LM or J statistic referred to its large-sample law."""
+    return _float_or_array(stats.chi2.sf(w, df))
+
+
+def f_upper(f, df1, df2):
+    """P(F(df1, df2) > f)."""
+    return _float_or_array(stats.f.sf(f, df1, df2))
+
+
+def t_two_sided(t, df):
+    """Two-sided p-values of t statistics under Student t(df) (NaN where t is not finite)."""
+    a = np.abs(np.asarray(t, dtype=float))
+    with np.errstate(invalid="ignore"):
+        return _float_or_array(_finite_or_nan(a, 2 * stats.t.sf(a, df)))
+
+
+def normal_critical(level: float) -> float:
+    """The two-sided standard normal critical value at `level` (e.g. 1.96 at 0.95)."""
+    return _normal_critical(float(level), 1)
+
+
 @functools.lru_cache(maxsize=256)
 def _normal_critical(level: float, restrictions: int) -> float:
     if restrictions == 1:
@@ -123,12 +162,10 @@ class Normal(Law):
         return _normal_critical(float(level), int(restrictions))
 
     def p_values(self, t):
-        a = np.abs(np.asarray(t, dtype=float))
-        with np.errstate(invalid="ignore"):
-            return _finite_or_nan(a, 2 * stats.norm.sf(a))
+        return np.asarray(normal_two_sided(t), dtype=float)
 
     def wald(self, w, m):
-        return WaldForm(w / m, None, float(stats.chi2.sf(w, m)))
+        return WaldForm(w / m, None, float(chi_square_upper(w, m)))
 
     def describe(self):
         return "standard normal (large-sample)"
@@ -178,13 +215,11 @@ class StudentT(Law):
         return float(stats.f.ppf(level, restrictions, self.df))
 
     def p_values(self, t):
-        a = np.abs(np.asarray(t, dtype=float))
-        with np.errstate(invalid="ignore"):
-            return _finite_or_nan(a, 2 * stats.t.sf(a, self.df))
+        return np.asarray(t_two_sided(t, self.df), dtype=float)
 
     def wald(self, w, m):
         f = w / m
-        return WaldForm(f, (m, self.df), float(stats.f.sf(f, m, self.df)))
+        return WaldForm(f, (m, self.df), float(f_upper(f, m, self.df)))
 
     def _df_text(self) -> str:
         if isinstance(self.df, np.ndarray):
@@ -228,7 +263,7 @@ class EWCLaw(StudentT):
         big_b = self.df
         f = (big_b - m + 1) / (big_b * m) * w
         df = (m, big_b - m + 1)
-        return WaldForm(f, df, float(stats.f.sf(f, *df)))
+        return WaldForm(f, df, float(f_upper(f, *df)))
 
     def describe(self):
         return f"Student t with {self.df:g} df (EWC, B = {self.df:g})"

@@ -219,6 +219,13 @@ class MomentModel:
     def has_intercept(self) -> bool:
         return INTERCEPT in self.terms
 
+    def long_run_for(self, estimator):
+        """The estimate of S this model's tables use for `estimator` (every coefficient table,
+        comparison row and sweep point): the estimator applied to this model's moment
+        contributions. A model weighted by an estimate of S answers with that estimate when
+        asked for its own weighting estimator (IVFit)."""
+        return estimator.long_run(self)
+
     # ------------------------------------------------------------------ the public verbs
     def infer(self, estimator, level: float = 0.95, reference: str = "auto"):
         """Coefficient table under one estimator of S and one reference law."""

@@ -13,13 +13,17 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
 
 from ..covariance.longrun import LongRun
 from ..covariance.registry import Estimator, ModelInfo, as_estimator
 from ..errors import EstimationError, LagwiseError, SpecificationError
 from ..inference.infer import infer
 from ..inference.sweep import SweepResult
+from ..laws.reference import chi_square_upper
+
+#: What a GMM sweep's curves are, for the chart.
+TWO_STEP_NOTE = ("two-step GMM at each value: S from the first-step residuals weights the "
+                 "moments and gives the standard errors (efficient form)")
 
 
 @dataclass
@@ -87,9 +91,23 @@ class WeightedGMM:
         return (f"general GMM sandwich (D'WD)^-1 D'W S W D (D'WD)^-1 / T, W from "
                 f"{self.weighting_words()}")
 
+    def long_run_for(self, estimator):
+        """S for a table under `estimator`. Under the fit's own weighting estimator, the
+        estimate of S behind the weighting (W = S^-1: from the first-step residuals for
+        two-step GMM, at the final estimate for iterated GMM and CUE), so that the estimate, its
+        covariance (the efficient form V = (D'S^-1 D)^-1 / T; Hansen 1982, Hayashi 2000 sec.
+        3.5 [recalled]) and J all use one S; the coefficient table, the comparison's row and
+        the GMM sweep's point for the same setting are then the same numbers. Any other
+        estimator is applied to this fit's residuals (the general sandwich with W fixed).
+        linearmodels' convention after two-step GMM (S re-estimated from the final residuals)
+        is infer(fit, est, long_run=est.long_run(fit))."""
+        if self.weighting is not None and estimator == self.weight:
+            return self.weighting
+        return estimator.long_run(self)
+
     def infer_weighting(self, level: float = 0.95, reference: str = "auto"):
         """Inference with the estimate of S behind the weighting (W = S^-1): the efficient form
-        V = (D'S^-1 D)^-1 / T, as the GMM sweep reports it."""
+        V = (D'S^-1 D)^-1 / T, as the GMM sweep reports it; the same as infer(self.weight)."""
         if self.weighting is None:
             raise SpecificationError("a fit with a fixed weight has no estimated weighting; use "
                                      "infer(estimator)")
@@ -108,7 +126,7 @@ class WeightedGMM:
         if df == 0:
             return JTest(0.0, 0, float("nan"), s_from, "exactly identified: J = 0")
         j = j_statistic(self.nobs, self.mean_moment(), s)
-        return JTest(j, df, float(stats.chi2.sf(j, df)), s_from,
+        return JTest(j, df, float(chi_square_upper(j, df)), s_from,
                      f"H0: all {self.m} moment conditions hold")
 
 
@@ -133,7 +151,7 @@ def with_j(fit, sweep: SweepResult) -> SweepResult:
                 except LagwiseError:
                     continue
     sweep.extras.update({"j_stat": j, "j_df": df,
-                         "j_p_value": stats.chi2.sf(j, df) if df > 0 else j})
+                         "j_p_value": chi_square_upper(j, df) if df > 0 else j})
     return sweep
 
 
@@ -182,4 +200,5 @@ def axis_sweep(fit, estimators, values=None) -> SweepResult:
                        reasons=reasons, long_runs=runs,
                        info=ModelInfo(first.nobs, first.df_resid),
                        extras={"j_stat": j, "j_df": df,
-                               "j_p_value": stats.chi2.sf(j, df) if df > 0 else j})
+                               "j_p_value": chi_square_upper(j, df) if df > 0 else j,
+                               "chart_note": TWO_STEP_NOTE})

@@ -24,7 +24,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 import scipy.linalg as sla
-from scipy import optimize, stats
+from scipy import optimize
 
 from ..capabilities import Capabilities
 from ..covariance.registry import as_estimator
@@ -32,6 +32,7 @@ from ..data.columns import (INTERCEPT, as_list, check_horizon, check_magnitudes,
                             frame_and_meta, index_label, numeric_block)
 from ..errors import EstimationError, LagwiseError, SpecificationError
 from ..inference.sweep import sweep
+from ..laws.reference import chi_square_upper
 from .base import MomentModel, residuals_vanish
 from .iv_strength import FirstStage, anderson_rubin, anderson_rubin_test, first_stage
 from .gmm_common import (JTest, WeightedGMM, fixed_bandwidth, inverse_weight,
@@ -174,9 +175,8 @@ def fit_iv(data, response: str, regressors=None, endogenous=None, instruments=No
     y = np.ascontiguousarray(values[:, -1])
     info.rows_used = len(values)
     info.first, info.last = index_label(index[0]), index_label(index[-1])
-    horizon = check_horizon(horizon)
-    if horizon is None:
-        horizon = horizons.get(response)
+    horizon = check_horizon(horizon if horizon is not None else horizons.get(response),
+                            len(values))
     core = IVCore(X=np.ascontiguousarray(X), y=y, Z=Z, terms=terms, z_names=z_names,
                   endogenous=endog, excluded=instr, exogenous=exog, index=index,
                   response=response, sample=info, horizon=horizon, table=table)
@@ -378,7 +378,7 @@ class IVFit(WeightedGMM, MomentModel):
         g_sub = zy - zx @ b_sub
         j_sub = self.nobs * g_sub @ w_sub @ g_sub
         c = float(j_full - j_sub)
-        return JTest(c, len(subset), float(stats.chi2.sf(max(c, 0.0), len(subset))),
+        return JTest(c, len(subset), chi_square_upper(max(c, 0.0), len(subset)),
                      f"{est.label}, the full model's estimate",
                      f"H0: {', '.join(subset)} are valid instruments given the others")
 

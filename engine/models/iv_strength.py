@@ -11,9 +11,10 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 import scipy.linalg as sla
-from scipy import optimize, stats
+from scipy import optimize
 
 from ..errors import LagwiseError, SpecificationError
+from ..laws.reference import chi_square_upper, f_upper
 from .series import SeriesModel
 
 
@@ -85,8 +86,8 @@ def first_stage(fit, est):
         f_homo = float(pj @ (zt.T @ zt) @ pj) / (L * s2)
         df2 = t_obs - len(core.z_names)
         rows.append({"endogenous": name, "robust_f": wald / L,
-                     "robust_p": float(stats.chi2.sf(wald, L)), "homoskedastic_f": f_homo,
-                     "homoskedastic_p": float(stats.f.sf(f_homo, L, df2)),
+                     "robust_p": chi_square_upper(wald, L), "homoskedastic_f": f_homo,
+                     "homoskedastic_p": f_upper(f_homo, L, df2),
                      "partial_r2": partial_r2, "instruments": L})
         se = np.sqrt(np.diag(vj))
         coefs[name] = pd.DataFrame({"estimate": pj, "std_error": se, "t_stat": pj / se},

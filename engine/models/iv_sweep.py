@@ -1,17 +1,24 @@
 """Sensitivity of an IV/GMM fit along a tuning axis: for a GMM fit the weighting follows the
 estimator (the two-step estimate, its efficient-form standard error and Hansen's J at every
-value); for 2SLS the ordinary sweep with J added."""
+value); for 2SLS the ordinary sweep with J added.
+
+Each point of a two-step sweep is the two-step fit weighted by the estimator at that value, with
+the S behind its weighting (from the first-step residuals) giving the standard errors: the same
+numbers as `fit.two_step(est).infer(est)` and the comparison's row for that setting
+(`IVFit.long_run_for`). The sweep result says so in `extras["chart_note"]`; a chart drawn for an
+iterated or continuously updated fit shows these two-step curves (the cheaper curve) and names
+them as such (`TWO_STEP_NOTE`)."""
 
 from __future__ import annotations
 
 import numpy as np
-from scipy import stats
 
 from ..covariance import longrun
 from ..covariance.kernels import get_kernel
 from ..covariance.registry import ModelInfo
 from ..inference.sweep import SweepResult
-from .gmm_common import axis_sweep
+from ..laws.reference import chi_square_upper
+from .gmm_common import TWO_STEP_NOTE, axis_sweep
 
 
 def gmm_sweep(fit, estimators, bandwidths=None):
@@ -64,7 +71,8 @@ def gmm_sweep(fit, estimators, bandwidths=None):
         t = np.where(se > 0, est / se, np.nan)
     df = L - k
     extras = {"j_stat": jstat, "j_df": df,
-              "j_p_value": stats.chi2.sf(jstat, df) if df > 0 else np.full_like(jstat, np.nan)}
+              "j_p_value": chi_square_upper(jstat, df) if df > 0 else np.full_like(jstat, np.nan),
+              "chart_note": TWO_STEP_NOTE}
     return SweepResult(labels=[fam.curve_label(e.params) for e in ests], estimators=ests,
                        values=b, terms=list(first.terms), estimate=est, std_error=se,
                        t_stat=t, lags=lags, status=status,

@@ -277,9 +277,7 @@ def fit_ols(data, response: str, regressors=None, intercept: bool = True,
     y = np.ascontiguousarray(values[:, k])
     info.rows_used = t_obs
     info.first, info.last = (index_label(index[0]), index_label(index[-1]))
-    horizon = check_horizon(horizon)
-    if horizon is None:
-        horizon = horizons.get(response)
+    horizon = check_horizon(horizon if horizon is not None else horizons.get(response), t_obs)
     fit = OLSFit(X=X, y=y, terms=terms, index=index, response=response, sample=info,
                  horizon=horizon, table=table)
     fit.one_period = one_period_source(table, frame, response, horizon, one_period)

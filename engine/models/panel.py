@@ -14,8 +14,9 @@ estimators of S need:
   periods, on which every kernel, bandwidth rule and fixed-b law of the time-series machinery
   runs (Driscoll & Kraay 1998): V = T_p M S_h M' equals the panel's (X'X)^-1 (sum_ts w h_t h_s')
   (X'X)^-1;
-* `within_lags()`: sum_i sum_t g_it g_i,t-j' for every lag j in periods (by FFT over a dense
-  entity x period grid), for a kernel over time within each entity.
+* `within_lags()`: sum_i sum_t g_it g_i,t-j' for every lag j in periods (from each entity's own
+  rows: products of its pairs of rows, or an FFT of its row of a dense grid, whichever is
+  cheaper), for a kernel over time within each entity.
 
 Data too large for memory (a Dask DataFrame, a folder of Parquet files) is handed to the fit
 functions registered for it (`register_large_data`; engine.distributed registers itself).
@@ -249,11 +250,80 @@ class PeriodSums(MomentModel):
         return self.nobs / self.parent.nobs
 
 
-def within_lag_products(g, e_codes, t_codes, n_entities, n_periods) -> np.ndarray:
-    """sum_i sum_t g_it g_i,t-j' for j = 0..T_p-1, (T_p, m, m), by zero-padded FFTs over a dense
-    entity x period grid (missing cells are zero), in blocks of entities."""
+def within_lag_products(g, e_codes, t_codes, n_entities, n_periods, method: str = "auto"
+                        ) -> np.ndarray:
+    """sum_i sum_t g_it g_i,t-j' for j = 0..T_p-1, (T_p, m, m), from each entity's own rows
+    sorted by entity and period. Per entity the cheaper of two exact routes: the products of its
+    pairs of rows (n_i (n_i - 1) / 2 of them: a short or sparse entity) or a zero-padded FFT of
+    its row of a dense entity x period grid (a long entity; blocks of at most DENSE_BLOCK
+    numbers). The estimated work is checked against WITHIN_LAGS_BUDGET before anything is
+    allocated. method: "auto", or "pairs" / "fft" for every entity (tests)."""
+    g = np.asarray(g, dtype=float)
     n, m = g.shape
+    out = np.zeros((max(n_periods, 1), m, m))
+    if n == 0:
+        return out
+    order = np.lexsort((t_codes, e_codes))
+    e_sorted, t_sorted = e_codes[order], t_codes[order]
+    counts = np.bincount(e_codes, minlength=n_entities)
     size = sfft.next_fast_len(2 * n_periods, real=True)
+    fft_cost = size * (2.5 * m * np.log2(max(size, 2)) + 2.0 * m * (m + 1))
+    pair_cost = counts * (counts - 1) / 2.0 * m * m
+    if method == "pairs":
+        by_pairs = np.ones(n_entities, dtype=bool)
+    elif method == "fft":
+        by_pairs = np.zeros(n_entities, dtype=bool)
+    else:
+        by_pairs = pair_cost <= fft_cost
+    work = float(pair_cost[by_pairs].sum() + fft_cost * np.count_nonzero(~by_pairs & (counts > 0)))
+    if work > WITHIN_LAGS_BUDGET:
+        raise EstimationError(
+            f"the within-entity lag products of this panel ({n_entities:,} entities, "
+            f"{n_periods:,} periods, {n:,} rows) need about {work:.2g} operations, more than "
+            f"the budget of {WITHIN_LAGS_BUDGET:.2g}; use Driscoll-Kraay or two-way "
+            "clustering, or fewer periods")
+    rows_pairs = by_pairs[e_sorted]
+    if rows_pairs.any():
+        _pair_lags(g[order[rows_pairs]], e_sorted[rows_pairs], t_sorted[rows_pairs], out)
+    if (~rows_pairs).any():
+        sel = order[~rows_pairs]
+        keep = np.flatnonzero(~by_pairs & (counts > 0))
+        remap = np.full(n_entities, -1)
+        remap[keep] = np.arange(keep.size)
+        out += _fft_lags(g[sel], remap[e_codes[sel]], t_codes[sel], keep.size, n_periods, size)
+    # lag 0 exactly (the FFT route carries rounding of the order of the largest term)
+    out[0] = g.T @ g
+    return out
+
+
+#: The within-entity lag products may take about this many floating-point operations (a few
+#: seconds); beyond it the estimator is refused with the panel's size instead of running on.
+WITHIN_LAGS_BUDGET = 2e10
+
+
+def _pair_lags(g, e, t, out) -> None:
+    """Add sum over pairs of rows of one entity (rows sorted by entity, then period) of
+    g_later g_earlier' to out[lag]."""
+    n, m = g.shape
+    starts = np.r_[0, np.flatnonzero(e[1:] != e[:-1]) + 1]
+    lengths = np.diff(np.r_[starts, n])
+    pos = np.arange(n) - np.repeat(starts, lengths)
+    periods = out.shape[0]
+    for d in range(1, int(lengths.max())):
+        later = np.flatnonzero(pos >= d)
+        earlier = later - d
+        lag = t[later] - t[earlier]
+        for a in range(m):
+            ga = g[later, a]
+            for b in range(m):
+                out[:, a, b] += np.bincount(lag, weights=ga * g[earlier, b],
+                                            minlength=periods)[:periods]
+
+
+def _fft_lags(g, e_codes, t_codes, n_entities, n_periods, size) -> np.ndarray:
+    """The same sums by zero-padded FFTs over a dense entity x period grid, in blocks of
+    entities of at most DENSE_BLOCK numbers."""
+    n, m = g.shape
     nf = size // 2 + 1
     acc = np.zeros((nf, m, m), dtype=complex)
     per_block = max(1, DENSE_BLOCK // max(n_periods * m, 1))
@@ -275,10 +345,7 @@ def within_lag_products(g, e_codes, t_codes, n_entities, n_periods) -> np.ndarra
     for i in range(m):
         for j in range(i):
             acc[:, i, j] = acc[:, j, i].conj()
-    out = sfft.irfft(acc, n=size, axis=0)[:n_periods]
-    # lag 0 exactly (the FFT route carries rounding of the order of the largest term)
-    out[0] = g.T @ g
-    return out
+    return sfft.irfft(acc, n=size, axis=0)[:n_periods]
 
 
 def fit_panel(data, response: str, regressors=None, entity: str | None = None,

@@ -13,18 +13,19 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from scipy import integrate, linalg as sla, stats
+from scipy import integrate, linalg as sla
 
 from ..covariance.bandwidth import select_bandwidth
 from ..covariance.cache import MomentCache
 from ..errors import EstimationError
+from ..laws.reference import chi_square_upper, f_upper
 
 #: Largest T for the exact Durbin-Watson p-value (eigenvalues of a (T-k) x (T-k) matrix).
 DW_EXACT_MAX_T = 1500
 #: Fewest observations for which the diagnostics are computed at all.
 MIN_T = 10
 _NUMERIC_FAILURES = (ValueError, np.linalg.LinAlgError, ZeroDivisionError, FloatingPointError,
-                     IndexError)
+                     IndexError, EstimationError)
 
 
 class Section:
@@ -101,7 +102,7 @@ def breusch_godfrey(e: np.ndarray, x: np.ndarray, p: int):
     lm = t_obs * (1.0 - rss / tss)
     df2 = t_obs - k - p
     f = ((float(e @ e) - rss) / p) / (rss / df2)       # e is orthogonal to X: restricted RSS = e'e
-    return lm, float(stats.chi2.sf(lm, p)), f, float(stats.f.sf(f, p, df2))
+    return lm, chi_square_upper(lm, p), f, f_upper(f, p, df2)
 
 
 def portmanteau(e: np.ndarray, lags) -> pd.DataFrame:
@@ -119,8 +120,8 @@ def portmanteau(e: np.ndarray, lags) -> pd.DataFrame:
     lb = t_obs * (t_obs + 2) * np.cumsum(r**2 / (t_obs - j))
     bp = t_obs * np.cumsum(r**2)
     h = np.asarray(sorted(int(v) for v in lags))
-    return pd.DataFrame({"lb_stat": lb[h - 1], "lb_pvalue": stats.chi2.sf(lb[h - 1], h),
-                         "bp_stat": bp[h - 1], "bp_pvalue": stats.chi2.sf(bp[h - 1], h)},
+    return pd.DataFrame({"lb_stat": lb[h - 1], "lb_pvalue": chi_square_upper(lb[h - 1], h),
+                         "bp_stat": bp[h - 1], "bp_pvalue": chi_square_upper(bp[h - 1], h)},
                         index=pd.Index(h, name="lag"))
 
 
@@ -171,7 +172,7 @@ def _white_no_cross(resid, X):
     r2 = 1 - np.sum((e2 - fitted) ** 2) / np.sum((e2 - e2.mean()) ** 2)
     lm = len(e2) * r2
     df = z.shape[1] - 1
-    return lm, df, stats.chi2.sf(lm, df)
+    return lm, df, chi_square_upper(lm, df)
 
 
 def diagnose(fit, lags=None, arch_lags=None, exact_dw: bool = True,

@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from scipy import stats
+from scipy import sparse
 from statsmodels.tsa.stattools import acf
 
 from ..capabilities import missing
@@ -13,11 +13,16 @@ from ..covariance.bandwidth import select_bandwidth
 from ..covariance.kernels import default_kernel
 from ..data.columns import INTERCEPT
 from ..errors import EstimationError
+from ..laws.reference import f_upper, normal_two_sided
 from .diagnostics import DiagnosticReport, Section, add_row, finite_rows
 
 
 #: Pesaran's CD uses every pair of entities up to this many entities (a random subset beyond).
 CD_MAX_ENTITIES = 2000
+
+#: Pesaran's CD works on a dense period x entity grid up to this many cells, else from the rows
+#: (sparse products over the periods each pair shares): the same sums either way.
+CD_DENSE_CELLS = 4_000_000
 
 
 def _dense(values, e_codes, t_codes, n_e, n_t):
@@ -26,13 +31,16 @@ def _dense(values, e_codes, t_codes, n_e, n_t):
     return out
 
 
-def pesaran_cd(resid, e_codes, t_codes, n_e, n_t, min_overlap: int = 3, seed: int = 0):
+def pesaran_cd(resid, e_codes, t_codes, n_e, n_t, min_overlap: int = 3, seed: int = 0,
+               dense_cells: int | None = None):
     """Pesaran's CD statistic of cross-sectional dependence: sqrt(2/(N(N-1))) sum_{i<j}
     sqrt(T_ij) rho_ij, with rho_ij the correlation of entities i and j over their T_ij common
     periods (each entity's residuals demeaned over its own rows), pairs with fewer than
     `min_overlap` common periods left out; N(0,1) under no cross-sectional dependence
     (Pesaran 2004, CESifo WP 1229; 2015, Econometric Reviews 34 [M: recalled]).
-    Returns (CD, entities used, pairs used)."""
+    Returns (CD, entities used, pairs used). The pair sums come from a dense period x entity
+    grid when it has at most `dense_cells` cells (default CD_DENSE_CELLS), else from the rows
+    as sparse products (a sparse panel never allocates the grid)."""
     used = np.arange(n_e)
     if n_e > CD_MAX_ENTITIES:
         used = np.sort(np.random.default_rng(seed).choice(n_e, CD_MAX_ENTITIES, replace=False))
@@ -43,13 +51,24 @@ def pesaran_cd(resid, e_codes, t_codes, n_e, n_t, min_overlap: int = 3, seed: in
     n = used.size
     counts = np.bincount(e_codes, minlength=n)
     means = np.bincount(e_codes, weights=resid, minlength=n) / np.maximum(counts, 1)
-    dense = _dense(resid - means[e_codes], e_codes, t_codes, n, n_t)
-    present = np.isfinite(dense)
-    e = np.where(present, dense, 0.0)
-    m = present.astype(float)
-    overlap = m.T @ m
-    num = e.T @ e
-    sq = (e**2).T @ m            # [i, j] = sum over common periods of e_i^2
+    centred = resid - means[e_codes]
+    limit = CD_DENSE_CELLS if dense_cells is None else dense_cells
+    if n_t * n <= limit:
+        dense = _dense(centred, e_codes, t_codes, n, n_t)
+        present = np.isfinite(dense)
+        e = np.where(present, dense, 0.0)
+        m = present.astype(float)
+        overlap = m.T @ m
+        num = e.T @ e
+        sq = (e**2).T @ m            # [i, j] = sum over common periods of e_i^2
+    else:
+        shape = (n, n_t)
+        e = sparse.csr_matrix((centred, (e_codes, t_codes)), shape=shape)
+        m = sparse.csr_matrix((np.ones(len(centred)), (e_codes, t_codes)), shape=shape)
+        e2 = sparse.csr_matrix((centred**2, (e_codes, t_codes)), shape=shape)
+        overlap = (m @ m.T).toarray()
+        num = (e @ e.T).toarray()
+        sq = (e2 @ m.T).toarray()
     with np.errstate(invalid="ignore", divide="ignore"):
         rho = num / np.sqrt(sq * sq.T)
     iu = np.triu_indices(n, 1)
@@ -82,10 +101,10 @@ def wooldridge_serial(fit):
     u = dy - dx @ coef
     ent = e[1:][consecutive]
     tim = t[1:][consecutive]
-    # pairs (u_t, u_{t-1}) within an entity: consecutive differences
-    key = ent.astype(np.int64) * (p.n_periods + 1) + tim
-    pos = {int(k): i for i, k in enumerate(key)}
-    lagged = np.array([pos.get(int(k) - 1, -1) for k in key])
+    # pairs (u_t, u_{t-1}) within an entity: consecutive differences, found among the sorted
+    # rows (the previous difference of the same entity, one period earlier)
+    prev_ok = np.r_[False, (ent[1:] == ent[:-1]) & (tim[1:] == tim[:-1] + 1)]
+    lagged = np.where(prev_ok, np.arange(len(ent)) - 1, -1)
     ok = lagged >= 0
     if ok.sum() < 10:
         raise EstimationError("too few entities with three consecutive periods for the serial "
@@ -97,7 +116,7 @@ def wooldridge_serial(fit):
     groups = int(np.count_nonzero(np.bincount(g, minlength=p.n_entities)))
     var = groups / (groups - 1.0) * float(sums @ sums) / float(b @ b) ** 2
     f = (rho + 0.5) ** 2 / var
-    return f, 1, groups - 1, float(stats.f.sf(f, 1, groups - 1)), rho
+    return f, 1, groups - 1, f_upper(f, 1, groups - 1), rho
 
 
 def diagnose_panel(fit, progress=None):
@@ -126,7 +145,7 @@ def diagnose_panel(fit, progress=None):
         step(0, 4, "cross-sectional dependence")
         with Section("Pesaran CD", notes):
             cd, used, pairs = pesaran_cd(resid, p.entity_codes, p.time_codes, g, t)
-            add_row(rows, "Pesaran CD", cd, np.nan, 2 * stats.norm.sf(abs(cd)),
+            add_row(rows, "Pesaran CD", cd, np.nan, normal_two_sided(cd),
                  "no cross-sectional dependence of the residuals",
                  f"scaled sum of pairwise residual correlations over common periods, N(0,1) "
                  f"(Pesaran 2004); {pairs} pairs of {used} entities"
@@ -148,7 +167,7 @@ def diagnose_panel(fit, progress=None):
                 d1, d2 = groups - 1, n - groups
                 f = (between / d1) / (within / d2)
                 add_row(rows, f"{dim.capitalize()} means of residuals", f, d1,
-                     float(stats.f.sf(f, d1, d2)),
+                     f_upper(f, d1, d2),
                      f"residuals have the same mean in every {dim}",
                      f"one-way analysis of variance of the residuals by {dim} "
                      f"({between / (between + within):.1%} of their variance between "
@@ -163,21 +182,35 @@ def diagnose_panel(fit, progress=None):
                             notes=notes)
 
 
+def within_autocorrelation(resid, e_codes, t_codes, max_lag: int) -> np.ndarray:
+    """The pooled autocorrelation of residuals within entities at lags 1..max_lag periods:
+    sum over entities and periods of e_it e_i,t-j over sum of e_it^2, from the rows sorted by
+    entity and period (a lag of j periods is at most j rows back within an entity)."""
+    order = np.lexsort((t_codes, e_codes))
+    e, t, r = e_codes[order], t_codes[order], np.asarray(resid, dtype=float)[order]
+    denom = float(r @ r)
+    out = np.zeros(max_lag)
+    for back in range(1, max_lag + 1):
+        later = np.arange(back, len(r))
+        earlier = later - back
+        same = e[later] == e[earlier]
+        lag = t[later] - t[earlier]
+        hit = same & (lag >= 1) & (lag <= max_lag)
+        out += np.bincount(lag[hit] - 1, weights=r[later][hit] * r[earlier][hit],
+                           minlength=max_lag)[:max_lag]
+    return out / denom if denom > 0 else np.full(max_lag, np.nan)
+
+
 def _panel_correlograms(fit, notes):
     p = fit.panel
     t = p.n_periods
     nl = int(min(12, max(1, t // 4)))
     lag_index = pd.RangeIndex(1, nl + 1, name="lag")
-    dense = _dense(fit.resid, p.entity_codes, p.time_codes, p.n_entities, t)
-    present = np.isfinite(dense)
-    d = np.where(present, dense, 0.0)
-    within = np.full(nl, np.nan)
-    denom = float((d**2).sum())
-    for j in range(1, nl + 1):
-        both = present[j:] & present[:-j]
-        within[j - 1] = float((d[j:] * d[:-j])[both].sum()) / denom if denom > 0 else np.nan
-    avg = np.nanmean(dense, axis=1)
-    avg = avg[np.isfinite(avg)] - np.nanmean(avg)
+    within = within_autocorrelation(fit.resid, p.entity_codes, p.time_codes, nl)
+    counts = np.bincount(p.time_codes, minlength=t)
+    sums = np.bincount(p.time_codes, weights=fit.resid, minlength=t)
+    avg = sums[counts > 0] / counts[counts > 0]             # the period-average residual
+    avg = avg - avg.mean()
     avg_acf = acf(avg, nlags=nl, fft=True)[1:] if np.ptp(avg) > 0 else np.full(nl, np.nan)
     acf_df = pd.DataFrame({"resid": within, "resid_sq": avg_acf,
                            "resid_band": np.full(nl, 1.96 / np.sqrt(fit.nobs)),

@@ -21,17 +21,21 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from scipy import signal, stats
+from scipy import signal
 
 from ..covariance.registry import estimator
 from ..data.columns import INTERCEPT, as_list
 from ..data.table import as_table
 from ..errors import EstimationError, SpecificationError
+from ..laws.reference import chi_square_upper, normal_critical
 from ..models.ols import fit_ols
 
 #: A regressor whose first-order autocorrelation exceeds this is treated as persistent
 #: (a rule of thumb, stated wherever it is used).
 PERSISTENCE_THRESHOLD = 0.9
+#: The persistence report needs this many rows at least: the augmented regression has three
+#: coefficients on the T - 1 pairs of consecutive rows, and keeps two degrees of freedom.
+MIN_PERSISTENCE_ROWS = 6
 #: IVX tuning constants (Kostakis, Magdalinos & Stamatogiannis 2015): R_nz = 1 + c_z / n^beta.
 IVX_CZ = -1.0
 IVX_BETA = 0.95
@@ -136,7 +140,7 @@ def ivx_test(returns, predictors, horizon: int = 1, c_z: float = IVX_CZ,
     if not np.isfinite(w_stat) or w_stat < 0:
         raise EstimationError("the IVX statistic is not defined for these data (its variance "
                               "is not positive definite)")
-    return IVXResult(statistic=w_stat, p_value=float(stats.chi2.sf(w_stat, r)), df=r,
+    return IVXResult(statistic=w_stat, p_value=chi_square_upper(w_stat, r), df=r,
                      coefficients=a_ivx, horizon=k, nobs=n,
                      tuning={"c_z": c_z, "beta": beta, "lags": m_lags})
 
@@ -168,11 +172,21 @@ class PersistenceReport:
 
 
 def _ols(y, X):
+    dof = len(y) - X.shape[1]
+    if dof < 1:
+        raise EstimationError(f"{len(y)} rows are too few for a regression with "
+                              f"{X.shape[1]} coefficients")
     coef, *_ = np.linalg.lstsq(X, y, rcond=None)
     resid = y - X @ coef
-    dof = len(y) - X.shape[1]
     s2 = float(resid @ resid) / dof
-    cov = s2 * np.linalg.inv(X.T @ X)
+    try:
+        cov = s2 * np.linalg.inv(X.T @ X)
+    except np.linalg.LinAlgError:
+        raise EstimationError("the regression's regressors are collinear (a constant "
+                              "predictor?)") from None
+    if not np.isfinite(cov).all():
+        raise EstimationError("the regression's regressors are collinear (a constant "
+                              "predictor?)")
     return coef, resid, cov
 
 
@@ -203,6 +217,11 @@ def persistence_report(fit, predictor: str | None = None, level: float = 0.95) -
     terms = [t for t in fit.terms if t != INTERCEPT]
     if not terms:
         raise SpecificationError("the model has no predictor")
+    if fit.nobs < MIN_PERSISTENCE_ROWS:
+        raise SpecificationError(
+            f"the persistence report needs at least {MIN_PERSISTENCE_ROWS} rows (the "
+            "predictor's AR(1) and the augmented regression with three coefficients on the "
+            f"pairs of consecutive rows need degrees of freedom left); this fit has {fit.nobs}")
     j_of = {t: fit.terms.index(t) for t in terms}
     if predictor is None:
         rhos = {t: _ar1(fit.X[:, j_of[t]])[0] for t in terms}
@@ -214,7 +233,7 @@ def persistence_report(fit, predictor: str | None = None, level: float = 0.95) -
     n_x = len(x)
     rho, rho_se, mu = _ar1(x)
     n = n_x - 1
-    z = stats.norm.ppf(0.5 + level / 2)
+    z = normal_critical(level)
     rho_adj = rho + (1.0 + 3.0 * rho) / n
     interval = (rho_adj - z * rho_se, rho_adj + z * rho_se)
     h = fit.horizon or 1
@@ -343,8 +362,9 @@ def horizon_sweep(data, response: str, predictors, horizons=range(1, 37), estima
     for step, h in enumerate(hs, start=1):
         if progress:
             progress(step - 1, len(hs))
-        if h >= n - 2:
-            notes.append(f"h = {h} is too long for {n} rows; stopped")
+        if 2 * h > n - h:
+            notes.append(f"h = {h} leaves too few observations in {n} rows (an h-period "
+                         "response needs T >= 2h); stopped")
             break
         ahead = np.full(n, np.nan)
         ahead[: n - h] = csum[1 + h: n + 1] - csum[1: n - h + 1]

@@ -20,7 +20,6 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from ..blas import one_blas_thread
 from ..capabilities import missing
@@ -28,7 +27,7 @@ from ..covariance.registry import as_estimator, estimator
 from ..data.columns import INTERCEPT
 from ..errors import EstimationError, LagwiseError, SpecificationError
 from ..inference.compare import family_presets
-from ..laws.reference import row_suffix
+from ..laws.reference import normal_critical, row_suffix
 from .bootstrap import quick_fit
 from .predictive import one_period_series
 
@@ -53,7 +52,7 @@ def wilson(k: int, n: int, level: float = 0.95) -> tuple[float, float]:
     """Wilson score interval for a binomial proportion."""
     if n == 0:
         return float("nan"), float("nan")
-    z = stats.norm.ppf(0.5 + level / 2)
+    z = normal_critical(level)
     p = k / n
     centre = (p + z**2 / (2 * n)) / (1 + z**2 / n)
     half = z * math.sqrt(p * (1 - p) / n + z**2 / (4 * n**2)) / (1 + z**2 / n)
