@@ -64,15 +64,20 @@ class PanelFit(OLSFit):
     kernel_family = "driscoll_kraay"
 
     def __init__(self, *, X, y, terms, index, response, sample, panel: PanelInfo,
-                 raw=None, table=None, horizon=None):
+                 raw=None, table=None, horizon=None, scales=None):
         self.panel = panel
         self._raw = raw                    # untransformed (regressors, y) for Fama-MacBeth
         super().__init__(X=X, y=y, terms=terms, index=index, response=response, sample=sample,
-                         horizon=horizon, table=table)
-        self.leverage = self._panel_leverage()
+                         horizon=horizon, table=table, scales=scales)
 
-    def _panel_leverage(self):
-        base = np.einsum("ij,ij->i", self._q, self._q)
+    def _has_leverage(self) -> bool:
+        p = self.panel
+        return len(p.effects) < 2 or p.balanced
+
+    def _compute_leverage(self):
+        if not self._has_leverage():
+            return None          # two-way on an unbalanced panel: not available in closed form
+        base = super()._compute_leverage()
         p, eff = self.panel, self.panel.effects
         if not eff:
             return base
@@ -80,15 +85,13 @@ class PanelFit(OLSFit):
             return base + 1.0 / p.counts[p.entity_codes]
         if eff == ("time",):
             return base + 1.0 / p.period_counts[p.time_codes]
-        if p.balanced:
-            return base + 1.0 / p.n_periods + 1.0 / p.n_entities - 1.0 / self.nobs
-        return None          # two-way on an unbalanced panel: not available in closed form
+        return base + 1.0 / p.n_periods + 1.0 / p.n_entities - 1.0 / self.nobs
 
     @property
     def capabilities(self) -> Capabilities:
         """A stacked panel: entity and period codes, a design, leverage where it has a closed
         form, clusters by entity and by period; the rows are not one time series."""
-        return Capabilities(panel=True, design=True, leverage=self.leverage is not None,
+        return Capabilities(panel=True, design=True, leverage=self._has_leverage(),
                             clusters=("entity", "time"))
 
     # ------------------------------------------------------------------ degrees of freedom
