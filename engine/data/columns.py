@@ -45,6 +45,37 @@ def column_ranges(values: np.ndarray):
     return lo, hi
 
 
+def column_block(columns, ones: bool = False):
+    """A column-major float block of `columns` (arrays or Series of one length; a leading column
+    of ones when `ones`), with each column's minimum and maximum taken while the column is in
+    cache: (values, lo, hi). A NaN or infinite value shows in lo or hi, so clean data needs no
+    second scan."""
+    columns = list(columns)
+    lead = int(ones)
+    n = len(columns[0]) if columns else 0
+    values = np.empty((n, len(columns) + lead), order="F")
+    lo, hi = np.empty(values.shape[1]), np.empty(values.shape[1])
+    if not n:
+        lo[:] = hi[:] = np.nan
+    elif ones:
+        values[:, 0] = 1.0
+        lo[0] = hi[0] = 1.0
+    for j, column in enumerate(columns):
+        target = values[:, j + lead]
+        target[...] = column.to_numpy(dtype=float) if hasattr(column, "to_numpy") else column
+        if n:
+            lo[j + lead], hi[j + lead] = target.min(), target.max()
+    return values, lo, hi
+
+
+def take_rows(values: np.ndarray, idx: np.ndarray) -> np.ndarray:
+    """Rows `idx` of a column-major block, column-major."""
+    kept = np.empty((idx.size, values.shape[1]), order="F")
+    for j in range(values.shape[1]):
+        np.take(values[:, j], idx, out=kept[:, j])
+    return kept
+
+
 def check_magnitudes(cols, lo, hi, values, lead: int = 0) -> None:
     """Refuse columns whose squares over the sample cannot be represented (see SAFE_MAGNITUDE),
     naming the column and what to do."""
@@ -124,19 +155,8 @@ def numeric_block(frame, cols, non_numeric, sample, what="column", ones: bool = 
         info.dropped_window = available - len(index)
     lead = int(ones)
     n = len(index)
-    values = np.empty((n, len(cols) + lead), order="F")
-    lo, hi = np.empty(values.shape[1]), np.empty(values.shape[1])
-    if ones:
-        values[:, 0] = 1.0
-        lo[0] = hi[0] = 1.0
-    for j, col in enumerate(cols):         # one contiguous copy per column, no temporary
-        column = frame[col]
-        if window is not None:
-            column = column.iloc[window]
-        target = values[:, j + lead]
-        target[...] = column.to_numpy(dtype=float)
-        if n:
-            lo[j + lead], hi[j + lead] = target.min(), target.max()
+    values, lo, hi = column_block([frame[col] if window is None else frame[col].iloc[window]
+                                   for col in cols], ones=ones)
     if not n or np.isfinite(lo).all() and np.isfinite(hi).all():
         return values, index, info, (lo, hi)
     # some value is missing or infinite: find the rows (only columns that hold one)
@@ -164,9 +184,7 @@ def numeric_block(frame, cols, non_numeric, sample, what="column", ones: bool = 
                 "estimators")
     info.notes.insert(0, f"{info.dropped_missing} rows with missing values dropped")
     index = index[ok]
-    kept = np.empty((idx.size, values.shape[1]), order="F")
-    for j in range(values.shape[1]):
-        np.take(values[:, j], idx, out=kept[:, j])
+    kept = take_rows(values, idx)
     if idx.size:
         lo, hi = column_ranges(kept)
     return kept, index, info, (lo, hi)

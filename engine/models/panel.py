@@ -31,10 +31,10 @@ from scipy import fft as sfft
 
 from ..capabilities import Capabilities
 from ..covariance.registry import estimator
-from ..data.columns import INTERCEPT, as_list, check_magnitudes, column_ranges
+from ..data.columns import INTERCEPT, as_list
 from ..data.dates import spacing_note
 from ..data.panels import (PanelInfo, check_names, checked_panel, describe_effects,
-                           large_data_fit, panel_data, panel_names)
+                           large_data_fit, panel_names)
 from ..data.table import Table
 from ..errors import EstimationError, SpecificationError
 from ..inference.compare import compare
@@ -106,18 +106,44 @@ class PanelFit(OLSFit):
 
     # ------------------------------------------------------------------ grouped statistics
     def group_sums(self, dim: str) -> np.ndarray:
-        """Sums of the working moment contributions within each entity or each period."""
+        """Sums of the working moment contributions within each entity or each period. While
+        the orthonormal basis is not formed (a well-conditioned design), they are the sums of
+        x_t e_t mapped by C^-1 (q_t = x_t C^-1), so no T x k array is built for them."""
         def build():
-            codes, n = ((self.panel.entity_codes, self.panel.n_entities) if dim == "entity"
-                        else (self.panel.time_codes, self.panel.n_periods))
-            g = self.working_contributions
-            out = np.empty((n, g.shape[1]))
-            for j in range(g.shape[1]):
-                out[:, j] = np.bincount(codes, weights=g[:, j], minlength=n)
-            return out
+            if self._q is None and "working_contributions" not in self.caches:
+                return self._grouped(self.X, self.resid, dim) @ self._inv_c
+            return self._grouped(self.working_contributions, None, dim)
         if dim not in EFFECTS:
             raise SpecificationError(f"group by 'entity' or 'time', not {dim!r}")
         return self.caches.get(f"sums_{dim}", build)
+
+    def _grouped(self, values, weights, dim):
+        """Sums of the columns of `values` (times `weights` per row, when given) within each
+        entity or period: row or column sums of each column on a balanced panel in (entity,
+        period) order, contiguous blocks for entities in entity order, counting otherwise."""
+        p = self.panel
+        codes, n = ((p.entity_codes, p.n_entities) if dim == "entity"
+                    else (p.time_codes, p.n_periods))
+        out = np.empty((n, values.shape[1]))
+        grid = p.grid
+        starts = None
+        if grid is None and dim == "entity" and p.entity_major:
+            starts = np.concatenate([[0], np.cumsum(p.counts)[:-1]])
+        for j in range(values.shape[1]):
+            col = values[:, j]
+            if grid is not None:
+                spec = "et,et->e" if dim == "entity" else "et,et->t"
+                if weights is None:
+                    out[:, j] = col.reshape(grid).sum(axis=1 if dim == "entity" else 0)
+                else:
+                    out[:, j] = np.einsum(spec, col.reshape(grid), weights.reshape(grid))
+                continue
+            w = col if weights is None else col * weights
+            if starts is not None:
+                out[:, j] = np.add.reduceat(w, starts)
+            else:
+                out[:, j] = np.bincount(codes, weights=w, minlength=n)
+        return out
 
     @property
     def period_model(self) -> "PeriodSums":
@@ -147,7 +173,8 @@ class PanelFit(OLSFit):
             Xr = np.column_stack([np.ones(len(yr)), Xr])
             terms = [INTERCEPT] + [t for t in self.terms if t != INTERCEPT]
             return fama_macbeth_from_rows(Xr, yr, self.panel.time_codes, self.panel.periods, terms,
-                                 self.response, self.sample, self.panel)
+                                          self.response, self.sample, self.panel,
+                                          grid=self.panel.grid)
         return self.caches.get("fama_macbeth", build)
 
     def compare(self, level: float = 0.95, reference: str = "auto", fama_macbeth: bool = True,
@@ -313,22 +340,31 @@ def fit_panel(data, response: str, regressors=None, entity: str | None = None,
     if large is not None:
         return large(data, response, regs, entity, time, effects=eff, intercept=intercept,
                      sample=sample, client=client, **dask_options)
-    pdata, values, lo, hi = checked_panel(data, response, regs, entity, time, sample)
+    lead = int(intercept)
+    pdata, values, lo, hi = checked_panel(data, response, regs, entity, time, sample,
+                                          ones=intercept)
     if hi[-1] - lo[-1] == 0:
         raise SpecificationError(f"response '{response}' is constant ({values[0, -1]:g}): "
                                  "nothing to explain")
     for j, r in enumerate(regs):
-        if hi[j] - lo[j] == 0 and (intercept or eff):
-            raise SpecificationError(f"regressor '{r}' is constant ({values[0, j]:g}); it "
+        if hi[j + lead] - lo[j + lead] == 0 and (intercept or eff):
+            raise SpecificationError(f"regressor '{r}' is constant ({values[0, j + lead]:g}); it "
                                      + ("is absorbed by the effects" if eff else
                                         "duplicates the intercept") + ". Remove it.")
     g, t = len(pdata.entities), len(pdata.periods)
+    info = PanelInfo(entity=entity, time=time, entities=pdata.entities, periods=pdata.periods,
+                     entity_codes=pdata.entity_codes, time_codes=pdata.time_codes, effects=eff,
+                     entity_major=pdata.entity_major)
     transformed, absorbed, comps, iters = within(values, pdata.entity_codes, pdata.time_codes,
-                                                 g, t, eff)
+                                                 g, t, eff, grid=info.grid)
+    info.absorbed, info.components, info.iterations = absorbed, comps, iters
     if eff:
-        centred = values - values.mean(axis=0)
-        before = np.sqrt((centred ** 2).sum(axis=0))
-        after = np.sqrt((transformed ** 2).sum(axis=0))
+        before = np.empty(values.shape[1])
+        after = np.empty(values.shape[1])
+        for j in range(values.shape[1]):            # column by column: no block temporaries
+            c = values[:, j] - values[:, j].mean()
+            before[j] = np.sqrt(c @ c)
+            after[j] = np.sqrt(transformed[:, j] @ transformed[:, j])
         gone = [j for j in range(len(regs)) if after[j] <= ABSORBED_TOL * max(before[j], 1e-300)]
         if gone:
             what = {("entity",): "within entities", ("time",): "within periods"}.get(
@@ -341,21 +377,18 @@ def fit_panel(data, response: str, regressors=None, entity: str | None = None,
             raise SpecificationError(f"response '{response}' is explained entirely by the "
                                      "fixed effects: nothing is left to explain")
     n = len(values)
-    k = len(regs) + int(intercept)
+    k = len(regs) + lead
     if n <= k + absorbed:
         raise SpecificationError(f"{n} rows are too few for {k} coefficients and {absorbed} "
                                  "effect parameters")
-    X = np.empty((n, k))
-    if intercept:
-        X[:, 0] = 1.0
-    X[:, int(intercept):] = transformed[:, :len(regs)]
-    y = np.ascontiguousarray(transformed[:, -1])
-    raw = None
+    X = transformed[:, :k]                    # views of the column-major block
+    y = transformed[:, k]
     if eff:
-        raw = (values[:, :len(regs)].copy(), values[:, -1].copy())
-    info = PanelInfo(entity=entity, time=time, entities=pdata.entities, periods=pdata.periods,
-                     entity_codes=pdata.entity_codes, time_codes=pdata.time_codes, effects=eff,
-                     absorbed=absorbed, components=comps, iterations=iters)
+        scales = np.array([max(-X[:, j].min(), X[:, j].max()) for j in range(k)])
+        raw = (values[:, :len(regs)], values[:, -1])      # untransformed, for Fama-MacBeth
+    else:
+        scales = np.maximum(hi[:k], -lo[:k])
+        raw = None
     note = spacing_note(pdata.periods)
     if note:
         info.notes.append(note)
@@ -364,7 +397,7 @@ def fit_panel(data, response: str, regressors=None, entity: str | None = None,
     terms = ([INTERCEPT] if intercept else []) + regs
     fit = PanelFit(X=X, y=y, terms=terms, index=pdata.index, response=response,
                    sample=sample_info, panel=info, raw=raw, table=pdata.table,
-                   horizon=pdata.horizon)
+                   horizon=pdata.horizon, scales=scales)
     if eff and k:
         fit.sample.notes.append(describe_effects(eff, absorbed, comps, iters, info.balanced))
     return fit

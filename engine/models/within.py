@@ -31,23 +31,50 @@ def _components(e_codes, t_codes, g, t) -> int:
     return int(connected_components(graph, directed=False)[0])
 
 
-def within(values, e_codes, t_codes, g, t, effects):
+def within(values, e_codes, t_codes, g, t, effects, grid=None):
     """The within transformation of every column; returns (transformed, absorbed df,
-    components, sweeps of alternating projections)."""
+    components, sweeps of alternating projections). Column by column into one column-major
+    result; `grid` = (entities, periods) when the rows are a balanced panel in (entity, period)
+    order, where each column reshapes to that grid and group means are row or column means."""
     if not effects:
         return values, 0, 1, 0
+    if len(effects) == 2:
+        comps = _components(e_codes, t_codes, g, t)
+        absorbed = g + t - comps
+    else:
+        comps, absorbed = 1, (g if effects == ("entity",) else t)
+    if grid is None and len(effects) == 2 and values.shape[0] != g * t:
+        return _alternating_projections(values, e_codes, t_codes, g, t, absorbed, comps)
+    out = np.empty(values.shape, order="F")
+    if grid is not None:
+        for j in range(values.shape[1]):
+            v, w = values[:, j].reshape(grid), out[:, j].reshape(grid)
+            if "entity" in effects:
+                np.subtract(v, v.mean(axis=1, keepdims=True), out=w)
+                if "time" in effects:
+                    w -= w.mean(axis=0, keepdims=True)
+            else:
+                np.subtract(v, v.mean(axis=0, keepdims=True), out=w)
+        return out, absorbed, comps, 0
     ce = np.bincount(e_codes, minlength=g).astype(float)
     ct = np.bincount(t_codes, minlength=t).astype(float)
-    if effects == ("entity",):
-        return values - _group_means(values, e_codes, g, ce)[e_codes], g, 1, 0
-    if effects == ("time",):
-        return values - _group_means(values, t_codes, t, ct)[t_codes], t, 1, 0
-    comps = _components(e_codes, t_codes, g, t)
-    absorbed = g + t - comps
-    if values.shape[0] == g * t:                          # balanced: closed form
-        out = values - _group_means(values, e_codes, g, ce)[e_codes]
-        out -= _group_means(out, t_codes, t, ct)[t_codes]
-        return out, absorbed, comps, 0
+    for j in range(values.shape[1]):
+        col = out[:, j]
+        if "entity" in effects:
+            means = np.bincount(e_codes, weights=values[:, j], minlength=g) / ce
+            np.subtract(values[:, j], means[e_codes], out=col)
+            if "time" in effects:                          # balanced: closed form
+                col -= (np.bincount(t_codes, weights=col, minlength=t) / ct)[t_codes]
+        else:
+            means = np.bincount(t_codes, weights=values[:, j], minlength=t) / ct
+            np.subtract(values[:, j], means[t_codes], out=col)
+    return out, absorbed, comps, 0
+
+
+def _alternating_projections(values, e_codes, t_codes, g, t, absorbed, comps):
+    """Demeaning by entity and period on an unbalanced panel (alternating projections)."""
+    ce = np.bincount(e_codes, minlength=g).astype(float)
+    ct = np.bincount(t_codes, minlength=t).astype(float)
     out = values - _group_means(values, e_codes, g, ce)[e_codes]
     scale = np.maximum(np.abs(values).max(axis=0), np.finfo(float).tiny)
     for it in range(1, PROJECTION_MAX_ITER + 1):
@@ -57,7 +84,7 @@ def within(values, e_codes, t_codes, g, t, effects):
         out -= step_e[e_codes]
         if np.all(np.abs(step).max(axis=0) <= PROJECTION_TOL * scale) and \
                 np.all(np.abs(step_e).max(axis=0) <= PROJECTION_TOL * scale):
-            return out, absorbed, comps, it
+            return np.asfortranarray(out), absorbed, comps, it
     raise EstimationError(f"demeaning by entity and period did not converge in "
                           f"{PROJECTION_MAX_ITER} sweeps of alternating projections (the panel "
                           "is very unbalanced or weakly connected); use one set of effects")
