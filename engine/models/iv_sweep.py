@@ -7,6 +7,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import stats
 
+from ..blas import single_blas_thread
 from ..covariance import longrun
 from ..covariance.kernels import get_kernel
 from ..covariance.registry import ModelInfo, estimator as make_estimator
@@ -94,6 +95,7 @@ def with_j(fit, sweep):
     return sweep
 
 
+@single_blas_thread
 def gmm_curves(fit, estimators, values=None):
     """Two-step GMM along the axis of one family for each estimator: the family's vectorised
     GMM sweep when it has one, else one two-step fit per grid point (one estimator)."""

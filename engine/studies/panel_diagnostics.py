@@ -8,6 +8,7 @@ import pandas as pd
 from scipy import stats
 from statsmodels.tsa.stattools import acf
 
+from ..blas import single_blas_thread
 from ..covariance.bandwidth import select_bandwidth
 from ..data.columns import INTERCEPT
 from ..errors import EstimationError
@@ -102,6 +103,7 @@ def wooldridge_serial(fit):
     return f, 1, groups - 1, float(stats.f.sf(f, 1, groups - 1)), rho
 
 
+@single_blas_thread
 def diagnose_panel(fit, progress=None):
     """Residual diagnostics for a panel: what the panel estimators correct for.
 

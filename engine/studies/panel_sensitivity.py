@@ -5,12 +5,14 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..blas import single_blas_thread
 from ..covariance.kernels import KERNELS
 from ..covariance.registry import estimator
 from ..errors import EstimationError, SpecificationError
 from ..inference.sweep import SweepResult, sweep
 
 
+@single_blas_thread
 def panel_sweep(model, kernels=None, values=None, small_sample: bool = False,
                 repair: bool = True, fama_macbeth: bool = True):
     """The panel sensitivity sweep: Driscoll-Kraay with each kernel along the bandwidth b (in
