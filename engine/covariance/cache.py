@@ -35,6 +35,10 @@ DIRECT_LAG_WORK = 90
 DIRECT_LAG_WORK_LARGE = 50
 CACHE_RESIDENT_BYTES = 16_000_000
 
+#: Up to this many bandwidths at once the Quadratic Spectral far lags are weighted directly
+#: (`_qs_far_weights`); more share one prepared tail (`_qs_prepare`, `_qs_far`).
+FEW_BANDWIDTHS = 2
+
 #: The prepared tail used by the fast Quadratic Spectral sums is cached only below this many
 #: numbers (160 MB); beyond, it is rebuilt per call in column chunks or skipped for one bandwidth.
 FAR_CACHE_LIMIT = 20_000_000
@@ -54,6 +58,7 @@ class MomentCache:
             else np.triu_indices(self.k)
         self._packed: np.ndarray | None = None   # pair-major (P, n_lags)
         self._far: dict = {}                     # prepared tails for infinite-support kernels
+        self._powers: dict = {}                  # 1/j^3 and 1/j^2 of the far lags, by start
 
     # ------------------------------------------------------------------ filling
     def own_nbytes(self, seen=None) -> int:
@@ -61,7 +66,8 @@ class MomentCache:
         the model and is counted there)."""
         seen = set() if seen is None else seen
         seen.add(id(self.series))
-        return nbytes_of(self._packed, seen) + nbytes_of(self._far, seen)
+        return (nbytes_of(self._packed, seen) + nbytes_of(self._far, seen)
+                + nbytes_of(self._powers, seen))
 
     @property
     def nbytes(self) -> int:
@@ -80,6 +86,7 @@ class MomentCache:
         if self.diagonal_only:
             self._packed = _autocov_diagonal(self.series, max_lag)
             self._far.clear()
+            self._powers.clear()
             return
         if 8 * (max_lag + 1) < self.nobs:
             resident = self.series.nbytes <= CACHE_RESIDENT_BYTES
@@ -98,6 +105,7 @@ class MomentCache:
             pair_major = _autocov_all_pairs(self.series, self._iu)
         self._packed = pair_major                 # (P, n_lags): lag j of pair p at [p, j]
         self._far.clear()
+        self._powers.clear()
 
     def packed(self, max_lag: int) -> np.ndarray:
         """C_0..C_L with upper triangles packed: shape (L+1, k(k+1)/2) (a transposed view)."""
@@ -115,9 +123,8 @@ class MomentCache:
             n_lags = int(kernel.lags_many(b, self.nobs).max()) + 1
             return kernel.weights(b, n_lags) @ self.packed(n_lags - 1)
         c = self.packed(self.nobs - 1)
-        small_tail = 2 * c.shape[0] * c.shape[1] <= FAR_CACHE_LIMIT
         fast = ALL_LAG_SUMS.get(kernel.name)
-        if fast is None or self.nobs <= 4096 or (len(b) <= 2 and not small_tail):
+        if fast is None or self.nobs <= 4096:
             # direct weights, a bounded number of bandwidths at a time
             step = max(1, int(4e6 // self.nobs))
             return np.vstack([kernel.weights(b[i: i + step], self.nobs) @ c
@@ -265,7 +272,7 @@ def _qs_sums(cache: "MomentCache", b: np.ndarray, c: np.ndarray) -> np.ndarray:
     qs = get_kernel("quadratic_spectral")
     theta = 6.0 * np.pi / (5.0 * b)
     need = int(np.ceil(1.0 / theta.min())) + 1
-    reusable = [j for j in cache._far if need <= j <= 4 * need]      # any start past z = 1
+    reusable = [j for j in (*cache._far, *cache._powers) if need <= j <= 4 * need]  # past z = 1
     j0 = min(reusable) if reusable else min(cache.nobs, 1 << max(need - 1, 1).bit_length())
     near = qs.weights(b, j0) @ c[:j0]
     if j0 >= cache.nobs:
@@ -273,6 +280,8 @@ def _qs_sums(cache: "MomentCache", b: np.ndarray, c: np.ndarray) -> np.ndarray:
     n_far = cache.nobs - j0
     block = int(min(1024, max(64, 2 ** round(np.log2(np.sqrt(n_far))))))
     n_blk = -(-n_far // block)
+    if len(b) <= FEW_BANDWIDTHS:
+        return near + _qs_far_weights(cache, theta, j0, block, n_blk, c)
     rows = c.T                                    # (P, T): each pair's lags, contiguous
     p_all = rows.shape[0]
     cacheable = 2 * n_far * p_all <= FAR_CACHE_LIMIT
@@ -287,6 +296,37 @@ def _qs_sums(cache: "MomentCache", b: np.ndarray, c: np.ndarray) -> np.ndarray:
             cache._far[j0] = prepared
         out[:, start:stop] = _qs_far(theta, j0, block, n_blk, prepared, stop - start)
     return near + out
+
+
+def _qs_far_weights(cache, theta, j0, block, n_blk, c):
+    """The far-lag sums for a few bandwidths: the weights k(j theta) of lags j0..T-1 from the
+    same factorisation (cos and sin of j theta from outer products of M + (T - j0)/M values,
+    times cached 1/j^3 and 1/j^2), then one pass over the cached lags per bandwidth. Half the
+    memory traffic of the prepared tail, which pays off only for many bandwidths at once."""
+    n_far = cache.nobs - j0
+    if j0 not in cache._powers:
+        j = np.arange(j0, j0 + n_blk * block, dtype=float)
+        inv2 = 1.0 / j**2
+        cache._powers[j0] = (inv2 / j, inv2)
+    inv3, inv2 = cache._powers[j0]
+    r = np.arange(block, dtype=float)
+    a = j0 + block * np.arange(n_blk, dtype=float)
+    tail = c[j0:]
+    out = np.empty((len(theta), c.shape[1]))
+    for i, th in enumerate(theta):
+        cr, sr, ca, sa = np.cos(r * th), np.sin(r * th), np.cos(a * th), np.sin(a * th)
+        sin_j = np.multiply.outer(sa, cr)                  # sin((a + r) theta)
+        sin_j += np.multiply.outer(ca, sr)
+        cos_j = np.multiply.outer(ca, cr)                  # cos((a + r) theta)
+        cos_j -= np.multiply.outer(sa, sr)
+        w = sin_j.reshape(-1)
+        w *= inv3
+        w *= 3.0 / th**3
+        cos_j = cos_j.reshape(-1)
+        cos_j *= inv2
+        w -= (3.0 / th**2) * cos_j
+        out[i] = w[:n_far] @ tail
+    return out
 
 
 def _qs_prepare(rows: np.ndarray, j0: int, block: int, n_blk: int) -> np.ndarray:

@@ -19,15 +19,18 @@ import time
 import numpy as np
 
 
-def interleaved(cases: dict, rounds: int, warmup: int = 1) -> dict:
+def interleaved(cases: dict, rounds: int, warmup: int = 1, gap: float = 0.0) -> dict:
     """Seconds per call of each case (name -> callable), measured in turn within every round,
-    after `warmup` untimed rounds. Returns {name: [seconds per round]}."""
+    after `warmup` untimed rounds; with `gap`, the process sleeps that many seconds before each
+    timed call (as a server idles between key presses). Returns {name: [seconds per round]}."""
     for _ in range(warmup):
         for fn in cases.values():
             fn()
     times = {name: [] for name in cases}
     for _ in range(rounds):
         for name, fn in cases.items():
+            if gap:
+                time.sleep(gap)
             t0 = time.perf_counter()
             fn()
             times[name].append(time.perf_counter() - t0)
