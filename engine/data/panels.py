@@ -127,12 +127,33 @@ def _plain_integers(series: pd.Series) -> bool:
     return isinstance(series.dtype, np.dtype) and series.dtype.kind in "iu"
 
 
+def _integer_codes(ids: np.ndarray):
+    """Codes of integer labels in sorted order: by offset from the smallest when the labels
+    span a range not much wider than the rows (ids numbered 1..G, years), by hashing
+    otherwise."""
+    if ids.size == 0:
+        return np.zeros(0, dtype=np.int64), ids
+    low, high = int(ids.min()), int(ids.max())
+    span = high - low + 1
+    if span > 2 * ids.size + 1024:
+        codes, uniques = pd.factorize(ids, sort=True)
+        return codes.astype(np.int64, copy=False), uniques
+    shifted = ids.astype(np.int64)
+    shifted -= low
+    present = np.zeros(span, dtype=bool)
+    present[shifted] = True
+    if present.all():
+        return shifted, np.arange(low, high + 1)
+    rank = np.cumsum(present) - 1
+    return rank[shifted], np.flatnonzero(present) + low
+
+
 def _codes(labels, idx, n_rows):
     """Sorted-label codes of the rows kept: (codes as int64, labels as an Index)."""
     if isinstance(labels, np.ndarray):                    # plain integers
         kept = labels if idx is None else labels[idx]
-        codes, uniques = pd.factorize(kept, sort=True)
-        return codes.astype(np.int64, copy=False), pd.Index(pd.array(uniques, dtype="Int64"))
+        codes, uniques = _integer_codes(kept)
+        return codes, pd.Index(pd.array(uniques, dtype="Int64"))
     kept = labels if idx is None else labels.iloc[idx]
     codes, uniques = pd.factorize(kept, sort=True)
     return codes.astype(np.int64, copy=False), uniques

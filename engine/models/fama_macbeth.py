@@ -127,14 +127,18 @@ def fama_macbeth_from_rows(X, y, t_codes, periods, terms, response, sample, pane
     if cand.size:
         ds = d[cand]
         scaled = xtx[cand] / (ds[:, :, None] * ds[:, None, :])
-        good = np.zeros(cand.size, dtype=bool)
-        chol = np.zeros_like(scaled)
-        for i in range(cand.size):
-            try:
-                chol[i] = np.linalg.cholesky(scaled[i])
-                good[i] = True
-            except np.linalg.LinAlgError:
-                continue
+        try:                                   # all periods at once; one by one if any fails
+            chol = np.linalg.cholesky(scaled)
+            good = np.ones(cand.size, dtype=bool)
+        except np.linalg.LinAlgError:
+            good = np.zeros(cand.size, dtype=bool)
+            chol = np.zeros_like(scaled)
+            for i in range(cand.size):
+                try:
+                    chol[i] = np.linalg.cholesky(scaled[i])
+                    good[i] = True
+                except np.linalg.LinAlgError:
+                    continue
         if good.any():
             cond = np.full(cand.size, np.inf)
             cond[good] = np.linalg.cond(chol[good])

@@ -355,16 +355,12 @@ def fit_panel(data, response: str, regressors=None, entity: str | None = None,
     info = PanelInfo(entity=entity, time=time, entities=pdata.entities, periods=pdata.periods,
                      entity_codes=pdata.entity_codes, time_codes=pdata.time_codes, effects=eff,
                      entity_major=pdata.entity_major)
-    transformed, absorbed, comps, iters = within(values, pdata.entity_codes, pdata.time_codes,
-                                                 g, t, eff, grid=info.grid)
+    res = within(values, pdata.entity_codes, pdata.time_codes, g, t, eff, grid=info.grid)
+    transformed, absorbed, comps, iters = res.values, res.absorbed, res.components, res.iterations
     info.absorbed, info.components, info.iterations = absorbed, comps, iters
     if eff:
-        before = np.empty(values.shape[1])
-        after = np.empty(values.shape[1])
-        for j in range(values.shape[1]):            # column by column: no block temporaries
-            c = values[:, j] - values[:, j].mean()
-            before[j] = np.sqrt(c @ c)
-            after[j] = np.sqrt(transformed[:, j] @ transformed[:, j])
+        after = np.sqrt(res.squares)
+        before = np.sqrt(res.squares + res.between)       # total = within + between
         gone = [j for j in range(len(regs)) if after[j] <= ABSORBED_TOL * max(before[j], 1e-300)]
         if gone:
             what = {("entity",): "within entities", ("time",): "within periods"}.get(
@@ -384,7 +380,7 @@ def fit_panel(data, response: str, regressors=None, entity: str | None = None,
     X = transformed[:, :k]                    # views of the column-major block
     y = transformed[:, k]
     if eff:
-        scales = np.array([max(-X[:, j].min(), X[:, j].max()) for j in range(k)])
+        scales = np.maximum(res.hi[:k], -res.lo[:k])
         raw = (values[:, :len(regs)], values[:, -1])      # untransformed, for Fama-MacBeth
     else:
         scales = np.maximum(hi[:k], -lo[:k])
