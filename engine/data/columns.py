@@ -126,11 +126,14 @@ def numeric_block(frame, cols, non_numeric, sample, what="column", ones: bool = 
     matrix can be a view of it), with a leading column of ones when `ones`; lo and hi are each
     column's minimum and maximum over the rows kept, taken while the column is in cache (they
     also show whether any value is missing or infinite, so clean data is not scanned again)."""
+    series = {}
     for col in cols:
-        if col not in non_numeric and col in frame.columns and (
-                not pd.api.types.is_numeric_dtype(frame[col])
-                or pd.api.types.is_bool_dtype(frame[col])):
-            nonnull = frame[col].dropna()
+        if col in frame.columns:
+            series[col] = frame[col]
+        if col not in non_numeric and col in series and (
+                not pd.api.types.is_numeric_dtype(series[col])
+                or pd.api.types.is_bool_dtype(series[col])):
+            nonnull = series[col].dropna()
             non_numeric = {**non_numeric, col: nonnull.iloc[0] if len(nonnull) else None}
         if col in non_numeric:
             example = non_numeric[col]
@@ -155,7 +158,7 @@ def numeric_block(frame, cols, non_numeric, sample, what="column", ones: bool = 
         info.dropped_window = available - len(index)
     lead = int(ones)
     n = len(index)
-    values, lo, hi = column_block([frame[col] if window is None else frame[col].iloc[window]
+    values, lo, hi = column_block([series[col] if window is None else series[col].iloc[window]
                                    for col in cols], ones=ones)
     if not n or np.isfinite(lo).all() and np.isfinite(hi).all():
         return values, index, info, (lo, hi)
