@@ -33,6 +33,10 @@ CHOLESKY_QR_MAX_CONDITION = 1e7
 ONE_PASS_MAX_CONDITION = 1e3
 
 
+#: Rows per chunk of the refinement pass (X beta and X'r while the chunk is in cache).
+REFINE_CHUNK = 16384
+
+
 class OLSFit(MomentModel):
     """A fitted linear regression y = X beta + e and everything estimators need from it.
 
@@ -45,7 +49,7 @@ class OLSFit(MomentModel):
     kind = "least squares"
 
     def __init__(self, *, X, y, terms, index, response, sample, horizon=None, table=None,
-                 scales=None):
+                 scales=None, xy=None):
         self._init_model()
         self.X = X
         self.y = y
@@ -57,7 +61,7 @@ class OLSFit(MomentModel):
         self.table = table
         self.nobs, self.k = X.shape
         self.one_period = None            # the one-period series behind an overlapping response
-        self._solve(scales)
+        self._solve(scales, xy)
 
     @property
     def capabilities(self) -> Capabilities:
@@ -70,16 +74,21 @@ class OLSFit(MomentModel):
         return residuals_vanish(self.resid, self.y)
 
     @single_blas_thread
-    def _solve(self, scales=None):
+    def _solve(self, scales=None, xy=None):
         """Coefficients, fitted values and residuals. `scales`: each column's largest absolute
-        value, when the caller has it already (otherwise one pass over X finds it)."""
+        value, when the caller has it already (otherwise one pass over X finds it). `xy`: X and
+        y side by side in one block (y last), when the caller holds them so: one product then
+        gives X'X and X'y."""
         X, y = self.X, self.y
+        gram = xy.T @ xy if xy is not None else None
         # scale columns by their largest absolute value (never underflows, unlike a 2-norm)
         if scales is None:
             lo, hi = column_ranges(X)
             scales = np.maximum(hi, -lo)
         norms = np.asarray(scales, dtype=float)
-        factor = cholesky_qr2(X, norms, form_q=False) if norms.min() > 0 else None
+        factor = (cholesky_qr2(X, norms, form_q=False,
+                               xtx=None if gram is None else gram[:self.k, :self.k])
+                  if norms.min() > 0 else None)
         if factor is None:
             q, r, piv = sla.qr(X / norms, mode="economic", pivoting=True, check_finite=False,
                                overwrite_a=True)
@@ -104,8 +113,14 @@ class OLSFit(MomentModel):
             out[piv] = rinv @ qtv / norms[piv]
             return out
 
+        def seminormal(xtv):
+            return rinv @ (rinv.T @ (xtv / norms)) / norms
+
         with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-            beta = solve(y)
+            if q is None and gram is not None:
+                beta = seminormal(gram[:self.k, self.k])
+            else:
+                beta = solve(y)
         if not np.isfinite(beta).all():
             bad = [self.terms[i] for i in np.flatnonzero(~np.isfinite(beta))]
             raise SpecificationError(
@@ -114,8 +129,18 @@ class OLSFit(MomentModel):
                 "thousands or percent) and fit again")
         # one step of iterative refinement on the residual system
         with np.errstate(over="ignore", invalid="ignore"):
-            fitted = X @ beta
-            step = solve(y - fitted)
+            if q is None:
+                # X beta and X'(y - X beta) in one pass over X, a cache-sized chunk at a time
+                fitted = np.empty(self.nobs)
+                xtr = np.zeros(self.k)
+                for start in range(0, self.nobs, REFINE_CHUNK):
+                    rows = slice(start, start + REFINE_CHUNK)
+                    part = np.matmul(X[rows], beta, out=fitted[rows])
+                    xtr += X[rows].T @ (y[rows] - part)
+                step = seminormal(xtr)
+            else:
+                fitted = X @ beta
+                step = solve(y - fitted)
         if np.isfinite(step).all():
             beta += step
             fitted = X @ beta
@@ -196,7 +221,7 @@ class OLSFit(MomentModel):
                 f"R2={self.r_squared:.4f})")
 
 
-def cholesky_qr2(x: np.ndarray, norms: np.ndarray, form_q: bool = True):
+def cholesky_qr2(x: np.ndarray, norms: np.ndarray, form_q: bool = True, xtx=None):
     """Cholesky QR of a well-conditioned matrix with its columns scaled by 1/norms, without
     forming the scaled copy: (Q, R, R^-1) with X D^-1 = QR to rounding, or None
     when the matrix is too ill-conditioned for it (the caller then uses pivoted Householder QR).
@@ -207,10 +232,12 @@ def cholesky_qr2(x: np.ndarray, norms: np.ndarray, form_q: bool = True):
     coefficients absorbs. Otherwise a second pass (CholeskyQR2), backward stable with Q
     orthonormal to rounding for condition numbers well below 1e8 (Yamamoto et al. 2015, ETNA
     44); the threshold used is `CHOLESKY_QR_MAX_CONDITION`. With `form_q` False, Q is returned
-    as None when one pass suffices (the caller forms X D^-1 R^-1 when it needs it)."""
+    as None when one pass suffices (the caller forms X D^-1 R^-1 when it needs it). `xtx`:
+    X'X when the caller has it."""
     k = x.shape[1]
     try:
-        r1 = sla.cholesky((x.T @ x) / np.outer(norms, norms), lower=False, check_finite=False)
+        r1 = sla.cholesky((x.T @ x if xtx is None else xtx) / np.outer(norms, norms),
+                          lower=False, check_finite=False)
     except (np.linalg.LinAlgError, ValueError):
         return None
     d = np.abs(np.diag(r1))
@@ -316,7 +343,8 @@ def fit_ols(data, response: str, regressors=None, intercept: bool = True,
     if horizon is None:
         horizon = horizons.get(response)
     fit = OLSFit(X=X, y=y, terms=terms, index=index, response=response, sample=info,
-                 horizon=horizon, table=table, scales=np.maximum(hi[:k], -lo[:k]))
+                 horizon=horizon, table=table, scales=np.maximum(hi[:k], -lo[:k]),
+                 xy=values[:, :k + 1])
     fit.one_period = one_period_source(table, frame, response, horizon, one_period)
     return fit
 

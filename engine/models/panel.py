@@ -64,11 +64,11 @@ class PanelFit(OLSFit):
     kernel_family = "driscoll_kraay"
 
     def __init__(self, *, X, y, terms, index, response, sample, panel: PanelInfo,
-                 raw=None, table=None, horizon=None, scales=None):
+                 raw=None, table=None, horizon=None, scales=None, xy=None):
         self.panel = panel
         self._raw = raw                    # untransformed (regressors, y) for Fama-MacBeth
         super().__init__(X=X, y=y, terms=terms, index=index, response=response, sample=sample,
-                         horizon=horizon, table=table, scales=scales)
+                         horizon=horizon, table=table, scales=scales, xy=xy)
 
     def _has_leverage(self) -> bool:
         p = self.panel
@@ -393,7 +393,7 @@ def fit_panel(data, response: str, regressors=None, entity: str | None = None,
     terms = ([INTERCEPT] if intercept else []) + regs
     fit = PanelFit(X=X, y=y, terms=terms, index=pdata.index, response=response,
                    sample=sample_info, panel=info, raw=raw, table=pdata.table,
-                   horizon=pdata.horizon, scales=scales)
+                   horizon=pdata.horizon, scales=scales, xy=transformed[:, :k + 1])
     if eff and k:
         fit.sample.notes.append(describe_effects(eff, absorbed, comps, iters, info.balanced))
     return fit
