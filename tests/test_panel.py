@@ -311,3 +311,35 @@ def test_panel_diagnostics_and_sweep_on_the_demo():
         np.testing.assert_allclose(sw.estimate[-1, i], fm.beta, rtol=1e-12)
         dk = f.infer(lagwise.estimator("driscoll_kraay", kernel="parzen", bandwidth=b))
         np.testing.assert_allclose(sw.std_error[1, i], dk.table.std_error, rtol=1e-10)
+
+
+def test_fama_macbeth_slopes_equal_per_period_least_squares_in_any_row_order():
+    """The per-period slopes from all periods' cross-products at once (semi-normal equations
+    with a refinement step) equal numpy's least squares period by period, whether the rows are
+    a balanced grid in (entity, period) order, shuffled, or unbalanced; a nearly collinear
+    period goes through QR, a period with too few rows is skipped."""
+    frame = panel_frame(seed=11, entities=30, periods=12)
+    near = frame.month == 3                      # nearly collinear regressors in one period
+    frame.loc[near, "x2"] = frame.loc[near, "x1"] * 2.0 + 1e-6 * np.arange(near.sum())
+    few = frame[(frame.month != 5) | (frame.firm < 102)]      # two rows in period 5
+    for data in (frame, frame.sample(frac=1.0, random_state=1), few,
+                 few.sample(frac=1.0, random_state=2)):
+        fm = lagwise.fit_fama_macbeth(data, "y", ["x1", "x2"], entity="firm", time="month")
+        for month, group in data.groupby("month"):
+            X = np.column_stack([np.ones(len(group)), group[["x1", "x2"]].to_numpy()])
+            if len(group) < 3:
+                assert month not in fm.slopes.index
+                continue
+            expected = np.linalg.lstsq(X, group.y.to_numpy(), rcond=None)[0]
+            np.testing.assert_allclose(fm.slopes.loc[month].to_numpy(), expected,
+                                       rtol=1e-7 if month == 3 else 1e-10)
+
+
+def test_duplicate_rows_are_found_in_any_row_order():
+    frame = panel_frame(seed=5, entities=10, periods=8)
+    dup = pd.concat([frame, frame.iloc[[5]]], ignore_index=True).sample(frac=1.0,
+                                                                         random_state=3)
+    second = int(np.flatnonzero((dup.firm == 100).to_numpy() & (dup.month == 6).to_numpy())[1])
+    with pytest.raises(lagwise.DataError, match=f"entity 100 has two rows for period 6 "
+                                                f"\\(second at row {second + 1}\\)"):
+        fit(dup)

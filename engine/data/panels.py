@@ -10,7 +10,8 @@ import numpy as np
 import pandas as pd
 
 from ..errors import DataError, SpecificationError
-from .columns import INTERCEPT, SampleInfo, check_magnitudes, column_ranges, index_label
+from .columns import (INTERCEPT, SampleInfo, check_magnitudes, column_block, column_ranges,
+                      index_label, take_rows)
 from .dates import parse_dates
 from .table import Table, example_value
 
@@ -104,7 +105,9 @@ def columns_of(data, names):
 
 @dataclass
 class PanelData:
-    """Validated panel columns: values (N x (k + 1), regressors then response), ids, labels."""
+    """Validated panel columns: values (N x (k + 1), regressors then response, column-major; a
+    leading column of ones when asked for), ids, labels, each column's range, and whether the
+    rows are in (entity, period) order."""
 
     values: np.ndarray
     entity_codes: np.ndarray
@@ -115,6 +118,46 @@ class PanelData:
     sample: SampleInfo
     table: object
     horizon: int | None
+    lo: np.ndarray = None
+    hi: np.ndarray = None
+    entity_major: bool = False       # rows sorted by entity, then period (no duplicates)
+
+
+def _plain_integers(series: pd.Series) -> bool:
+    """Whole numbers in a numpy integer column: no missing values, no fractions to check."""
+    return isinstance(series.dtype, np.dtype) and series.dtype.kind in "iu"
+
+
+def _integer_codes(ids: np.ndarray):
+    """Codes of integer labels in sorted order: by offset from the smallest when the labels
+    span a range not much wider than the rows (ids numbered 1..G, years), by hashing
+    otherwise."""
+    if ids.size == 0:
+        return np.zeros(0, dtype=np.int64), ids
+    low, high = int(ids.min()), int(ids.max())
+    span = high - low + 1
+    if span > 2 * ids.size + 1024:
+        codes, uniques = pd.factorize(ids, sort=True)
+        return codes.astype(np.int64, copy=False), uniques
+    shifted = ids.astype(np.int64)
+    shifted -= low
+    present = np.zeros(span, dtype=bool)
+    present[shifted] = True
+    if present.all():
+        return shifted, np.arange(low, high + 1)
+    rank = np.cumsum(present) - 1
+    return rank[shifted], np.flatnonzero(present) + low
+
+
+def _codes(labels, idx, n_rows):
+    """Sorted-label codes of the rows kept: (codes as int64, labels as an Index)."""
+    if isinstance(labels, np.ndarray):                    # plain integers
+        kept = labels if idx is None else labels[idx]
+        codes, uniques = _integer_codes(kept)
+        return codes, pd.Index(pd.array(uniques, dtype="Int64"))
+    kept = labels if idx is None else labels.iloc[idx]
+    codes, uniques = pd.factorize(kept, sort=True)
+    return codes.astype(np.int64, copy=False), uniques
 
 
 def check_names(response, regs, entity, time, intercept=True):
@@ -142,7 +185,11 @@ def check_names(response, regs, entity, time, intercept=True):
                                  "that column")
 
 
-def panel_data(data, response, regs, entity, time, sample=None) -> PanelData:
+def panel_data(data, response, regs, entity, time, sample=None, ones: bool = False) -> PanelData:
+    """The validated panel: one factorisation of each label column, the values as one
+    column-major block (ranges taken while each column is in cache), rows with a missing value
+    or label dropped and counted, and one duplicate check (none at all when the rows are already
+    in (entity, period) order, the usual layout of a panel file)."""
     frame, get, non_numeric, table = columns_of(data, [response, *regs, entity, time])
     cols = [*regs, response]
     for col in cols:
@@ -169,52 +216,79 @@ def panel_data(data, response, regs, entity, time, sample=None) -> PanelData:
                                      + (f" and {', '.join(map(str, table.labels.columns))}"
                                         if table is not None and table.labels is not None
                                         and len(table.labels.columns) else ""))
-        raw[what] = id_values(s, col, "entity") if what == "entity" else time_values(s, col)
+        if _plain_integers(s):
+            raw[what] = s.to_numpy()
+        else:
+            raw[what] = (id_values(s, col, "entity") if what == "entity"
+                         else time_values(s, col)).reset_index(drop=True)
     rows = len(frame)
-    values = np.empty((rows, len(cols)))
-    for j, col in enumerate(cols):
-        values[:, j] = get(col).to_numpy(dtype=float, na_value=np.nan)
-    ent, tim = raw["entity"].reset_index(drop=True), raw["time"].reset_index(drop=True)
+    lead = int(ones)
+    values, lo, hi = column_block([get(col).to_numpy(dtype=float, na_value=np.nan)
+                                   for col in cols], ones=ones)
+    ent, tim = raw["entity"], raw["time"]
     info = SampleInfo(rows_available=rows, rows_used=0)
-    keep = np.ones(rows, dtype=bool)
+    keep = None
     if sample is not None:
         try:
             start, end = sample
-            tv = tim
-            lo = tv >= _same_kind(start, tv) if start is not None else True
-            hi = tv <= _same_kind(end, tv) if end is not None else True
-            window = np.asarray(pd.Series(lo & hi).fillna(False), dtype=bool)
+            tv = pd.Series(tim) if isinstance(tim, np.ndarray) else tim
+            lo_ok = tv >= _same_kind(start, tv) if start is not None else True
+            hi_ok = tv <= _same_kind(end, tv) if end is not None else True
+            window = np.asarray(pd.Series(lo_ok & hi_ok).fillna(False), dtype=bool)
         except (TypeError, ValueError) as exc:
             raise SpecificationError(f"sample window {sample!r} does not match the time column "
                                      f"'{time}': {exc}") from None
         info.dropped_window = int((~window).sum())
-        keep &= window
-    finite = np.isfinite(values)
-    inf = ~finite & ~np.isnan(values)
-    if inf.any():
-        j = int(np.flatnonzero(inf.any(axis=0))[0])
-        raise DataError(f"column '{cols[j]}' contains infinite values")
-    for j, col in enumerate(cols):
-        if np.isnan(values[keep, j]).all():
-            raise DataError(f"column '{col}' has no values (every cell is missing"
-                            + (" in the sample window)" if sample else ")"))
-    ok_ids = ent.notna().to_numpy() & tim.notna().to_numpy()
-    missing_ids = int((keep & ~ok_ids).sum())
-    keep_vals = keep & finite.all(axis=1)
-    info.dropped_missing = int((keep & ok_ids & ~finite.all(axis=1)).sum())
-    keep = keep_vals & ok_ids
+        keep = window
+    clean = np.isfinite(lo).all() and np.isfinite(hi).all()
+    bad_values = None
+    if not clean:
+        suspect = [j for j in range(values.shape[1])
+                   if not (np.isfinite(lo[j]) and np.isfinite(hi[j]))]
+        for j in suspect:
+            if np.isinf(values[:, j]).any():
+                raise DataError(f"column '{cols[j - lead]}' contains infinite values")
+        nan = {j: np.isnan(values[:, j]) for j in suspect}
+        for j in suspect:
+            if (nan[j] if keep is None else nan[j][keep]).all():
+                raise DataError(f"column '{cols[j - lead]}' has no values (every cell is missing"
+                                + (" in the sample window)" if sample else ")"))
+        bad_values = np.zeros(rows, dtype=bool)
+        for j in suspect:
+            bad_values |= nan[j]
+    ok_ids = None
+    for labels in (ent, tim):
+        if not isinstance(labels, np.ndarray):
+            present = labels.notna().to_numpy()
+            ok_ids = present if ok_ids is None else ok_ids & present
+    in_window = np.ones(rows, dtype=bool) if keep is None else keep
+    missing_ids = 0 if ok_ids is None else int((in_window & ~ok_ids).sum())
+    if bad_values is not None:
+        info.dropped_missing = int((in_window & (True if ok_ids is None else ok_ids)
+                                    & bad_values).sum())
     if missing_ids:
         info.notes.append(f"{missing_ids} rows without an entity or time label dropped")
     if info.dropped_missing:
         info.notes.append(f"{info.dropped_missing} rows with missing values dropped")
-    idx = np.flatnonzero(keep)
-    if idx.size == 0:
+    idx = None
+    if keep is not None or bad_values is not None or missing_ids:
+        kept = in_window.copy()
+        if bad_values is not None:
+            kept &= ~bad_values
+        if ok_ids is not None:
+            kept &= ok_ids
+        idx = np.flatnonzero(kept)
+        if idx.size == 0:
+            raise DataError("no rows have every value of the model and both panel labels")
+        if idx.size < rows:
+            values = take_rows(values, idx)
+            lo, hi = column_ranges(values)
+        else:
+            idx = None
+    if rows == 0:
         raise DataError("no rows have every value of the model and both panel labels")
-    values = values[idx]
-    e_codes, entities = pd.factorize(ent.iloc[idx], sort=True)
-    t_codes, periods = pd.factorize(tim.iloc[idx], sort=True)
-    e_codes = e_codes.astype(np.int64)
-    t_codes = t_codes.astype(np.int64)
+    e_codes, entities = _codes(ent, idx, rows)
+    t_codes, periods = _codes(tim, idx, rows)
     if len(entities) < 2:
         raise SpecificationError(f"the panel has one entity only ('{entities[0]}' in column "
                                  f"'{entity}'): panel estimators need several; for one unit's "
@@ -223,23 +297,46 @@ def panel_data(data, response, regs, entity, time, sample=None) -> PanelData:
         raise SpecificationError(f"the panel has one period only ({index_label(periods[0])} in "
                                  f"column '{time}'): use a cross-sectional fit, or a time column "
                                  "with several periods")
-    key = e_codes * len(periods) + t_codes
-    order = np.argsort(key, kind="stable")
-    dup = np.flatnonzero(np.diff(key[order]) == 0)
-    if dup.size:
-        r = int(idx[order[dup[0] + 1]])
-        raise DataError(f"entity {index_label(entities[e_codes[order[dup[0]]]])!r} has two rows "
-                        f"for period {index_label(periods[t_codes[order[dup[0]]]])!s} (second "
-                        f"at row {r + 1}); a panel needs one row per entity and period. "
-                        "Aggregate or drop the duplicates.")
-    index = pd.MultiIndex.from_arrays([entities[e_codes], periods[t_codes]], names=[entity, time])
-    info.rows_used = int(idx.size)
+    entity_major = _check_duplicates(e_codes, t_codes, entities, periods, idx)
+    index = pd.MultiIndex(levels=[entities, periods], codes=[e_codes, t_codes],
+                          names=[entity, time], verify_integrity=False)
+    info.rows_used = int(len(e_codes))
     info.first, info.last = index_label(periods[0]), index_label(periods[-1])
     horizon = table.horizons.get(response) if table is not None else None
     return PanelData(values=values, entity_codes=e_codes, time_codes=t_codes,
                      entities=pd.Index(entities, name=entity), periods=pd.Index(periods,
                                                                                  name=time),
-                     index=index, sample=info, table=table, horizon=horizon)
+                     index=index, sample=info, table=table, horizon=horizon, lo=lo, hi=hi,
+                     entity_major=entity_major)
+
+
+def _check_duplicates(e_codes, t_codes, entities, periods, idx) -> bool:
+    """Refuse a second row for one entity and period (naming them and the row); True when the
+    rows are in (entity, period) order. Sorted rows need one comparison pass; otherwise the
+    cells are counted (a sort only for a very sparse entity x period grid)."""
+    n_p = len(periods)
+    key = e_codes * n_p + t_codes
+    if key.size < 2 or bool(np.all(key[1:] > key[:-1])):
+        return True
+    cells = len(entities) * n_p
+    if cells <= 4 * key.size + 1_000_000:
+        counts = np.bincount(key, minlength=cells)
+        if counts.max() <= 1:
+            return False
+        cell = int(np.flatnonzero(counts > 1)[0])
+        second = int(np.flatnonzero(key == cell)[1])
+        e, t = divmod(cell, n_p)
+    else:
+        order = np.argsort(key, kind="stable")
+        dup = np.flatnonzero(np.diff(key[order]) == 0)
+        if not dup.size:
+            return False
+        second = int(order[dup[0] + 1])
+        e, t = int(e_codes[second]), int(t_codes[second])
+    r = second if idx is None else int(idx[second])
+    raise DataError(f"entity {index_label(entities[e])!r} has two rows for period "
+                    f"{index_label(periods[t])!s} (second at row {r + 1}); a panel needs one row "
+                    "per entity and period. Aggregate or drop the duplicates.")
 
 
 def periods_of(data, time: str) -> pd.Index:
@@ -273,6 +370,15 @@ class PanelInfo:
     components: int = 1              # connected components of the entity-period graph
     iterations: int = 0              # alternating projections used (0: closed form)
     notes: list[str] = field(default_factory=list)
+    entity_major: bool = False       # rows sorted by entity, then period
+
+    @property
+    def grid(self) -> tuple | None:
+        """(entities, periods) when row r is entity r // periods in period r % periods (a
+        balanced panel in (entity, period) order), so a column reshapes to that grid."""
+        if self.entity_major and self.balanced:
+            return self.n_entities, self.n_periods
+        return None
 
     @property
     def n_entities(self) -> int:
@@ -298,6 +404,8 @@ class PanelInfo:
     @property
     def entities_with_gaps(self) -> int:
         """Entities whose rows skip a period between their first and last."""
+        if self.balanced:
+            return 0
         first = np.full(self.n_entities, np.iinfo(np.int64).max)
         last = np.full(self.n_entities, -1)
         np.minimum.at(first, self.entity_codes, self.time_codes)
@@ -332,12 +440,11 @@ def describe_effects(effects, absorbed, components, iterations, balanced) -> str
     return text
 
 
-def checked_panel(data, response, regs, entity, time, sample):
+def checked_panel(data, response, regs, entity, time, sample, ones: bool = False):
     """The validated panel block with its column ranges (magnitudes checked by column)."""
-    pdata = panel_data(data, response, regs, entity, time, sample)
-    values = pdata.values
-    lo, hi = column_ranges(values)
-    check_magnitudes([*regs, response], lo, hi, values)
+    pdata = panel_data(data, response, regs, entity, time, sample, ones=ones)
+    values, lo, hi = pdata.values, pdata.lo, pdata.hi
+    check_magnitudes([*regs, response], lo, hi, values, lead=int(ones))
     return pdata, values, lo, hi
 
 

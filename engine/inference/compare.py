@@ -9,6 +9,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from ..blas import single_blas_thread
 from ..covariance.registry import FAMILIES
 from ..errors import LagwiseError, LawUnavailable
 from ..laws.reference import row_suffix
@@ -26,6 +27,7 @@ def family_presets(model, kernel=None, bandwidth=None) -> list:
     return out
 
 
+@single_blas_thread
 def compare(model, level: float = 0.95, reference: str = "auto", kernel=None, bandwidth=None,
             estimators=None, progress=None) -> pd.DataFrame:
     """One row per (estimator setting, term): std_error, t_stat, p_value, interval, b, lags,

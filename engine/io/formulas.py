@@ -37,8 +37,7 @@ from formulaic.parser.types import ASTNode, Term
 from formulaic.utils.code import sanitize_variable_names
 from formulaic.utils.structured import Structured
 
-from ..data.columns import INTERCEPT
-from ..data.table import Table, as_table
+from ..data.table import Table
 from ..data.transforms import check_periods
 from ..errors import DataError, LagwiseError, SpecificationError
 from ..models.iv import fit_iv

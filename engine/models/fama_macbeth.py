@@ -10,10 +10,12 @@ import pandas as pd
 import scipy.linalg as sla
 
 from ..covariance.kernels import default_kernel
+from ..blas import single_blas_thread
 from ..covariance.registry import estimator
 from ..data.columns import INTERCEPT, SampleInfo, as_list, index_label
 from ..data.panels import PanelInfo, check_names, checked_panel, large_data_fit, panel_names
 from ..errors import SpecificationError
+from .ols import ONE_PASS_MAX_CONDITION
 from .series import SeriesModel
 
 
@@ -72,35 +74,127 @@ class FamaMacBethFit(SeriesModel):
                 f"periods={self.nobs})")
 
 
-def fama_macbeth_from_rows(X, y, t_codes, periods, terms, response, sample, panel=None):
+class _PeriodGroups:
+    """Per-period sums over the rows of a panel: column sums over the (entities, periods) grid
+    of a balanced panel in (entity, period) order, counting otherwise."""
+
+    def __init__(self, t_codes, n_periods, grid=None):
+        self.codes, self.n, self.grid = t_codes, n_periods, grid
+        self.counts = (np.full(n_periods, grid[0]) if grid is not None
+                       else np.bincount(t_codes, minlength=n_periods))
+
+    def dot(self, a, b):
+        """sum over each period's rows of a * b."""
+        if self.grid is not None:
+            return np.einsum("ep,ep->p", a.reshape(self.grid), b.reshape(self.grid))
+        return np.bincount(self.codes, weights=a * b, minlength=self.n)
+
+    def residuals(self, cols, y, coef):
+        """y - x_t' coef[period of t] for every row."""
+        if self.grid is not None:
+            r = np.array(y.reshape(self.grid))
+            for a, col in enumerate(cols):
+                r -= col.reshape(self.grid) * coef[:, a]
+            return r.reshape(-1)
+        r = np.array(y, dtype=float)
+        for a, col in enumerate(cols):
+            r -= col * coef[self.codes, a]
+        return r
+
+
+@single_blas_thread
+def fama_macbeth_from_rows(X, y, t_codes, periods, terms, response, sample, panel=None,
+                           grid=None):
+    """The period-by-period least-squares slopes. Each period's cross-products come from one
+    pass over each pair of columns for all periods at once (per-period sums); a period whose
+    column-scaled cross-product matrix is well conditioned (the bound of a one-pass Cholesky QR)
+    is solved by the semi-normal equations with one refinement step on its residuals, the others
+    by pivot-free Householder QR of their rows as before. `grid`: (entities, periods) when the
+    rows are a balanced panel in (entity, period) order."""
     k = X.shape[1]
-    order = np.argsort(t_codes, kind="stable")
-    bounds = np.searchsorted(t_codes[order], np.arange(len(periods) + 1))
-    rows, labels, counts, skipped = [], [], [], {}
-    for p in range(len(periods)):
-        idx = order[bounds[p]:bounds[p + 1]]
+    t_p = len(periods)
+    groups = _PeriodGroups(t_codes, t_p, grid)
+    cols = [X[:, a] for a in range(k)]
+    gram = np.empty((t_p, k + 1, k + 1))
+    for a, u in enumerate([*cols, y]):
+        for b, v in enumerate([*cols, y][a:], start=a):
+            gram[:, a, b] = gram[:, b, a] = groups.dot(u, v)
+    counts = groups.counts
+    xtx, xty = gram[:, :k, :k], gram[:, :k, k]
+    d = np.sqrt(np.maximum(np.diagonal(xtx, axis1=1, axis2=2), 0.0))
+    enough = counts >= k
+    nonzero = (d > 0).all(axis=1)
+    coef = np.zeros((t_p, k))
+    solved = np.zeros(t_p, dtype=bool)
+    cand = np.flatnonzero(enough & nonzero)
+    if cand.size:
+        ds = d[cand]
+        scaled = xtx[cand] / (ds[:, :, None] * ds[:, None, :])
+        try:                                   # all periods at once; one by one if any fails
+            chol = np.linalg.cholesky(scaled)
+            good = np.ones(cand.size, dtype=bool)
+        except np.linalg.LinAlgError:
+            good = np.zeros(cand.size, dtype=bool)
+            chol = np.zeros_like(scaled)
+            for i in range(cand.size):
+                try:
+                    chol[i] = np.linalg.cholesky(scaled[i])
+                    good[i] = True
+                except np.linalg.LinAlgError:
+                    continue
+        if good.any():
+            cond = np.full(cand.size, np.inf)
+            cond[good] = np.linalg.cond(chol[good])
+            good &= np.isfinite(cond) & (cond <= ONE_PASS_MAX_CONDITION)
+        which = cand[good]
+        if which.size:
+            sg, dg = scaled[good], ds[good]
+            coef[which] = np.linalg.solve(sg, (xty[which] / dg)[..., None])[..., 0] / dg
+            resid = groups.residuals(cols, y, coef)
+            rhs = np.column_stack([groups.dot(col, resid) for col in cols])[which]
+            step = np.linalg.solve(sg, (rhs / dg)[..., None])[..., 0] / dg
+            ok = np.isfinite(step).all(axis=1)
+            coef[which[ok]] += step[ok]
+            solved[which] = True
+    rows, labels, kept, skipped = [], [], [], {}
+    order = bounds = None
+    for p in range(t_p):
         label = index_label(periods[p])
-        if idx.size < k:
-            skipped[label] = f"{idx.size} rows for {k} coefficients"
+        if counts[p] < k:
+            skipped[label] = f"{counts[p]} rows for {k} coefficients"
             continue
-        xs, ys = X[idx], y[idx]
-        norms = np.abs(xs).max(axis=0)
-        if (norms == 0).any():
+        if not nonzero[p]:
             skipped[label] = "a regressor is zero throughout the period"
             continue
-        q, r = np.linalg.qr(xs / norms)
-        d = np.abs(np.diag(r))
-        if d.min() <= 1e-10 * d.max():
-            skipped[label] = "regressors are collinear within the period"
-            continue
-        coef = sla.solve_triangular(r, q.T @ ys) / norms
-        resid = ys - xs @ coef
-        coef += sla.solve_triangular(r, q.T @ resid) / norms      # one refinement step
-        rows.append(coef)
+        if not solved[p]:
+            if order is None:
+                order = np.argsort(t_codes, kind="stable")
+                bounds = np.searchsorted(t_codes[order], np.arange(t_p + 1))
+            est = _qr_slopes(X, y, order[bounds[p]:bounds[p + 1]])
+            if est is None:
+                skipped[label] = "regressors are collinear within the period"
+                continue
+            coef[p] = est
+        rows.append(coef[p])
         labels.append(periods[p])
-        counts.append(idx.size)
-    return assemble_fama_macbeth(rows, labels, counts, skipped, periods, terms, response,
+        kept.append(int(counts[p]))
+    return assemble_fama_macbeth(rows, labels, kept, skipped, periods, terms, response,
                                  sample, panel)
+
+
+def _qr_slopes(X, y, idx):
+    """One period's slopes by QR of its column-scaled rows with one refinement step (None when
+    the regressors are collinear within the period)."""
+    xs, ys = X[idx], y[idx]
+    norms = np.abs(xs).max(axis=0)
+    q, r = np.linalg.qr(xs / norms)
+    d = np.abs(np.diag(r))
+    if d.min() <= 1e-10 * d.max():
+        return None
+    coef = sla.solve_triangular(r, q.T @ ys) / norms
+    resid = ys - xs @ coef
+    coef += sla.solve_triangular(r, q.T @ resid) / norms      # one refinement step
+    return coef
 
 
 def assemble_fama_macbeth(rows, labels, counts, skipped, periods, terms, response, sample,
@@ -145,14 +239,13 @@ def fit_fama_macbeth(data, response: str, regressors=None, entity: str | None = 
         return large(data, response, regs, entity, time,
                                             intercept=intercept, sample=sample, client=client,
                                             **dask_options)
-    pdata, values, _, _ = checked_panel(data, response, regs, entity, time, sample)
-    n = len(values)
-    X = values[:, :len(regs)]
-    if intercept:
-        X = np.column_stack([np.ones(n), X])
+    pdata, values, _, _ = checked_panel(data, response, regs, entity, time, sample,
+                                        ones=intercept)
+    X = values[:, :len(regs) + int(intercept)]
     terms = ([INTERCEPT] if intercept else []) + regs
-    pdata.sample.notes.extend(PanelInfo(entity=entity, time=time, entities=pdata.entities,
-                                        periods=pdata.periods, entity_codes=pdata.entity_codes,
-                                        time_codes=pdata.time_codes).describe())
-    return fama_macbeth_from_rows(X, values[:, -1], pdata.time_codes, pdata.periods, terms, response,
-                         pdata.sample)
+    info = PanelInfo(entity=entity, time=time, entities=pdata.entities, periods=pdata.periods,
+                     entity_codes=pdata.entity_codes, time_codes=pdata.time_codes,
+                     entity_major=pdata.entity_major)
+    pdata.sample.notes.extend(info.describe())
+    return fama_macbeth_from_rows(X, values[:, -1], pdata.time_codes, pdata.periods, terms,
+                                  response, pdata.sample, grid=info.grid)

@@ -26,6 +26,7 @@ import pandas as pd
 import scipy.linalg as sla
 from scipy import optimize
 
+from ..blas import single_blas_thread
 from ..capabilities import Capabilities
 from ..covariance.registry import as_estimator
 from ..data.columns import (INTERCEPT, as_list, check_horizon, check_magnitudes, column_ranges,
@@ -64,14 +65,19 @@ class IVCore:
     sample: object
     horizon: int | None
     table: object
+    z_scales: np.ndarray | None = None   # each instrument's largest absolute value, if known
     Q: np.ndarray = field(init=False)
     C: np.ndarray = field(init=False)
     C_inv: np.ndarray = field(init=False)
     A: np.ndarray = field(init=False)
     b: np.ndarray = field(init=False)
 
+    @single_blas_thread
     def __post_init__(self):
-        norms = np.maximum(*[np.abs(v) for v in column_ranges(self.Z)])
+        if self.z_scales is None:
+            norms = np.maximum(*[np.abs(v) for v in column_ranges(self.Z)])
+        else:
+            norms = np.asarray(self.z_scales, dtype=float)
         factor = cholesky_qr2(self.Z, norms) if norms.min() > 0 else None
         if factor is None:
             q, r, piv = sla.qr(self.Z / norms, mode="economic", pivoting=True)
@@ -139,6 +145,7 @@ def _check_spec(response, regs, endogenous, instruments, intercept):
         raise SpecificationError("the model has no regressors: add a column or the intercept")
 
 
+@single_blas_thread
 def fit_iv(data, response: str, regressors=None, endogenous=None, instruments=None,
            intercept: bool = True, method: str = "2sls", weight=None, sample=None,
            horizon=None, max_iter: int = 100, tol: float = 1e-8) -> "IVFit":
@@ -155,8 +162,8 @@ def fit_iv(data, response: str, regressors=None, endogenous=None, instruments=No
         raise SpecificationError(f"unknown method {method!r}; choose one of {', '.join(METHODS)}")
     table, frame, non_numeric, horizons = frame_and_meta(data)
     cols = [*regs, *instr, response]
-    values, index, info = numeric_block(frame, cols, non_numeric, sample, ones=intercept)
-    lo, hi = column_ranges(values)
+    values, index, info, (lo, hi) = numeric_block(frame, cols, non_numeric, sample,
+                                                   ones=intercept)
     check_magnitudes(cols, lo, hi, values, lead=int(intercept))
     k = len(regs) + int(intercept)
     if len(values) <= max(k, len(instr) + k - len(endog)):
@@ -170,16 +177,20 @@ def fit_iv(data, response: str, regressors=None, endogenous=None, instruments=No
     lead = int(intercept)
     z_cols = list(range(lead)) + [lead + regs.index(r) for r in exog] \
         + [k + i for i in range(len(instr))]
-    Z = np.ascontiguousarray(values[:, z_cols])
+    Z = np.empty((len(values), len(z_cols)), order="F")     # column-major, like the block
+    for i, c in enumerate(z_cols):
+        Z[:, i] = values[:, c]
+    z_scales = np.maximum(hi[z_cols], -lo[z_cols])
     z_names = ([INTERCEPT] if intercept else []) + exog + instr
-    y = np.ascontiguousarray(values[:, -1])
+    y = values[:, -1]
     info.rows_used = len(values)
     info.first, info.last = index_label(index[0]), index_label(index[-1])
     horizon = check_horizon(horizon if horizon is not None else horizons.get(response),
                             len(values))
-    core = IVCore(X=np.ascontiguousarray(X), y=y, Z=Z, terms=terms, z_names=z_names,
+    core = IVCore(X=X, y=y, Z=Z, terms=terms, z_names=z_names,
                   endogenous=endog, excluded=instr, exogenous=exog, index=index,
-                  response=response, sample=info, horizon=horizon, table=table)
+                  response=response, sample=info, horizon=horizon, table=table,
+                  z_scales=z_scales)
     first = IVFit(core, np.eye(Z.shape[1]), method="2sls")
     if method == "2sls":
         return first
@@ -291,6 +302,7 @@ class IVFit(WeightedGMM, MomentModel):
     def _two_step_cache(self) -> dict:
         return self.caches.get("two_step", dict)
 
+    @single_blas_thread
     def two_step(self, weight) -> "IVFit":
         """Two-step efficient GMM from this fit's residuals (this fit is the first step).
         Computed once per estimator and kept (a few of them) in this fit's caches."""
@@ -305,6 +317,7 @@ class IVFit(WeightedGMM, MomentModel):
                                iterations=2, first_step=self)
         return cache[key]
 
+    @single_blas_thread
     def iterated(self, weight, max_iter: int = 100, tol: float = 1e-8) -> "IVFit":
         weight = as_estimator(weight)
         current, steps = self, 1
@@ -325,6 +338,7 @@ class IVFit(WeightedGMM, MomentModel):
                       iterations=steps, first_step=self)
         return final
 
+    @single_blas_thread
     def cue(self, weight, max_iter: int = 100, tol: float = 1e-8) -> "IVFit":
         """Continuously updated GMM: minimise T g(b)' S(b)^-1 g(b) over b, S(b) the weight
         estimator on the contributions at b (a data-driven bandwidth is fixed at its two-step

@@ -13,6 +13,7 @@ import pandas as pd
 import scipy.linalg as sla
 from scipy import optimize
 
+from ..blas import single_blas_thread
 from ..errors import LagwiseError, SpecificationError
 from ..laws.reference import chi_square_upper, f_upper
 from .series import SeriesModel
@@ -62,6 +63,7 @@ def _coefficient_model(zt, vt, names, index, horizon):
                        horizon=horizon, df_resid=t_obs - L)
 
 
+@single_blas_thread
 def first_stage(fit, est):
     core = fit.core
     if not core.endogenous:
@@ -177,11 +179,13 @@ def _ar_setup(fit, term, est):
     return est, _ar_p_value(est, zt, ey, ex, pi_y, pi_x, core)
 
 
+@single_blas_thread
 def anderson_rubin_test(fit, term: str, value: float, est) -> float:
     """The AR test's p-value for beta = value (no confidence set)."""
     return float(_ar_setup(fit, term, est)[1](float(value)))
 
 
+@single_blas_thread
 def anderson_rubin(fit, term: str, est, level: float = 0.95) -> ARSet:
     if not 0.5 <= level < 1:
         raise SpecificationError(f"confidence level must be between 0.5 and 1, got {level!r}")

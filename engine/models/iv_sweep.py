@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..blas import single_blas_thread
 from ..covariance import longrun
 from ..covariance.kernels import get_kernel
 from ..covariance.registry import ModelInfo
@@ -80,6 +81,7 @@ def gmm_sweep(fit, estimators, bandwidths=None):
                        info=ModelInfo(first.nobs, first.df_resid), extras=extras)
 
 
+@single_blas_thread
 def gmm_curves(fit, estimators, values=None):
     """Two-step GMM along the axis of one family for each estimator: the family's vectorised
     GMM sweep when it has one, else one two-step fit per grid point (one estimator)."""

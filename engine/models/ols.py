@@ -33,6 +33,10 @@ CHOLESKY_QR_MAX_CONDITION = 1e7
 ONE_PASS_MAX_CONDITION = 1e3
 
 
+#: Rows per chunk of the refinement pass (X beta and X'r while the chunk is in cache).
+REFINE_CHUNK = 16384
+
+
 class OLSFit(MomentModel):
     """A fitted linear regression y = X beta + e and everything estimators need from it.
 
@@ -44,7 +48,8 @@ class OLSFit(MomentModel):
 
     kind = "least squares"
 
-    def __init__(self, *, X, y, terms, index, response, sample, horizon=None, table=None):
+    def __init__(self, *, X, y, terms, index, response, sample, horizon=None, table=None,
+                 scales=None, xy=None):
         self._init_model()
         self.X = X
         self.y = y
@@ -56,7 +61,7 @@ class OLSFit(MomentModel):
         self.table = table
         self.nobs, self.k = X.shape
         self.one_period = None            # the one-period series behind an overlapping response
-        self._solve()
+        self._solve(scales, xy)
 
     @property
     def capabilities(self) -> Capabilities:
@@ -69,12 +74,21 @@ class OLSFit(MomentModel):
         return residuals_vanish(self.resid, self.y)
 
     @single_blas_thread
-    def _solve(self):
+    def _solve(self, scales=None, xy=None):
+        """Coefficients, fitted values and residuals. `scales`: each column's largest absolute
+        value, when the caller has it already (otherwise one pass over X finds it). `xy`: X and
+        y side by side in one block (y last), when the caller holds them so: one product then
+        gives X'X and X'y."""
         X, y = self.X, self.y
+        gram = xy.T @ xy if xy is not None else None
         # scale columns by their largest absolute value (never underflows, unlike a 2-norm)
-        lo, hi = column_ranges(X)
-        norms = np.maximum(hi, -lo)
-        factor = cholesky_qr2(X, norms) if norms.min() > 0 else None
+        if scales is None:
+            lo, hi = column_ranges(X)
+            scales = np.maximum(hi, -lo)
+        norms = np.asarray(scales, dtype=float)
+        factor = (cholesky_qr2(X, norms, form_q=False,
+                               xtx=None if gram is None else gram[:self.k, :self.k])
+                  if norms.min() > 0 else None)
         if factor is None:
             q, r, piv = sla.qr(X / norms, mode="economic", pivoting=True, check_finite=False,
                                overwrite_a=True)
@@ -86,12 +100,27 @@ class OLSFit(MomentModel):
             rinv = sla.solve_triangular(r, np.eye(self.k))
             self.factorization = "pivoted Householder QR"
         else:
-            q, r, rinv = factor
+            q, r, rinv = factor      # q is None when one Cholesky pass suffices (formed lazily)
             piv = np.arange(self.k)
             self.factorization = "Cholesky QR"
-        beta = np.empty(self.k)
+
+        def solve(v):
+            """The least-squares coefficients of v on X: R^-1 Q'v, unscaled. Without Q formed,
+            Q'v = R^-T D^-1 X'v (the semi-normal equations; the refinement step below makes
+            them as accurate as the QR solution at these condition numbers)."""
+            out = np.empty(self.k)
+            qtv = q.T @ v if q is not None else rinv.T @ ((X.T @ v) / norms)
+            out[piv] = rinv @ qtv / norms[piv]
+            return out
+
+        def seminormal(xtv):
+            return rinv @ (rinv.T @ (xtv / norms)) / norms
+
         with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-            beta[piv] = rinv @ (q.T @ y) / norms[piv]
+            if q is None and gram is not None:
+                beta = seminormal(gram[:self.k, self.k])
+            else:
+                beta = solve(y)
         if not np.isfinite(beta).all():
             bad = [self.terms[i] for i in np.flatnonzero(~np.isfinite(beta))]
             raise SpecificationError(
@@ -100,9 +129,18 @@ class OLSFit(MomentModel):
                 "thousands or percent) and fit again")
         # one step of iterative refinement on the residual system
         with np.errstate(over="ignore", invalid="ignore"):
-            fitted = X @ beta
-            step = np.empty(self.k)
-            step[piv] = rinv @ (q.T @ (y - fitted)) / norms[piv]
+            if q is None:
+                # X beta and X'(y - X beta) in one pass over X, a cache-sized chunk at a time
+                fitted = np.empty(self.nobs)
+                xtr = np.zeros(self.k)
+                for start in range(0, self.nobs, REFINE_CHUNK):
+                    rows = slice(start, start + REFINE_CHUNK)
+                    part = np.matmul(X[rows], beta, out=fitted[rows])
+                    xtr += X[rows].T @ (y[rows] - part)
+                step = seminormal(xtr)
+            else:
+                fitted = X @ beta
+                step = solve(y - fitted)
         if np.isfinite(step).all():
             beta += step
             fitted = X @ beta
@@ -111,17 +149,36 @@ class OLSFit(MomentModel):
         inv_c[piv] = rinv / norms[piv][:, None]
         basis = np.empty((self.k, self.k))
         basis[:, piv] = r * norms[piv][None, :]
-        self._q = q                                # orthonormal basis of the columns of X
+        self._q = q                                # orthonormal basis of X (None: not formed)
         self._inv_c = inv_c                        # C^-1: x_t' = q_t' C
         self._basis = basis                        # C
+        self._leverage = None
         self.beta = beta
         self.fitted_values = fitted
         self.resid = y - fitted
-        self.leverage = np.einsum("ij,ij->i", q, q)
+
+    @single_blas_thread
+    def _orthonormal_basis(self) -> np.ndarray:
+        """Q = X C^-1 (one pass over X), formed when an estimator first needs it."""
+        return self.X @ self._inv_c
+
+    @property
+    def leverage(self) -> np.ndarray | None:
+        """The diagonal of the hat matrix, h_t = |q_t|^2 (computed on first use)."""
+        if self._leverage is None:
+            self._leverage = self._compute_leverage()
+        return self._leverage
+
+    def _compute_leverage(self) -> np.ndarray | None:
+        q = self.working_design
+        return np.einsum("ij,ij->i", q, q)
 
     # ------------------------------------------------------------------ the protocol
     @property
     def working_design(self) -> np.ndarray:
+        """Q, the orthonormal basis of the columns of X."""
+        if self._q is None:
+            self._q = self._orthonormal_basis()
         return self._q
 
     def _original_contributions(self) -> np.ndarray:
@@ -164,7 +221,7 @@ class OLSFit(MomentModel):
                 f"R2={self.r_squared:.4f})")
 
 
-def cholesky_qr2(x: np.ndarray, norms: np.ndarray):
+def cholesky_qr2(x: np.ndarray, norms: np.ndarray, form_q: bool = True, xtx=None):
     """Cholesky QR of a well-conditioned matrix with its columns scaled by 1/norms, without
     forming the scaled copy: (Q, R, R^-1) with X D^-1 = QR to rounding, or None
     when the matrix is too ill-conditioned for it (the caller then uses pivoted Householder QR).
@@ -174,10 +231,13 @@ def cholesky_qr2(x: np.ndarray, norms: np.ndarray):
     depend on (S of x_t e_t = C' S_q C holds for any Q with X = QC) and the refinement step of the
     coefficients absorbs. Otherwise a second pass (CholeskyQR2), backward stable with Q
     orthonormal to rounding for condition numbers well below 1e8 (Yamamoto et al. 2015, ETNA
-    44); the threshold used is `CHOLESKY_QR_MAX_CONDITION`."""
+    44); the threshold used is `CHOLESKY_QR_MAX_CONDITION`. With `form_q` False, Q is returned
+    as None when one pass suffices (the caller forms X D^-1 R^-1 when it needs it). `xtx`:
+    X'X when the caller has it."""
     k = x.shape[1]
     try:
-        r1 = sla.cholesky((x.T @ x) / np.outer(norms, norms), lower=False, check_finite=False)
+        r1 = sla.cholesky((x.T @ x if xtx is None else xtx) / np.outer(norms, norms),
+                          lower=False, check_finite=False)
     except (np.linalg.LinAlgError, ValueError):
         return None
     d = np.abs(np.diag(r1))
@@ -187,6 +247,8 @@ def cholesky_qr2(x: np.ndarray, norms: np.ndarray):
     if cond > CHOLESKY_QR_MAX_CONDITION:
         return None
     r1inv = sla.solve_triangular(r1, np.eye(k), check_finite=False)
+    if cond <= ONE_PASS_MAX_CONDITION and not form_q:
+        return None, r1, r1inv
     q1 = x @ (r1inv / norms[:, None])
     if cond <= ONE_PASS_MAX_CONDITION:
         return q1, r1, r1inv
@@ -249,13 +311,13 @@ def fit_ols(data, response: str, regressors=None, intercept: bool = True,
         raise SpecificationError(f"'{INTERCEPT}' is reserved for the constant term; "
                                  "rename that column")
     cols = [*regs, response]
-    values, index, info = numeric_block(frame, cols, non_numeric, sample, ones=intercept)
+    values, index, info, (lo, hi) = numeric_block(frame, cols, non_numeric, sample,
+                                                   ones=intercept)
     t_obs = len(values)
     k = len(regs) + int(intercept)
     if t_obs <= k:
         raise SpecificationError(f"{k} coefficients but only {t_obs} usable rows: the model needs "
                                  "more observations than coefficients (T > k)")
-    lo, hi = column_ranges(values)
     check_magnitudes(cols, lo, hi, values, lead=int(intercept))
     spread, first = hi - lo, values[0]
     if spread[k] == 0:
@@ -274,12 +336,13 @@ def fit_ols(data, response: str, regressors=None, intercept: bool = True,
                                  f"{what}. Remove it.")
     terms = ([INTERCEPT] if intercept else []) + regs
     X = values[:, :k]                       # a view: the design shares the validated block
-    y = np.ascontiguousarray(values[:, k])
+    y = values[:, k]                        # contiguous (the block is column-major)
     info.rows_used = t_obs
     info.first, info.last = (index_label(index[0]), index_label(index[-1]))
     horizon = check_horizon(horizon if horizon is not None else horizons.get(response), t_obs)
     fit = OLSFit(X=X, y=y, terms=terms, index=index, response=response, sample=info,
-                 horizon=horizon, table=table)
+                 horizon=horizon, table=table, scales=np.maximum(hi[:k], -lo[:k]),
+                 xy=values[:, :k + 1])
     fit.one_period = one_period_source(table, frame, response, horizon, one_period)
     return fit
 

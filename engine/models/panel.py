@@ -61,15 +61,20 @@ class PanelFit(OLSFit):
     kernel_family = "driscoll_kraay"
 
     def __init__(self, *, X, y, terms, index, response, sample, panel: PanelInfo,
-                 raw=None, table=None, horizon=None):
+                 raw=None, table=None, horizon=None, scales=None, xy=None):
         self.panel = panel
         self._raw = raw                    # untransformed (regressors, y) for Fama-MacBeth
         super().__init__(X=X, y=y, terms=terms, index=index, response=response, sample=sample,
-                         horizon=horizon, table=table)
-        self.leverage = self._panel_leverage()
+                         horizon=horizon, table=table, scales=scales, xy=xy)
 
-    def _panel_leverage(self):
-        base = np.einsum("ij,ij->i", self._q, self._q)
+    def _has_leverage(self) -> bool:
+        p = self.panel
+        return len(p.effects) < 2 or p.balanced
+
+    def _compute_leverage(self):
+        if not self._has_leverage():
+            return None          # two-way on an unbalanced panel: not available in closed form
+        base = super()._compute_leverage()
         p, eff = self.panel, self.panel.effects
         if not eff:
             return base
@@ -77,15 +82,13 @@ class PanelFit(OLSFit):
             return base + 1.0 / p.counts[p.entity_codes]
         if eff == ("time",):
             return base + 1.0 / p.period_counts[p.time_codes]
-        if p.balanced:
-            return base + 1.0 / p.n_periods + 1.0 / p.n_entities - 1.0 / self.nobs
-        return None          # two-way on an unbalanced panel: not available in closed form
+        return base + 1.0 / p.n_periods + 1.0 / p.n_entities - 1.0 / self.nobs
 
     @property
     def capabilities(self) -> Capabilities:
         """A stacked panel: entity and period codes, a design, leverage where it has a closed
         form, clusters by entity and by period; the rows are not one time series."""
-        return Capabilities(panel=True, design=True, leverage=self.leverage is not None,
+        return Capabilities(panel=True, design=True, leverage=self._has_leverage(),
                             clusters=("entity", "time"))
 
     # ------------------------------------------------------------------ degrees of freedom
@@ -100,18 +103,44 @@ class PanelFit(OLSFit):
 
     # ------------------------------------------------------------------ grouped statistics
     def group_sums(self, dim: str) -> np.ndarray:
-        """Sums of the working moment contributions within each entity or each period."""
+        """Sums of the working moment contributions within each entity or each period. While
+        the orthonormal basis is not formed (a well-conditioned design), they are the sums of
+        x_t e_t mapped by C^-1 (q_t = x_t C^-1), so no T x k array is built for them."""
         def build():
-            codes, n = ((self.panel.entity_codes, self.panel.n_entities) if dim == "entity"
-                        else (self.panel.time_codes, self.panel.n_periods))
-            g = self.working_contributions
-            out = np.empty((n, g.shape[1]))
-            for j in range(g.shape[1]):
-                out[:, j] = np.bincount(codes, weights=g[:, j], minlength=n)
-            return out
+            if self._q is None and "working_contributions" not in self.caches:
+                return self._grouped(self.X, self.resid, dim) @ self._inv_c
+            return self._grouped(self.working_contributions, None, dim)
         if dim not in EFFECTS:
             raise SpecificationError(f"group by 'entity' or 'time', not {dim!r}")
         return self.caches.get(f"sums_{dim}", build)
+
+    def _grouped(self, values, weights, dim):
+        """Sums of the columns of `values` (times `weights` per row, when given) within each
+        entity or period: row or column sums of each column on a balanced panel in (entity,
+        period) order, contiguous blocks for entities in entity order, counting otherwise."""
+        p = self.panel
+        codes, n = ((p.entity_codes, p.n_entities) if dim == "entity"
+                    else (p.time_codes, p.n_periods))
+        out = np.empty((n, values.shape[1]))
+        grid = p.grid
+        starts = None
+        if grid is None and dim == "entity" and p.entity_major:
+            starts = np.concatenate([[0], np.cumsum(p.counts)[:-1]])
+        for j in range(values.shape[1]):
+            col = values[:, j]
+            if grid is not None:
+                spec = "et,et->e" if dim == "entity" else "et,et->t"
+                if weights is None:
+                    out[:, j] = col.reshape(grid).sum(axis=1 if dim == "entity" else 0)
+                else:
+                    out[:, j] = np.einsum(spec, col.reshape(grid), weights.reshape(grid))
+                continue
+            w = col if weights is None else col * weights
+            if starts is not None:
+                out[:, j] = np.add.reduceat(w, starts)
+            else:
+                out[:, j] = np.bincount(codes, weights=w, minlength=n)
+        return out
 
     @property
     def period_model(self) -> "PeriodSums":
@@ -145,7 +174,8 @@ class PanelFit(OLSFit):
             Xr = np.column_stack([np.ones(len(yr)), Xr])
             terms = [INTERCEPT] + [t for t in self.terms if t != INTERCEPT]
             return fama_macbeth_from_rows(Xr, yr, self.panel.time_codes, self.panel.periods, terms,
-                                 self.response, self.sample, self.panel)
+                                          self.response, self.sample, self.panel,
+                                          grid=self.panel.grid)
         return self.caches.get("fama_macbeth", build)
 
     def compare(self, level: float = 0.95, reference: str = "auto", fama_macbeth: bool = True,
@@ -377,22 +407,27 @@ def fit_panel(data, response: str, regressors=None, entity: str | None = None,
     if large is not None:
         return large(data, response, regs, entity, time, effects=eff, intercept=intercept,
                      sample=sample, client=client, **dask_options)
-    pdata, values, lo, hi = checked_panel(data, response, regs, entity, time, sample)
+    lead = int(intercept)
+    pdata, values, lo, hi = checked_panel(data, response, regs, entity, time, sample,
+                                          ones=intercept)
     if hi[-1] - lo[-1] == 0:
         raise SpecificationError(f"response '{response}' is constant ({values[0, -1]:g}): "
                                  "nothing to explain")
     for j, r in enumerate(regs):
-        if hi[j] - lo[j] == 0 and (intercept or eff):
-            raise SpecificationError(f"regressor '{r}' is constant ({values[0, j]:g}); it "
+        if hi[j + lead] - lo[j + lead] == 0 and (intercept or eff):
+            raise SpecificationError(f"regressor '{r}' is constant ({values[0, j + lead]:g}); it "
                                      + ("is absorbed by the effects" if eff else
                                         "duplicates the intercept") + ". Remove it.")
     g, t = len(pdata.entities), len(pdata.periods)
-    transformed, absorbed, comps, iters = within(values, pdata.entity_codes, pdata.time_codes,
-                                                 g, t, eff)
+    info = PanelInfo(entity=entity, time=time, entities=pdata.entities, periods=pdata.periods,
+                     entity_codes=pdata.entity_codes, time_codes=pdata.time_codes, effects=eff,
+                     entity_major=pdata.entity_major)
+    res = within(values, pdata.entity_codes, pdata.time_codes, g, t, eff, grid=info.grid)
+    transformed, absorbed, comps, iters = res.values, res.absorbed, res.components, res.iterations
+    info.absorbed, info.components, info.iterations = absorbed, comps, iters
     if eff:
-        centred = values - values.mean(axis=0)
-        before = np.sqrt((centred ** 2).sum(axis=0))
-        after = np.sqrt((transformed ** 2).sum(axis=0))
+        after = np.sqrt(res.squares)
+        before = np.sqrt(res.squares + res.between)       # total = within + between
         gone = [j for j in range(len(regs)) if after[j] <= ABSORBED_TOL * max(before[j], 1e-300)]
         if gone:
             what = {("entity",): "within entities", ("time",): "within periods"}.get(
@@ -405,21 +440,18 @@ def fit_panel(data, response: str, regressors=None, entity: str | None = None,
             raise SpecificationError(f"response '{response}' is explained entirely by the "
                                      "fixed effects: nothing is left to explain")
     n = len(values)
-    k = len(regs) + int(intercept)
+    k = len(regs) + lead
     if n <= k + absorbed:
         raise SpecificationError(f"{n} rows are too few for {k} coefficients and {absorbed} "
                                  "effect parameters")
-    X = np.empty((n, k))
-    if intercept:
-        X[:, 0] = 1.0
-    X[:, int(intercept):] = transformed[:, :len(regs)]
-    y = np.ascontiguousarray(transformed[:, -1])
-    raw = None
+    X = transformed[:, :k]                    # views of the column-major block
+    y = transformed[:, k]
     if eff:
-        raw = (values[:, :len(regs)].copy(), values[:, -1].copy())
-    info = PanelInfo(entity=entity, time=time, entities=pdata.entities, periods=pdata.periods,
-                     entity_codes=pdata.entity_codes, time_codes=pdata.time_codes, effects=eff,
-                     absorbed=absorbed, components=comps, iterations=iters)
+        scales = np.maximum(res.hi[:k], -res.lo[:k])
+        raw = (values[:, :len(regs)], values[:, -1])      # untransformed, for Fama-MacBeth
+    else:
+        scales = np.maximum(hi[:k], -lo[:k])
+        raw = None
     note = spacing_note(pdata.periods)
     if note:
         info.notes.append(note)
@@ -428,7 +460,7 @@ def fit_panel(data, response: str, regressors=None, entity: str | None = None,
     terms = ([INTERCEPT] if intercept else []) + regs
     fit = PanelFit(X=X, y=y, terms=terms, index=pdata.index, response=response,
                    sample=sample_info, panel=info, raw=raw, table=pdata.table,
-                   horizon=pdata.horizon)
+                   horizon=pdata.horizon, scales=scales, xy=transformed[:, :k + 1])
     if eff and k:
         fit.sample.notes.append(describe_effects(eff, absorbed, comps, iters, info.balanced))
     return fit

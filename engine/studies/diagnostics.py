@@ -15,6 +15,7 @@ import numpy as np
 import pandas as pd
 from scipy import integrate, linalg as sla
 
+from ..blas import single_blas_thread
 from ..covariance.bandwidth import select_bandwidth
 from ..covariance.cache import MomentCache
 from ..errors import EstimationError
@@ -175,6 +176,7 @@ def _white_no_cross(resid, X):
     return lm, df, chi_square_upper(lm, df)
 
 
+@single_blas_thread
 def diagnose(fit, lags=None, arch_lags=None, exact_dw: bool = True,
              progress=None) -> DiagnosticReport:
     """Residual and moment diagnostics for a least-squares fit (see module docstring). Every

@@ -9,6 +9,7 @@ from scipy import sparse
 from statsmodels.tsa.stattools import acf
 
 from ..capabilities import missing
+from ..blas import single_blas_thread
 from ..covariance.bandwidth import select_bandwidth
 from ..covariance.kernels import default_kernel
 from ..data.columns import INTERCEPT
@@ -119,6 +120,7 @@ def wooldridge_serial(fit):
     return f, 1, groups - 1, f_upper(f, 1, groups - 1), rho
 
 
+@single_blas_thread
 def diagnose_panel(fit, progress=None):
     """Residual diagnostics for a panel: what the panel estimators correct for.
 

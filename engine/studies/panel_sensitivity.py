@@ -5,11 +5,13 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..blas import single_blas_thread
 from ..covariance.kernels import KERNELS, default_kernel, get_kernel
 from ..errors import EstimationError, SpecificationError
 from ..inference.sweep import SweepResult
 
 
+@single_blas_thread
 def panel_sweep(model, kernels=None, values=None, small_sample: bool = False,
                 repair: bool = True, fama_macbeth: bool = True):
     """The panel sensitivity sweep: the panel's kernel estimators (its `kernel_family`:

@@ -23,6 +23,7 @@ import numpy as np
 import pandas as pd
 from scipy import signal
 
+from ..blas import single_blas_thread
 from ..covariance.registry import estimator
 from ..data.columns import INTERCEPT, as_list
 from ..data.table import as_table
@@ -207,6 +208,7 @@ def one_period_series(fit) -> tuple[np.ndarray, str]:
     return nxt, str(source.name)
 
 
+@single_blas_thread
 def persistence_report(fit, predictor: str | None = None, level: float = 0.95) -> PersistenceReport:
     """Persistence of a predictor and what it does to the slope (see the module docstring).
 
@@ -338,6 +340,7 @@ def default_horizon_estimators():
             ("EWC", lambda h: estimator("ewc"))]
 
 
+@single_blas_thread
 def horizon_sweep(data, response: str, predictors, horizons=range(1, 37), estimators=None,
                   intercept: bool = True, sample=None, level: float = 0.95,
                   progress=None) -> HorizonSweep:
