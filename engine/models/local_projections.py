@@ -389,10 +389,16 @@ class LocalProjections:
         return (f"LocalProjections(response={self.response!r}, shock={self.shock!r}, "
                 f"lags={self.lags}, H={self.H}, T={self.T})")
 
+    def own_nbytes(self, seen=None) -> int:
+        """Bytes held: the horizons' fits with their caches, the data, the stacked model and
+        the other caches (the source Table is not counted: it belongs to its owner)."""
+        seen = set() if seen is None else seen
+        return sum(nbytes_of(f, seen) for f in self.fits) + nbytes_of(self.data, seen) \
+            + self.caches.own_nbytes(seen)
+
     @property
     def nbytes(self) -> int:
-        return sum(f.nbytes for f in self.fits) + nbytes_of(self.data) \
-            + self.caches.own_nbytes(set())
+        return self.own_nbytes()
 
     # ------------------------------------------------------------------ inference
     def irf(self, est=None, level: float = 0.90, reference: str = "auto") -> pd.DataFrame:

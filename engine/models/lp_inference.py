@@ -585,9 +585,10 @@ def pointwise_bands(lp, lpest: LPEstimator, level: float = 0.90, kind: str = "po
                                  f"[{st.pointwise:.4f}, {st.bonferroni:.4f}]")
     se = t["std_error"].to_numpy(dtype=float)
     est = t["estimate"].to_numpy(dtype=float)
-    out = Bands({"estimate": est, "std_error": se, "critical_value": c,
-                 "ci_low": est - c * se, "ci_high": est + c * se,
-                 "nobs": t["nobs"].to_numpy()}, index=t.index)
+    out = Bands({"estimate": est, "std_error": se, "t_stat": t["t_stat"].to_numpy(),
+                 "critical_value": c, "ci_low": est - c * se, "ci_high": est + c * se,
+                 "bandwidth": t["bandwidth"].to_numpy(), "lags": t["lags"].to_numpy(),
+                 "df": t["df"].to_numpy(), "nobs": t["nobs"].to_numpy()}, index=t.index)
     out.attrs.update(info)
     return out
 
