@@ -636,6 +636,8 @@ def significance_table(lp, ests, level=0.90, kind="pointwise", reference="auto")
                      "first_significant": first, "stops_at": stop,
                      "horizons_significant": int(sig.sum()), "assumes": e.assumes})
     out = pd.DataFrame(rows)
+    for col in ("first_significant", "stops_at"):
+        out[col] = pd.array([r[col] for r in rows], dtype="Int64")
     out.attrs.update({"level": level, "kind": kind})
     return out
 
