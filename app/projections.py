@@ -261,7 +261,7 @@ def on_lp_view(lkey, name, values, rule, slider, level, reference, choice, show,
 
 @callback(Output("lp-flip-graph", "figure"), Output("lp-compare", "rowData"),
           Output("lp-flip-notes", "children"), *VIEW_INPUTS, *EST_STATE,
-          State("session", "data"), prevent_initial_call=True, message=2, running=RUNNING)
+          State("session", "data"), prevent_initial_call=True, message=2)
 def on_lp_flips(lkey, name, values, rule, slider, level, reference, choice, ids, session):
     """Where each horizon's conclusion changes along b (the current kernel), and where the
     response stops being significant under every estimator."""

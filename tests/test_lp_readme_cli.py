@@ -123,3 +123,33 @@ def test_paper_table_and_script_reproduce_the_bands(demo_lp, tmp_path):
                          timeout=300)
     assert out.returncode == 0, out.stderr
     assert f"{se.iloc[0]:.6f}" in out.stdout
+
+
+def test_page_callbacks_show_the_engine_numbers(demo_lp):
+    """The mode's callbacks, called as the page calls them: the table by horizon, the reading,
+    every estimator's conclusion and the exported tables come from the engine's numbers."""
+    from lagwise.app import projections as P
+    from lagwise.app.state import STORE
+    session = STORE.open_session()
+    STORE.put(session, "lp-test", demo_lp)
+    fig, rows, reading, assumes, _ = P.on_lp_view("lp-test", "kernel", [], "fixed", 3, 0.9,
+                                                  "auto", "current", ["supt", "overlay"], [],
+                                                  session)
+    t = demo_lp.irf(lagwise.estimator("kernel", kernel="bartlett", bandwidth=3.0), 0.9)
+    assert [r["std_error"] for r in rows] == pytest.approx(list(t["std_error"]), rel=1e-12)
+    assert rows[0]["verdict"] == "rejected (sup-t too)" and rows[3]["verdict"] == "not rejected"
+    assert "stops being significant at h = 3" in str(reading)
+    assert len(fig.data) == 5 + 2 * 5               # band, sup-t, estimate, 5 overlays
+    assert "autocorrelated" in assumes
+    _, compare, notes = P.on_lp_flips("lp-test", "kernel", [], "fixed", 3, 0.9, "auto",
+                                      "current", [], session)
+    assert compare[0]["significant_at"] == "0-2" and compare[0]["stops_at"] == "3"
+    assert {r["significant_at"] for r in compare[-2:]} == {"none"}
+    assert "h = 0: b < 15" in str(notes)
+    est = P.lp_estimator("current", "kernel", [], [], "fixed", 3)
+    frame, _, _ = P.lp_table_frame("lp-table", demo_lp, est, 0.9, "auto")
+    np.testing.assert_allclose(frame["ci_low"], t["ci_low"], rtol=1e-12)
+    frame, _, _ = P.lp_table_frame("lp-compare", demo_lp, est, 0.9, "auto")
+    assert list(frame["significant_at"][:1]) == ["0-2"]
+    frame, caption, notes = P.lp_table_frame("lp-paper", demo_lp, est, 0.9, "auto")
+    assert "freight_activity" in caption and len(frame.columns) == 3 + 5
