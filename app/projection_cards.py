@@ -33,9 +33,9 @@ LP_COLUMNS = [V.column("horizon", "h", text=False, width=50),
               V.column("std_error", "std. error", width=90),
               V.column("t_stat", "t", width=70),
               V.column("tuning", "lags / B", text=False, width=80),
-              V.column("pointwise", "pointwise", text=False, width=150),
-              V.column("simultaneous", "sup-t", text=False, width=150),
-              V.column("verdict", "beta_h = 0", text=False, width=110)]
+              V.column("pointwise", "pointwise", text=False, width=140),
+              V.column("simultaneous", "sup-t", text=False, width=140),
+              V.column("verdict", "beta_h = 0", text=False, width=165)]
 LP_COMPARE_COLUMNS = [V.column("estimator", "estimator", text=False, left=True, width=300,
                                tooltip="assumes"),
                       V.column("significant_at", "significant at h", text=False, width=150),
@@ -85,6 +85,12 @@ def lp_cards(card, graph, grid, chart_formats, table_formats):
                        title="a Python script reproducing these bands with the lagwise API")],
         className="lw-export")
 
+    def table(gid, columns):
+        # the cards start hidden: size the columns to the card whenever it is shown or resized
+        g = grid(gid, columns, suppressColumnVirtualisation=True)
+        g.columnSize = "responsiveSizeToFit"
+        return g
+
     def menu(target, formats):
         return html.Div([html.Span("export", className="lw-export-label")] + [
             html.Button(f.upper() if f != "markdown" else "MD",
@@ -116,7 +122,7 @@ def lp_cards(card, graph, grid, chart_formats, table_formats):
             ], className="lw-grid"),
             html.P(id="lp-assumes", className="lw-help lw-assume"),
             html.Ul(id="lp-reading", className="lw-reading-list"),
-            grid("lp-table", LP_COLUMNS, suppressColumnVirtualisation=True),
+            table("lp-table", LP_COLUMNS),
             html.Ul(id="lp-notes", className="lw-notes")],
             export=html.Div([menu("lp-graph", chart_formats), menu("lp-table", table_formats)],
                             className="lw-row")),
@@ -127,7 +133,7 @@ def lp_cards(card, graph, grid, chart_formats, table_formats):
                    "Below: where the response is significant, and where it stops being "
                    "significant, under each estimator.", className="lw-help"),
             graph("lp-flip-graph", 360),
-            grid("lp-compare", LP_COMPARE_COLUMNS, suppressColumnVirtualisation=True),
+            table("lp-compare", LP_COMPARE_COLUMNS),
             html.Ul(id="lp-flip-notes", className="lw-notes")],
             export=html.Div([menu("lp-flip-graph", chart_formats),
                              menu("lp-compare", table_formats), paper], className="lw-row")),

@@ -308,7 +308,7 @@ def _compare_rows(session, lkey, lp, ests, level, reference) -> list[dict]:
             s = lp.bands(e, level, "sup-t", reference, reps=PAGE_SUP_T_REPS)
             sp, ss = significant(p), significant(s)
             _, stop = stop_horizon(sp)
-            return {"estimator": e.label, "assumes": e.assumes,
+            return {"estimator": e.short, "assumes": f"{e.label}: {e.assumes}",
                     "significant_at": runs_text(sp, p.index),
                     "stops_at": "" if stop is None else str(stop),
                     "simultaneous": runs_text(ss, s.index)}
@@ -318,7 +318,7 @@ def _compare_rows(session, lkey, lp, ests, level, reference) -> list[dict]:
         try:
             row = dict(one(e))
         except engine.LagwiseError as exc:
-            row = {"estimator": e.label, "assumes": str(exc), "significant_at": "not available",
+            row = {"estimator": e.short, "assumes": str(exc), "significant_at": "not available",
                    "stops_at": "", "simultaneous": ""}
         if i == 0:
             row["estimator"] += " (the chart's)"
