@@ -18,8 +18,9 @@ from .. import engine
 from .._files import demo_dir, demo_file
 from ..engine.io.lp_tables import lp_script, paper_table
 from ..engine.io.tables import FORMATS, render
-from ..engine.models.lp_inference import (default_estimators, horizon_rule, lag_augmented,
-                                          runs_text, significant, stop_horizon)
+from ..engine.models.lp_inference import (default_estimators, horizon_rule, irf_table,
+                                          lag_augmented, pointwise_bands, runs_text,
+                                          significant, stop_horizon)
 from ..engine.models.lp_inference import PerHorizon
 from . import views as V
 from .derived import dataset_from_bytes, make_estimator, stored
@@ -230,8 +231,9 @@ def on_lp_view(lkey, name, values, rule, slider, level, reference, choice, show,
     reference = reference if isinstance(reference, str) else "auto"
     try:
         est = lp_estimator(choice, name, values, ids, rule, slider)
-        point = lp.bands(est, level, "pointwise", reference)
-        sup = lp.bands(est, level, "sup-t", reference, reps=PAGE_SUP_T_REPS)
+        table = irf_table(lp, est, level, reference)       # one pass over the horizons
+        point = pointwise_bands(lp, est, level, "pointwise", reference, table=table)
+        sup = pointwise_bands(lp, est, level, "sup-t", reference, PAGE_SUP_T_REPS, table=table)
         shown_point, shown_sup, ylabel = point, sup, f"response of {lp.response}"
         if "cumulative" in show:
             cum = lp.cumulative_irf(est, level, reference)
@@ -304,8 +306,9 @@ def _compare_rows(session, lkey, lp, ests, level, reference) -> list[dict]:
         key = key_for(lkey, "lp-sig", spec_hash(e.settings()), level, reference)
 
         def build():
-            p = lp.bands(e, level, "pointwise", reference)
-            s = lp.bands(e, level, "sup-t", reference, reps=PAGE_SUP_T_REPS)
+            table = irf_table(lp, e, level, reference)
+            p = pointwise_bands(lp, e, level, "pointwise", reference, table=table)
+            s = pointwise_bands(lp, e, level, "sup-t", reference, PAGE_SUP_T_REPS, table=table)
             sp, ss = significant(p), significant(s)
             _, stop = stop_horizon(sp)
             return {"estimator": e.short, "assumes": f"{e.label}: {e.assumes}",

@@ -138,6 +138,8 @@ def _prepare(data, response, shock, controls, lags, horizons, cumulative, time, 
         raise _error(SpecificationError, f"horizons must be a whole number >= 0, got "
                      f"{horizons!r}", H=horizons)
     lags, horizons = int(lags), int(horizons)
+    if time is not None and time == frame.index.name:
+        time = None                       # the dates are the index already (load_table)
     if time is not None:
         if not isinstance(time, str) or time not in frame.columns and (
                 table is None or table.labels is None or time not in table.labels.columns):
