@@ -1,5 +1,6 @@
 """Command line: `lagwise table FILE ...` (estimator comparison), `lagwise panel FILE_OR_FOLDER
-...` (panel estimators; a folder of Parquet files runs on Dask) and `lagwise serve [FILE]`."""
+...` (panel estimators; a folder of Parquet files runs on Dask), `lagwise irf FILE ...`
+(impulse responses by local projections; app/cli_irf.py) and `lagwise serve [FILE]`."""
 
 from __future__ import annotations
 
@@ -10,6 +11,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .cli_irf import add_irf_parser   # `lagwise irf`: impulse responses by local projections
 
 def _fmt(x, spec=".4g"):
     if x is None or (isinstance(x, float) and not math.isfinite(x)):
@@ -378,6 +380,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="workers of the local Dask cluster (default 2)")
     _output_arguments(q)
     q.set_defaults(func=cmd_panel)
+    add_irf_parser(sub)
     s = sub.add_parser("serve", help="open the dashboard in the browser (local only)")
     s.add_argument("file", nargs="?", default=None, help="data file (default: the demo data)")
     s.add_argument("--host", default="127.0.0.1",

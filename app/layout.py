@@ -14,6 +14,7 @@ from .state import MAX_UPLOAD_BYTES
 from ..engine.data.reading import MAX_CELLS, MAX_COLUMNS, MAX_LINE_CHARS
 from . import views
 from .work import POLL_MS
+from .projection_cards import lp_cards, lp_sidebar   # the local-projection mode
 
 REFERENCE_OPTIONS = [{"label": REQUEST_LABELS[k], "value": k, "title": text}
                      for k, text in REQUESTS.items()]
@@ -237,6 +238,7 @@ def sidebar(initial_horizon=None, where: str = "this computer"):
         dcc.Checklist(id="intercept", options=[{"label": " intercept", "value": "on"}],
                       value=["on"], className="lw-check"),
         *_model_sections(),
+        lp_sidebar(),
         html.Label("overlap horizon h (periods summed by the response)", className="lw-label"),
         dcc.Input(id="horizon", type="number", min=1, step=1, debounce=True,
                   placeholder="none", className="lw-input", value=initial_horizon),
@@ -409,6 +411,7 @@ def main_area():
             html.P(HELP["headline"], className="lw-help")],
             className="lw-card lw-headline", id="headline-card"),
         sensitivity_card(),
+        lp_cards(card, graph, grid, CHART_FORMATS, TABLE_FORMATS),
         html.Div([
             card("Coefficients", [html.Div(id="coef-caption", className="lw-caption"),
                                   grid("coef-table", views.COEF_COLUMNS),

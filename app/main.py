@@ -17,6 +17,7 @@ from flask import Response, request
 from .._files import assets_dir, demo_file
 from ..engine.data.reading import load_table
 from . import callbacks, exports, studies  # noqa: F401 - their callbacks are recorded on import
+from . import projections  # noqa: F401 - the local-projection mode's callbacks
 from .derived import given_model
 from .layout import build_layout
 from .wiring import register

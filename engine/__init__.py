@@ -44,6 +44,10 @@ from .io.adapters import from_statsmodels
 from .io.robustness import RobustnessTable, robustness_table
 from . import distributed as _distributed  # noqa: F401 - registers the Dask path
 from .kinds import KINDS, ModelKind, kind_of, model_line, register_kind
+# local projections (impulse responses with bands across horizons)
+from .models.local_projections import LocalProjections, fit_local_projections, multiplier
+from .models.lp_inference import (HORIZON_RULES, Bands, LPEstimator, LPSweep, horizon_rule,
+                                  lag_augmented, sup_t_critical_value)
 
 __all__ = [
     "DataError", "EstimationError", "LagwiseError", "LawUnavailable", "SpecificationError",
@@ -62,4 +66,7 @@ __all__ = [
     "BANDWIDTH_RULES", "select_bandwidth", "BandwidthChoice",
     "Inference", "WaldTest", "infer", "SweepResult", "sweep", "Flip", "significance_flip",
     "fixed_b_critical_value", "fixed_b_p_value", "compare", "DiagnosticReport", "diagnose",
+    # local projections
+    "LocalProjections", "fit_local_projections", "multiplier", "HORIZON_RULES", "Bands",
+    "LPEstimator", "LPSweep", "horizon_rule", "lag_augmented", "sup_t_critical_value",
 ]

@@ -560,7 +560,9 @@ def _repeated_dates_note(col, dates) -> str:
     rows = [_row(dates, label) for label in dates.index[(dates == first).to_numpy()]]
     shown = ", ".join(map(str, rows[:5])) + (", ..." if len(rows) > 5 else "")
     others = int(dup.nunique()) - 1
-    when = first.date().isoformat() if first == first.normalize() else str(first)
+    when = str(first)
+    if first == first.normalize():
+        when = when.split(" ")[0]          # the day alone (any year pandas holds)
     return (f"column '{col}' repeats the date {when} (data rows {shown})"
             + (f" and {others} other date(s)" if others else "")
             + "; it is not used as the time index: the rows are kept in file order as one "

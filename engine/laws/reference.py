@@ -148,6 +148,11 @@ def normal_critical(level: float) -> float:
     return _normal_critical(float(level), 1)
 
 
+def t_critical(level: float, df: float) -> float:
+    """The two-sided Student t(df) critical value at `level`."""
+    return float(stats.t.ppf(0.5 + float(level) / 2, df))
+
+
 @functools.lru_cache(maxsize=256)
 def _normal_critical(level: float, restrictions: int) -> float:
     if restrictions == 1:
