@@ -44,6 +44,11 @@ from .io.adapters import from_statsmodels
 from .io.robustness import RobustnessTable, robustness_table
 from . import distributed as _distributed  # noqa: F401 - registers the Dask path
 from .kinds import KINDS, ModelKind, kind_of, model_line, register_kind
+# factor models (issue 24): many assets at once, the joint alpha test, GRS, risk premia
+from .models.factors import (FactorModel, GRSTest, LargeNTest, fit_factor_model, grs_test,
+                             pesaran_yamagata)
+from .models.joint import JointFlip, JointSweep, JointTest, joint_sweep, joint_test
+from .models.risk_premia import RiskPremia, RiskPremiaGMM, fit_risk_premia
 
 __all__ = [
     "DataError", "EstimationError", "LagwiseError", "LawUnavailable", "SpecificationError",
@@ -62,4 +67,8 @@ __all__ = [
     "BANDWIDTH_RULES", "select_bandwidth", "BandwidthChoice",
     "Inference", "WaldTest", "infer", "SweepResult", "sweep", "Flip", "significance_flip",
     "fixed_b_critical_value", "fixed_b_p_value", "compare", "DiagnosticReport", "diagnose",
+    # factor models (issue 24)
+    "FactorModel", "fit_factor_model", "GRSTest", "LargeNTest", "grs_test", "pesaran_yamagata",
+    "JointTest", "JointSweep", "JointFlip", "joint_test", "joint_sweep",
+    "RiskPremia", "RiskPremiaGMM", "fit_risk_premia",
 ]
