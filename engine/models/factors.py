@@ -178,8 +178,13 @@ class FactorModel(StackedModel):
         """The alphas under `est`: estimate, std_error, t_stat, p_value, ci_low, ci_high,
         indexed by asset (each t referred to the estimator's law; Student t laws use each
         asset's own T_i - K - 1)."""
-        part = restricted_inference(self, self.alpha_terms, est, level, reference)
-        return part.table(pd.Index(self.assets, name="asset"), level, self.k)
+        return self.alpha_inference(est, level, reference).table(
+            pd.Index(self.assets, name="asset"), level, self.k)
+
+    def alpha_inference(self, est, level: float = 0.95, reference: str = "auto"):
+        """The alphas' N x N covariance under `est` with its law, label and notes
+        (engine.models.joint.RestrictedInference; `.table(...)` gives `alphas`)."""
+        return restricted_inference(self, self.alpha_terms, est, level, reference)
 
     def check_joint_size(self, nobs: int | None = None, what: str = "the joint test of the "
                                                                       "alphas") -> None:

@@ -84,29 +84,34 @@ class JointTest:
 def wald_statistic(estimate: np.ndarray, cov: np.ndarray, tol: float = RANK_TOL):
     """(W, status, eigenvalue range) of W = b' V^-1 b. status "" (V positive definite),
     "singular" (PSD with an eigenvalue within `tol` of zero relative to the largest) or
-    "not_psd" (a negative eigenvalue beyond `tol`); W is NaN unless status is ""."""
+    "not_psd" (a negative eigenvalue beyond `tol`); W is NaN unless status is "". The common
+    case is one Cholesky factor; the eigenvalues are computed only when its pivots come near
+    the threshold or it fails."""
     v = 0.5 * (cov + cov.T)
     b = np.asarray(estimate, dtype=float)
-    if np.all(np.isfinite(v)):
-        try:
-            chol = np.linalg.cholesky(v)
-            d = np.diag(chol) ** 2
-            if d.min() > 1e3 * tol * d.max():        # far from the threshold: no eigenvalues
-                u = sla.solve_triangular(chol, b, lower=True, check_finite=False)
-                return float(u @ u), "", None
-        except np.linalg.LinAlgError:
-            pass
-    else:
+    if not np.all(np.isfinite(v)):
         return float("nan"), "singular", (float("nan"), float("nan"))
-    vals, vecs = np.linalg.eigh(v)
+    try:
+        chol = np.linalg.cholesky(v)
+    except np.linalg.LinAlgError:
+        chol = None
+    if chol is not None:
+        d = np.diag(chol) ** 2
+        if d.min() > 1e3 * tol * d.max():            # far from the threshold
+            u = sla.solve_triangular(chol, b, lower=True, check_finite=False)
+            return float(u @ u), "", None
+    vals = np.linalg.eigvalsh(v)
     top = max(float(np.abs(vals).max()), np.finfo(float).tiny)
     span = (float(vals[0]), float(vals[-1]))
     if vals[0] < -tol * top:
         return float("nan"), "not_psd", span
     if vals[0] <= tol * top:
         return float("nan"), "singular", span
-    coords = vecs.T @ b
-    return float((coords**2 / vals).sum()), "", span
+    if chol is not None:
+        u = sla.solve_triangular(chol, b, lower=True, check_finite=False)
+        return float(u @ u), "", span
+    vals, vecs = np.linalg.eigh(v)
+    return float(((vecs.T @ b) ** 2 / vals).sum()), "", span
 
 
 def _positions(model, terms) -> np.ndarray:
@@ -438,6 +443,7 @@ def joint_sweep(model, terms, estimators, values=None, reference: str = "auto") 
     involved[idx] = True
     info = ModelInfo(model.nobs, model.df_resid)
     beta = np.asarray(model.beta)[idx]
+    _fill_caches(model, [model.terms[i] for i in idx], ests)
     for c, est in enumerate(ests):
         covs, runs = _curve_covariances(model, idx, est, v)
         for i in range(n):
@@ -465,6 +471,16 @@ def joint_sweep(model, terms, estimators, values=None, reference: str = "auto") 
                       values=v, restrictions=[model.terms[i] for i in idx],
                       reference=reference, symbol=family.axis.symbol, title=family.axis.title,
                       nobs=model.nobs, **out)
+
+
+def _fill_caches(model, terms, estimators) -> None:
+    """A kernel weighting every lag needs every lag's autocovariances: fill the view's and the
+    diagonal caches once, before the finite kernels would fill them to fewer lags first."""
+    kernels = [get_kernel(e.family.kernel_of(e.params)) for e in estimators
+               if e.family.kernel_of(e.params) is not None]
+    if any(k.psd and not k.finite_support for k in kernels):
+        restricted_view(model, terms).moments.ensure(model.nobs - 1)
+        _moment_diagonal(model).ensure(model.nobs - 1)
 
 
 def _curve_covariances(model, idx, est, values):
@@ -517,12 +533,13 @@ def _repaired_path(model, idx, est, kern, values):
     covs = np.empty((len(b), len(idx), len(idx)))
     runs = []
     p = est.params
+    model.moments.ensure(int(kern.lags_many(b, model.nobs).max()))   # once, every batch's lags
     for start in range(0, len(b), REPAIR_BATCH):
         part = b[start: start + REPAIR_BATCH]
         s, lags, _, status = longrun.kernel_many(model, kern, part,
                                                  small_sample=p.get("small_sample", False),
                                                  repair=True)
-        covs[start: start + len(part)] = model.nobs * np.einsum("ia,nab,jb->nij", mr, s, mr)
+        covs[start: start + len(part)] = model.nobs * (mr @ s @ mr.T)
         for x, n_lags, st in zip(part, lags, status):
             lr = longrun.LongRun(S=None, bandwidth=float(x), lags=int(n_lags), tuning=float(x))
             if st == "collapsed":
@@ -566,11 +583,17 @@ def rule_landings(model, estimators) -> list[tuple[int, str, str, float]]:
             continue
         for key, (title, changes) in axis.rules.items():
             try:
-                lr = est.with_params(**changes).long_run(model)
+                point = est.with_params(**changes)
+                name = point.family.kernel_of(point.params)
+                if name is not None:            # a kernel weighting: the rule's b, no estimate
+                    value = resolve_bandwidth(model, get_kernel(name),
+                                              point.params["bandwidth"]).b
+                else:
+                    value = point.long_run(model).tuning
             except LagwiseError:
                 continue
-            if lr.tuning is not None and np.isfinite(lr.tuning):
-                out.append((c, key, title, float(lr.tuning)))
+            if value is not None and np.isfinite(value):
+                out.append((c, key, title, float(value)))
     return out
 
 

@@ -419,6 +419,16 @@ class RiskPremiaGMM:
         return fit.j_test()
 
 
+def risk_premia_of(factor_model, zero_beta: bool = False, method: str = "two-pass",
+                   estimator="hc0"):
+    """The risk premia of a fitted factor model's assets and factors (its excess returns, on the
+    balanced subsample): the same as `fit_risk_premia` on the data it was fitted on."""
+    fm = factor_model
+    frame = fm.returns.join(fm.factor_values)
+    return fit_risk_premia(frame, fm.assets, fm.factors, method=method, zero_beta=zero_beta,
+                           estimator=estimator)
+
+
 def fit_risk_premia(data, assets, factors, time: str | None = None,
                     method: str = "two-pass", risk_free: str | None = None, sample=None,
                     zero_beta: bool = False, estimator="hc0"):
