@@ -467,6 +467,30 @@ def _output_arguments(parser) -> None:
     parser.add_argument("--output", default=None, help="write to this file instead of stdout")
 
 
+def _factors_parser(sub) -> None:
+    """`lagwise factors` (issue 24: factor models)."""
+    fa = sub.add_parser("factors", help="a factor model: every asset's alpha, the joint test "
+                                        "that all alphas are zero under every estimator, GRS "
+                                        "and the risk premia")
+    fa.add_argument("file", help="CSV or Parquet file, one row per period")
+    fa.add_argument("--assets", required=True, help="the test assets' columns (comma-separated)")
+    fa.add_argument("--factors", required=True, help="the factor columns (comma-separated)")
+    fa.add_argument("--risk-free", default=None, metavar="COL",
+                    help="a column subtracted from every asset (default: the assets are excess "
+                         "returns already)")
+    fa.add_argument("--time", default=None, metavar="COL",
+                    help="the column holding the periods (default: the file's date column)")
+    fa.add_argument("--balanced", action="store_true",
+                    help="keep only the periods in which every asset is observed")
+    fa.add_argument("--kernel", default=None, help="the kernel of the alpha table's HAC column "
+                                                   "and the flips (default bartlett)")
+    fa.add_argument("--zero-beta", action="store_true",
+                    help="a zero-beta rate (intercept) in the cross-sectional regression")
+    fa.add_argument("--no-premia", action="store_true", help="leave out the risk premia")
+    _output_arguments(fa)
+    fa.set_defaults(func=cmd_factors)
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="lagwise", description="Robust standard errors for "
                                 "time-series regressions, and how they depend on the lag choice.")
@@ -529,26 +553,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="workers of the local Dask cluster (default 2)")
     _output_arguments(q)
     q.set_defaults(func=cmd_panel)
-    fa = sub.add_parser("factors", help="a factor model: every asset's alpha, the joint test "
-                                        "that all alphas are zero under every estimator, GRS "
-                                        "and the risk premia")
-    fa.add_argument("file", help="CSV or Parquet file, one row per period")
-    fa.add_argument("--assets", required=True, help="the test assets' columns (comma-separated)")
-    fa.add_argument("--factors", required=True, help="the factor columns (comma-separated)")
-    fa.add_argument("--risk-free", default=None, metavar="COL",
-                    help="a column subtracted from every asset (default: the assets are excess "
-                         "returns already)")
-    fa.add_argument("--time", default=None, metavar="COL",
-                    help="the column holding the periods (default: the file's date column)")
-    fa.add_argument("--balanced", action="store_true",
-                    help="keep only the periods in which every asset is observed")
-    fa.add_argument("--kernel", default=None, help="the kernel of the alpha table's HAC column "
-                                                   "and the flips (default bartlett)")
-    fa.add_argument("--zero-beta", action="store_true",
-                    help="a zero-beta rate (intercept) in the cross-sectional regression")
-    fa.add_argument("--no-premia", action="store_true", help="leave out the risk premia")
-    _output_arguments(fa)
-    fa.set_defaults(func=cmd_factors)
+    _factors_parser(sub)
     s = sub.add_parser("serve", help="open the dashboard in the browser (local only)")
     s.add_argument("file", nargs="?", default=None, help="data file (default: the demo data)")
     s.add_argument("--host", default="127.0.0.1",

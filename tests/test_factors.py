@@ -741,6 +741,16 @@ def test_bad_inputs_are_typed_errors_naming_the_culprit():
 # The demo's statement in the README
 # =============================================================================================
 
+def test_readme_factor_example_runs(monkeypatch):
+    block = [b for b in re.findall(r"```python\n(.*?)```", (ROOT / "README.md").read_text(),
+                                   flags=re.S) if "fit_factor_model(" in b][0]
+    monkeypatch.chdir(ROOT)
+    namespace = {"lagwise": lagwise}
+    exec(compile(block, "README.md", "exec"), namespace)   # noqa: S102 - our own docs
+    fm, rp = namespace["fm"], namespace["rp"]
+    assert fm.alpha_terms[0] == "P01:alpha" and rp.premia.index.tolist() == DEMO_FACTORS
+
+
 def test_readme_demo_statement_holds():
     """README: on the factor demo the joint test of the 25 alphas does not reject at 5% under
     the classical, HC0 and HC1 estimators nor under GRS, and rejects under kernel HAC with every
@@ -771,3 +781,35 @@ def test_readme_demo_statement_holds():
             assert jt.p_value < 0.05, (kernel, rule)
             checked += 1
     assert checked >= len(lagwise.KERNELS) + 4
+    # the numbers the paragraph quotes
+    quoted = [round(fm.alpha_test(e).p_value, 2) for e in ("classical", "hc0", "hc1")]
+    assert f"(p = {quoted[0]:.2f}, {quoted[1]:.2f}, {quoted[2]:.2f})" in text
+    assert f"nor under GRS (p = {fm.grs().p_value:.2f})" in text
+    sweep = fm.joint_sweep(fm.kernel_estimators())
+    assert f"rejecting at b = {sweep.flip('bartlett').changes[0]:g}" in text
+    ewc = fm.joint_sweep([lagwise.estimator("ewc")]).flip(0)
+    (a, b, s1), (c, d, s2) = [seg for seg in ewc.segments if seg[2] is not None][:2]
+    assert (s1, s2) == (False, True)
+    assert f"does not reject for B = {a:g}..{b:g} and rejects from B = {c:g}" in text
+
+
+@pytest.mark.slow
+def test_demo_split_appears_in_most_simulated_samples():
+    """The README: in seeded simulations of the demo's scenario the same split (classical,
+    HC0, HC1 and GRS do not reject; every kernel at the Andrews bandwidth rejects) appears in
+    most samples. Ten seeds of demo_data/make_factor_demo.py's generator."""
+    import importlib.util
+    spec = importlib.util.spec_from_file_location("make_factor_demo",
+                                                  ROOT / "demo_data" / "make_factor_demo.py")
+    gen = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(gen)
+    split = 0
+    for seed in range(1, 11):
+        frame = gen.simulate(seed).set_index("date")
+        fm = lagwise.fit_factor_model(frame, DEMO_ASSETS, DEMO_FACTORS, risk_free="rf")
+        iid = min(fm.alpha_test(e).p_value for e in ("classical", "hc0", "hc1"))
+        iid = min(iid, fm.grs().p_value)
+        hac = max(fm.alpha_test(lagwise.estimator("kernel", kernel=k, bandwidth="andrews"))
+                  .p_value for k in lagwise.KERNELS)
+        split += iid > 0.05 and hac < 0.05
+    assert split >= 8
