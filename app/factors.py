@@ -73,7 +73,7 @@ def _menu(target: str, formats) -> html.Div:
     """Export buttons of a factor card (handled by this module's own export callback)."""
     return html.Div([html.Span("export", className="lw-export-label")] + [
         html.Button(fmt.upper() if fmt != "markdown" else "MD",
-                    id={"type": "fm-export", "target": target, "fmt": fmt}, n_clicks=0,
+                    id={"type": "fm-export", "target": target, "format": fmt}, n_clicks=0,
                     className="lw-export-btn", title=f"download as {fmt}")
         for fmt in formats], className="lw-export")
 
@@ -813,7 +813,7 @@ EXPORT_STATE = [State("session", "data"), State("fit-key", "data"), State("est-n
 
 
 @callback(Output("download", "data", allow_duplicate=True),
-          Input({"type": "fm-export", "target": ALL, "fmt": ALL}, "n_clicks"),
+          Input({"type": "fm-export", "target": ALL, "format": ALL}, "n_clicks"),
           State("fm-alpha-graph", "figure"), State("fm-joint-graph", "figure"), *EXPORT_STATE,
           prevent_initial_call=True)
 def on_factor_export(clicks, alpha_fig, joint_fig, session, fkey, name, values, ids, rule,
@@ -821,7 +821,7 @@ def on_factor_export(clicks, alpha_fig, joint_fig, session, fkey, name, values, 
     trig = ctx.triggered_id
     if not isinstance(trig, dict) or not any(c for c in clicks or [] if c):
         raise PreventUpdate
-    target, fmt = trig.get("target"), trig.get("fmt")
+    target, fmt = trig.get("target"), trig.get("format")
     try:
         model = _factor_model(session, fkey)
         if model is None:

@@ -28,6 +28,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+from hypothesis import given, settings, strategies as st
 from scipy import stats
 
 import lagwise
@@ -490,6 +491,29 @@ def test_joint_sweep_equals_alpha_test_at_every_setting(ests):
                 v_aa = res.cov.loc[fm.alpha_terms, fm.alpha_terms].to_numpy()
                 w, status, _ = wald_statistic(fm.alpha.to_numpy(), v_aa)
                 assert abs(w / jt.statistic - 1) < 1e-10
+
+
+@settings(max_examples=25, deadline=None)
+@given(seed=st.integers(0, 10_000), n=st.integers(2, 6), b=st.floats(0.5, 15.0),
+       kernel=st.sampled_from(sorted(lagwise.KERNELS)), scale=st.floats(0.01, 100.0))
+def test_joint_statistic_properties(seed, n, b, kernel, scale):
+    """Property: at any kernel and bandwidth the sweep's W equals alpha_test's, and W does not
+    change when the assets are listed in another order or every return is rescaled."""
+    df = gappy(seed=seed, t=80, n=n, k=1, rho=0.3)
+    names = [f"a{i}" for i in range(n)]
+    est = lagwise.estimator("kernel", kernel=kernel, bandwidth=b)
+    fm = lagwise.fit_factor_model(df, names, ["f0"])
+    try:
+        jt = fm.alpha_test(est)
+    except lagwise.EstimationError:
+        return                                         # a singular covariance: no statistic
+    sweep = fm.joint_sweep([est], [b])
+    assert abs(sweep.statistic[0, 0] / jt.statistic - 1) < 1e-10
+    perm = list(np.random.default_rng(seed).permutation(names))
+    scaled = df.copy()
+    scaled[names + ["f0"]] *= scale
+    other = lagwise.fit_factor_model(scaled, perm, ["f0"]).alpha_test(est)
+    assert abs(other.statistic / jt.statistic - 1) < 1e-8
 
 
 def test_flips_rules_and_the_ewc_grid():

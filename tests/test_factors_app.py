@@ -128,6 +128,19 @@ def test_callbacks_through_the_store_and_the_exports():
     assert "lagwise.fit_factor_model(table" in script and "fit.alpha_test(est" in script
 
 
+def test_show_opens_a_factor_model_as_it_is(fm):
+    """lagwise.show on a factor model fitted in Python: its kind has a recipe but no table to
+    refit from, so the page opens on the model itself (with the factor cards)."""
+    import json
+    from lagwise.app.main import create_app
+    assert fm.table is None and lagwise.kind_of(fm).recipe is not None
+    app = create_app(model=fm)
+    client = app.server.test_client()
+    client.get("/")
+    layout = json.dumps(client.get("/_dash-layout").get_json())
+    assert '"fm-cards"' in layout and '"given_fit": true' in layout
+
+
 def test_the_exported_script_reproduces_the_numbers(tmp_path, capsys, fm):
     est = lagwise.estimator("kernel", kernel="bartlett", bandwidth="andrews")
     script = FA.factor_script(lagwise.load_table(DEMO), fm, est, 0.95, "auto")
