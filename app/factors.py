@@ -360,7 +360,7 @@ def alpha_figure(table: pd.DataFrame, label: str, level: float, how: str = "asse
 
 #: p-values below this are drawn at it (the log axis needs a floor; the hover shows the value).
 P_FLOOR = 1e-6
-P_TICKS = [1e-6, 1e-5, 1e-4, 1e-3, 0.01, 0.05, 0.1, 0.2, 0.5, 1.0]
+P_TICKS = [1e-6, 1e-5, 1e-4, 1e-3, 0.01, 0.05, 0.2, 1.0]
 
 
 def p_words(p) -> str:
@@ -435,10 +435,10 @@ def joint_figure(sweep, level: float, grs=None, marks=(), current=None,
                                for t in ticks],
                      title_text="p-value of the joint test (log scale)")
     if finite.size and finite.min() < P_FLOOR:
-        fig.add_annotation(x=0, xref="paper", y=0, yref="paper", xanchor="left",
-                           yanchor="bottom", showarrow=False,
+        fig.add_annotation(x=1, xref="paper", y=0, yref="paper", xanchor="right",
+                           yanchor="bottom", yshift=4, showarrow=False,
                            text=f"p-values below {P_FLOOR:g} are drawn at {P_FLOOR:g}",
-                           font={"size": 10, "color": MUTED})
+                           font={"size": 10, "color": MUTED}, bgcolor="rgba(255,255,255,0.85)")
     fig.update_xaxes(title_text=sweep.title)
     n = sweep.df
     return _style(fig, f"Joint test that all {n} alphas are zero, along the {sweep.title}", 440)
