@@ -528,30 +528,38 @@ def premia_notes(rp, tests, gmm_note, est_label):
     return out
 
 
-def joint_text(model, est, level, reference):
-    """The joint test at the current setting, GRS, and (when N >= T - K) the large-N test."""
-    lines = []
+def _grs_or_reason(model):
+    """(GRS, None) or (None, why not with the large-N test's summary when it applies)."""
     try:
-        jt = model.alpha_test(est, reference=reference, level=level)
+        return model.grs(), None
+    except engine.LagwiseError as exc:
+        why = f"GRS not available: {exc}"
+        try:
+            why += f". {model.large_n_test().summary()}"
+        except engine.LagwiseError:
+            pass
+        return None, why
+
+
+def joint_text(model, jt, grs, level):
+    """The joint test at the current setting (a JointTest or why there is none), GRS (or why
+    not, with the large-N test when N >= T - K)."""
+    lines = []
+    if isinstance(jt, str):
+        lines.append(html.Li(f"Joint test under this estimator: not available. {jt}"))
+    else:
         verdict = "rejected" if jt.rejects(level) else "not rejected"
         lines.append(html.Li([html.Strong(f"All {model.n_assets} alphas zero: {verdict} at "
                                           f"{1 - level:.0%}"),
                               f" (W = {V.fmt(jt.statistic, 4)}, {jt.law}, "
                               f"{p_words(jt.p_value)}; {jt.estimator})"]))
-    except engine.LagwiseError as exc:
-        lines.append(html.Li(f"Joint test under this estimator: not available. {exc}"))
-    try:
-        g = model.grs()
+    g, why = grs
+    if g is None:
+        lines.append(html.Li(why))
+    else:
         lines.append(html.Li(f"GRS = {V.fmt(g.statistic, 4)}, F({g.df[0]}, {g.df[1]}), "
                              f"{p_words(g.p_value)}. {g.assumptions}"
                              + (f"; {g.notes[0]}" if len(g.notes) > 1 else "")))
-    except engine.LagwiseError as exc:
-        lines.append(html.Li(f"GRS not available: {exc}"))
-        try:
-            py = model.large_n_test()
-            lines.append(html.Li(py.summary()))
-        except engine.LagwiseError:
-            pass
     return html.Ul(lines, className="lw-reading-list")
 
 
@@ -647,11 +655,13 @@ def on_factor_alphas(fkey, name, values, rule, slider, reference, level, sort, i
         part = model.alpha_inference(est, level, reference)
         table = part.table(pd.Index(model.assets, name="asset"), level, model.k)
         try:
-            jt = model.alpha_test(est, reference=reference, level=level)
-        except engine.LagwiseError:
-            jt = None
-        fig = alpha_figure(table, part.label, level, sort or "asset", jt)
-        text = joint_text(model, est, level, reference)
+            jt = model.alpha_test_from(part)
+        except engine.LagwiseError as exc:
+            jt = str(exc)
+        grs = STORE.derived(session, key_for(fkey, "fm-grs"), lambda: _grs_or_reason(model))
+        fig = alpha_figure(table, part.label, level, sort or "asset",
+                           None if isinstance(jt, str) else jt)
+        text = joint_text(model, jt, grs, level)
     except engine.LagwiseError as exc:
         return {}, empty_figure(str(exc)), V.error_box(str(exc))
     return {}, fig, text

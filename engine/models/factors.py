@@ -44,8 +44,8 @@ from ..covariance.registry import estimator as make_estimator
 from ..data.columns import INTERCEPT, SampleInfo, as_list, frame_and_meta, index_label
 from ..data.dates import parse_dates
 from ..errors import DataError, EstimationError, SpecificationError
-from .joint import (JointSweep, JointTest, joint_sweep, joint_test, restricted_inference,
-                    rule_landings)
+from .joint import (JointSweep, JointTest, joint_sweep, joint_test_from,
+                    restricted_inference, rule_landings)
 from .ols import OLSFit, collinearity_message
 from .stacked import StackedModel
 
@@ -203,8 +203,12 @@ class FactorModel(StackedModel):
         law for N restrictions: chi-square(N) (large-sample), F(N, B - N + 1) of the scaled
         statistic (EWC, needs B >= N), F(N, df) of W/N (Student t laws: the smallest T_i - K -
         1), fixed-b where the tables cover N <= 5 (refused otherwise)."""
+        return self.alpha_test_from(self.alpha_inference(est, level, reference))
+
+    def alpha_test_from(self, part) -> JointTest:
+        """The joint alpha test from `alpha_inference(...)` already made."""
         self.check_joint_size()
-        out = joint_test(self, self.alpha_terms, est, reference=reference, level=level)
+        out = joint_test_from(self, part)
         out.notes.append(f"{self.n_assets} alphas on {self.n_factors} factors, T = {self.nobs}")
         return out
 

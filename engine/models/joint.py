@@ -235,7 +235,12 @@ def restricted_inference(model, terms, est, level: float = 0.95,
 def joint_test(model, terms, est, reference: str = "auto", level: float = 0.95) -> JointTest:
     """The Wald test that every coefficient in `terms` is zero under `est` and the reference
     law asked for (module docstring)."""
-    part = restricted_inference(model, terms, est, level, reference)
+    return joint_test_from(model, restricted_inference(model, terms, est, level, reference))
+
+
+def joint_test_from(model, part: RestrictedInference) -> JointTest:
+    """The joint test from a restricted inference already made (one estimate of S serves the
+    coefficients' table and their joint test)."""
     idx = part.positions
     m = len(idx)
     involved = np.zeros(len(model.terms), dtype=bool)
