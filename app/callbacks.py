@@ -24,6 +24,7 @@ from ..engine.data.panels import periods_of
 from ..engine.kinds import kind_of
 from . import figures as F
 from . import views as V
+from .factors import factor_fit
 from .derived import (comparison_for, current_curve, dataset_from_bytes, diagnostics_for,
                       flip_for, is_gmm, make_estimator, no_model_message,
                       panel_reference_lines, rule_marks, stored, strength_for, sweep_for,
@@ -172,13 +173,15 @@ def on_iv_options(columns, response, regressors, endogenous, instruments):
           Input("intercept", "value"), Input("horizon", "value"), Input("window", "value"),
           Input("endogenous", "value"), Input("instruments", "value"),
           Input("entity", "value"), Input("time-col", "value"), Input("effects", "value"),
-          Input("one-period", "value"),
+          Input("one-period", "value"), Input("fm-spec", "data"),
           State("focus", "value"), State("session", "data"), State("initial-spec", "data"),
           State("fit-key", "data"), message=1, running=RUNNING)
 def on_spec(key, response, regressors, intercept, horizon, window, endogenous, instruments,
-            entity, time, effects, one_period, focus, session, initial, given=None):
+            entity, time, effects, one_period, factor_spec, focus, session, initial, given=None):
     if isinstance(initial, dict) and initial.get("given_fit"):
         return _given_spec(session, given, focus)
+    if isinstance(factor_spec, dict) and factor_spec.get("on"):      # the factor-model mode
+        return factor_fit(session, key, factor_spec, window, focus)
     table = stored(session, key)
     if table is None or not isinstance(response, str) or not response:
         return None, "", [], None, "", no_update, no_update

@@ -302,6 +302,157 @@ def cmd_panel(args) -> int:
     return write_output(args, fit, comp, extra, "standard errors across panel estimators")
 
 
+# --------------------------------------------------------------------------- factor models
+# (issue 24) `lagwise factors FILE --assets ... --factors ... [--risk-free COL]`
+
+def factor_estimators(fm, kernel: str):
+    """The alpha table's columns: classical, HC1, the kernel at the Andrews bandwidth, EWC."""
+    from .. import engine
+    return [engine.estimator("classical"), engine.estimator("hc1"),
+            engine.estimator("kernel", kernel=kernel, bandwidth="andrews"),
+            engine.estimator("ewc")]
+
+
+def factor_alpha_frame(fm, ests, level, reference):
+    """Long frame: one row per asset and estimator (the numbers the text and formats show)."""
+    import pandas as pd
+    from .. import engine
+    parts = []
+    for est in ests:
+        try:
+            part = fm.alpha_inference(est, level=level, reference=reference)
+            tab = part.table(pd.Index(fm.assets, name="asset"), level, fm.k).reset_index()
+            tab.insert(1, "estimator", part.label)
+            tab["reference"] = part.law.describe()
+            parts.append(tab)
+        except engine.LagwiseError as exc:
+            print(f"lagwise: {est.label}: {exc}", file=sys.stderr)
+    return pd.concat(parts, ignore_index=True)
+
+
+def factor_joint_lines(fm, kernel: str, level: float, reference: str) -> list[str]:
+    """GRS, the joint Wald under every estimator family's default and each kernel's rules, and
+    where the conclusion changes along the bandwidth."""
+    from .. import engine
+    lines = ["", f"Joint test that all {fm.n_assets} alphas are zero ({1 - level:.0%} level)"]
+    try:
+        g = fm.grs()
+        lines.append(f"  {'GRS (exact F under iid normal errors)':<52}F = {g.statistic:8.4g}  "
+                     f"F({g.df[0]}, {g.df[1]})  p {_p(g.p_value)}")
+        lines += [f"    note: {n}" for n in g.notes[:-1]]
+    except engine.LagwiseError as exc:
+        lines.append(f"  GRS not available: {exc}")
+        try:
+            py = fm.large_n_test()
+            lines.append(f"  {'Pesaran-Yamagata (2024), large N':<52}J = {py.statistic:8.4g}"
+                         f"  N(0,1) one-sided  p {_p(py.p_value)}")
+        except engine.LagwiseError as exc2:
+            lines.append(f"  large-N test not available: {exc2}")
+    ests = [engine.estimator("classical"), engine.estimator("hc0"), engine.estimator("hc1")]
+    for name in engine.KERNELS:
+        for rule in ("andrews", "newey-west"):
+            ests.append(engine.estimator("kernel", kernel=name, bandwidth=rule))
+    ests.append(engine.estimator("ewc"))
+    for est in ests:
+        try:
+            jt = fm.alpha_test(est, reference=reference, level=level)
+        except engine.LagwiseError as exc:
+            if "not defined for the" in str(exc):
+                continue                         # a rule that does not exist for this kernel
+            lines.append(f"  {est.label:<52}not available: {str(exc).split(':')[0]}")
+            continue
+        lines.append(f"  {jt.estimator:<52}W = {jt.statistic:8.4g}  {jt.law:<34} p "
+                     f"{_p(jt.p_value)}")
+    try:
+        sweep = fm.joint_sweep(fm.kernel_estimators(), reference=reference)
+        lines += ["", f"Where the joint conclusion changes along the bandwidth "
+                      f"(b = {sweep.values[0]:g}..{sweep.values[-1]:g})"]
+        what = f"all {fm.n_assets} alphas zero"
+        lines += ["  " + f.sentence() for f in sweep.flips(level, what)]
+        marks = [f"{title} {value:.3g}" for c, _, title, value
+                 in fm.rule_landings(sweep.estimators) if c == sweep.curve_index(kernel)]
+        lines.append(f"  automatic bandwidths ({sweep.labels[sweep.curve_index(kernel)]}): "
+                     + "; ".join(marks))
+        ewc = fm.joint_sweep([engine.estimator("ewc")], reference=reference)
+        lines.append("  " + ewc.flip(0, level, what).sentence()
+                     + f" EWC's F law needs B >= N = {fm.n_assets}.")
+    except engine.LagwiseError as exc:
+        lines.append(f"  the joint test along the bandwidth is not available: {exc}")
+    return lines
+
+
+def factor_premia_lines(args, kernel: str, level: float) -> list[str]:
+    from .. import engine
+    est = engine.estimator("kernel", kernel=kernel, bandwidth="andrews")
+    try:
+        rp = engine.fit_risk_premia(engine.load_table(args.file), args.assets, args.factors,
+                                    time=args.time, risk_free=args.risk_free,
+                                    zero_beta=args.zero_beta)
+        tab = rp.corrections(est, level=level)
+    except engine.LagwiseError as exc:
+        return ["", f"Risk premia not available: {exc}"]
+    lines = ["", f"Risk premia (two-pass, balanced subsample of {rp.nobs} periods; "
+                 f"cross-sectional R^2 {rp.r_squared:.3f}); standard errors under {est.label}"]
+    cols = ["none", "shanken", "krs", "mean"]
+    heads = {"none": "Fama-MacBeth", "shanken": "Shanken", "krs": "KRS robust",
+             "mean": "mean (traded)"}
+    lines.append(f"  {'premium':<14}{'estimate':>11}" + "".join(f"{heads[c]:>19}" for c in cols))
+    for name in rp.premia.index:
+        row = [f"  {name:<14}{rp.premia[name]:>11.4g}"]
+        for c in cols:
+            hit = tab[(tab.premium == name) & (tab.correction == c)]
+            cell = "" if hit.empty else (f"{_fmt(hit.std_error.iloc[0])} "
+                                         f"({_fmt(hit.t_stat.iloc[0], '.2f')})")
+            row.append(f"{cell:>19}")
+        lines.append("".join(row))
+    lines.append("  standard errors with t statistics in parentheses; 'mean' prices a traded "
+                 "factor by its time-series mean")
+    return lines
+
+
+def cmd_factors(args) -> int:
+    from ..engine.io.tables import render
+    from .. import engine
+    bar = progress_bar(3, "reading the file")
+    table = engine.load_table(args.file)
+    bar.update(1)
+    bar.set_description("fitting")
+    fm = engine.fit_factor_model(table, args.assets, args.factors, time=args.time,
+                                 risk_free=args.risk_free, balanced=args.balanced)
+    kernel = args.kernel or "bartlett"
+    frame = factor_alpha_frame(fm, factor_estimators(fm, kernel), args.level, args.reference)
+    bar.update(1)
+    bar.set_description("joint tests")
+    if args.format != "text":
+        bar.close()
+        out = render(frame, args.format, index=False,
+                     caption=f"{engine.model_line(fm)}: alphas under each estimator")
+    else:
+        lines = [f"Lagwise factor model: {engine.model_line(fm)}"]
+        lines += [f"  note: {n}" for n in fm.sample.notes]
+        labels = list(dict.fromkeys(frame.estimator))
+        lines += ["", f"Alphas and t statistics under each estimator ({args.level:.0%} level)"]
+        lines += [f"  ({i + 1}) {lab}" for i, lab in enumerate(labels)]
+        lines.append(f"  {'asset':<12}{'alpha':>11}" + "".join(
+            f"{f'({i + 1}) t':>10}{'p':>8}" for i in range(len(labels))))
+        for asset in fm.assets:
+            rows = frame[frame.asset == asset].set_index("estimator")
+            cells = "".join(f"{_fmt(rows.t_stat.get(lab), '.2f'):>10}{_p(rows.p_value.get(lab)):>8}"
+                            for lab in labels)
+            lines.append(f"  {asset:<12}{fm.alpha[asset]:>11.4g}{cells}")
+        lines += factor_joint_lines(fm, kernel, args.level, args.reference)
+        if not args.no_premia:
+            lines += factor_premia_lines(args, kernel, args.level)
+        bar.close()
+        out = "\n".join(lines) + "\n"
+    if args.output:
+        Path(args.output).write_text(out)
+        print(f"wrote {args.output}", file=sys.stderr)
+    else:
+        sys.stdout.write(out)
+    return 0
+
+
 def cmd_serve(args) -> int:
     from .main import serve
     return serve(args.file, host=args.host, port=args.port, debug=args.debug,
@@ -316,6 +467,30 @@ def _output_arguments(parser) -> None:
     parser.add_argument("--format", default="text",
                         choices=["text", "csv", "markdown", "latex", "html"])
     parser.add_argument("--output", default=None, help="write to this file instead of stdout")
+
+
+def _factors_parser(sub) -> None:
+    """`lagwise factors` (issue 24: factor models)."""
+    fa = sub.add_parser("factors", help="a factor model: every asset's alpha, the joint test "
+                                        "that all alphas are zero under every estimator, GRS "
+                                        "and the risk premia")
+    fa.add_argument("file", help="CSV or Parquet file, one row per period")
+    fa.add_argument("--assets", required=True, help="the test assets' columns (comma-separated)")
+    fa.add_argument("--factors", required=True, help="the factor columns (comma-separated)")
+    fa.add_argument("--risk-free", default=None, metavar="COL",
+                    help="a column subtracted from every asset (default: the assets are excess "
+                         "returns already)")
+    fa.add_argument("--time", default=None, metavar="COL",
+                    help="the column holding the periods (default: the file's date column)")
+    fa.add_argument("--balanced", action="store_true",
+                    help="keep only the periods in which every asset is observed")
+    fa.add_argument("--kernel", default=None, help="the kernel of the alpha table's HAC column "
+                                                   "and the flips (default bartlett)")
+    fa.add_argument("--zero-beta", action="store_true",
+                    help="a zero-beta rate (intercept) in the cross-sectional regression")
+    fa.add_argument("--no-premia", action="store_true", help="leave out the risk premia")
+    _output_arguments(fa)
+    fa.set_defaults(func=cmd_factors)
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -381,6 +556,7 @@ def build_parser() -> argparse.ArgumentParser:
     _output_arguments(q)
     q.set_defaults(func=cmd_panel)
     add_irf_parser(sub)
+    _factors_parser(sub)
     s = sub.add_parser("serve", help="open the dashboard in the browser (local only)")
     s.add_argument("file", nargs="?", default=None, help="data file (default: the demo data)")
     s.add_argument("--host", default="127.0.0.1",

@@ -69,6 +69,10 @@ HELP = {
                 "Choose the estimator before looking at the results, and report the range "
                 "the sensitivity chart shows.",
 }
+#: Sidebar sections and main-area cards of optional modes: builders (no arguments) that modules
+#: register at import (app/factors.py: the factor-model mode); called on every page build.
+SIDEBAR_EXTRAS: list = []
+MAIN_EXTRAS: list = []
 CHART_FORMATS = ("png", "svg", "pdf")
 TABLE_FORMATS = ("csv", "markdown", "latex")
 
@@ -239,6 +243,7 @@ def sidebar(initial_horizon=None, where: str = "this computer"):
                       value=["on"], className="lw-check"),
         *_model_sections(),
         lp_sidebar(),
+        *[build() for build in SIDEBAR_EXTRAS],
         html.Label("overlap horizon h (periods summed by the response)", className="lw-label"),
         dcc.Input(id="horizon", type="number", min=1, step=1, debounce=True,
                   placeholder="none", className="lw-input", value=initial_horizon),
@@ -410,6 +415,7 @@ def main_area():
             html.Div(id="headline", className="lw-headline-text", **{"aria-live": "polite"}),
             html.P(HELP["headline"], className="lw-help")],
             className="lw-card lw-headline", id="headline-card"),
+        *[build() for build in MAIN_EXTRAS],
         sensitivity_card(),
         lp_cards(card, graph, grid, CHART_FORMATS, TABLE_FORMATS),
         html.Div([

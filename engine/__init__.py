@@ -48,6 +48,11 @@ from .kinds import KINDS, ModelKind, kind_of, model_line, register_kind
 from .models.local_projections import LocalProjections, fit_local_projections, multiplier
 from .models.lp_inference import (HORIZON_RULES, Bands, LPEstimator, LPSweep, horizon_rule,
                                   lag_augmented, sup_t_critical_value)
+# factor models (issue 24): many assets at once, the joint alpha test, GRS, risk premia
+from .models.factors import (FactorModel, GRSTest, LargeNTest, fit_factor_model, grs_test,
+                             pesaran_yamagata)
+from .models.joint import JointFlip, JointSweep, JointTest, joint_sweep, joint_test
+from .models.risk_premia import RiskPremia, RiskPremiaGMM, fit_risk_premia
 
 __all__ = [
     "DataError", "EstimationError", "LagwiseError", "LawUnavailable", "SpecificationError",
@@ -69,4 +74,8 @@ __all__ = [
     # local projections
     "LocalProjections", "fit_local_projections", "multiplier", "HORIZON_RULES", "Bands",
     "LPEstimator", "LPSweep", "horizon_rule", "lag_augmented", "sup_t_critical_value",
+    # factor models (issue 24)
+    "FactorModel", "fit_factor_model", "GRSTest", "LargeNTest", "grs_test", "pesaran_yamagata",
+    "JointTest", "JointSweep", "JointFlip", "joint_test", "joint_sweep",
+    "RiskPremia", "RiskPremiaGMM", "fit_risk_premia",
 ]

@@ -320,3 +320,36 @@ def _check_registered() -> None:
 
 
 __all__ = ["CARDS", "KINDS", "ModelKind", "kind_of", "model_line", "register_kind"]
+
+
+# --------------------------------------------------------------------------- factor models
+# (issue 24: many assets at once) A factor model is a stacked model of N least-squares fits;
+# its own kind gives it the dashboard's factor cards, its line and its recipe.
+
+from .models.factors import FactorModel, fit_factor_model  # noqa: E402
+
+CARDS["factors"] = ("every asset's alpha, the joint alpha test along the bandwidth with GRS, "
+                    "alphas under every estimator and the risk premia")
+
+
+def factor_line(model) -> str:
+    counts = [len(r) for r in model.rows]
+    rf = f" minus {model.risk_free}" if model.risk_free else ""
+    return _join(f"factor model: {model.n_assets} assets{rf} on "
+                 f"{', '.join(model.factors)}", _sample_text(model),
+                 f"T = {model.nobs}" + (f" (assets {min(counts)} to {max(counts)})"
+                                         if min(counts) < max(counts) else ""),
+                 "balanced subsample" if model.balanced else "")
+
+
+def factor_recipe(model):
+    return "fit_factor_model", {"assets": list(model.assets), "factors": list(model.factors),
+                                "time": model.time, "risk_free": model.risk_free,
+                                "sample": model.window, "balanced": model.balanced or None}
+
+
+register_kind(ModelKind(
+    name="factor-model", title="linear factor model (many assets)", model_class=FactorModel,
+    fit=fit_factor_model, default_family="kernel", cards=("factors",), line=factor_line,
+    recipe=factor_recipe,
+    notes="the dashboard opens a factor model fitted in Python as it is (no table refit)"))

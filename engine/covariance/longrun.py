@@ -68,7 +68,8 @@ def kernel_many(model, kernel: Kernel, bandwidths, *, small_sample: bool = False
         if neg.any():
             if repair:
                 clipped = np.clip(vals[neg], 0.0, None)
-                s[neg] = np.einsum("nij,nj,nkj->nik", vecs[neg], clipped, vecs[neg])
+                v = vecs[neg]
+                s[neg] = (v * clipped[:, None, :]) @ np.swapaxes(v, 1, 2)
                 status[neg] = "repaired"
             else:
                 status[neg] = "not_psd"

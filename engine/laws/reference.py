@@ -126,6 +126,11 @@ def normal_two_sided(z):
         return _float_or_array(_finite_or_nan(a, 2 * stats.norm.sf(a)))
 
 
+def normal_upper(z):
+    """One-sided P(Z > z) of standard normal statistics (a test that rejects for large z)."""
+    return _float_or_array(stats.norm.sf(np.asarray(z, dtype=float)))
+
+
 def chi_square_upper(w, df):
     """P(chi-square(df) > w): a Wald, LM or J statistic referred to its large-sample law."""
     return _float_or_array(stats.chi2.sf(w, df))
