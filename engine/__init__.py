@@ -45,6 +45,11 @@ from .io.robustness import RobustnessTable, robustness_table
 from . import distributed as _distributed  # noqa: F401 - registers the Dask path
 from .kinds import KINDS, ModelKind, kind_of, model_line, register_kind
 
+# few clusters (issue 23): bias-reduced cluster covariances, the wild cluster bootstrap, the
+# cluster summary, panel IV
+from .models.panel_iv import PanelIVFit, fit_panel_iv
+from .laws.clusters import ClusterT, HotellingT
+
 __all__ = [
     "DataError", "EstimationError", "LagwiseError", "LawUnavailable", "SpecificationError",
     "LoadReport", "Table", "load_table", "transform", "TRANSFORMS",
@@ -62,4 +67,6 @@ __all__ = [
     "BANDWIDTH_RULES", "select_bandwidth", "BandwidthChoice",
     "Inference", "WaldTest", "infer", "SweepResult", "sweep", "Flip", "significance_flip",
     "fixed_b_critical_value", "fixed_b_p_value", "compare", "DiagnosticReport", "diagnose",
+    # few clusters (issue 23)
+    "PanelIVFit", "fit_panel_iv", "ClusterT", "HotellingT",
 ]

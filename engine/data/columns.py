@@ -33,6 +33,8 @@ class SampleInfo:
     first: object = None
     last: object = None
     notes: list[str] = field(default_factory=list)
+    #: positions of the rows used in the frame they were read from (None: not recorded)
+    rows: np.ndarray | None = field(default=None, repr=False)
 
 
 def column_ranges(values: np.ndarray):
@@ -108,10 +110,12 @@ def numeric_block(frame, cols, non_numeric, sample, what="column", ones: bool = 
     used = frame[cols]
     available = len(used)
     info = SampleInfo(rows_available=available, rows_used=0)
+    rows = np.arange(available)
     if sample is not None:
         try:
             start, end = sample
             used = used.loc[start:end]
+            rows = pd.Series(rows, index=frame.index).loc[start:end].to_numpy()
         except (TypeError, KeyError, ValueError) as exc:
             raise SpecificationError(f"sample window {sample!r} does not match the index: {exc}") \
                 from None
@@ -148,6 +152,8 @@ def numeric_block(frame, cols, non_numeric, sample, what="column", ones: bool = 
         info.notes.insert(0, f"{info.dropped_missing} rows with missing values dropped")
         index = index[ok]
         values = values[ok]
+        rows = rows[ok]
+    info.rows = rows
     return values, index, info
 
 

@@ -114,6 +114,7 @@ class PanelData:
     sample: SampleInfo
     table: object
     horizon: int | None
+    rows: np.ndarray | None = None          # positions of the rows used in the frame
 
 
 def check_names(response, regs, entity, time, intercept=True):
@@ -237,7 +238,7 @@ def panel_data(data, response, regs, entity, time, sample=None) -> PanelData:
     return PanelData(values=values, entity_codes=e_codes, time_codes=t_codes,
                      entities=pd.Index(entities, name=entity), periods=pd.Index(periods,
                                                                                  name=time),
-                     index=index, sample=info, table=table, horizon=horizon)
+                     index=index, sample=info, table=table, horizon=horizon, rows=idx)
 
 
 def periods_of(data, time: str) -> pd.Index:

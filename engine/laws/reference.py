@@ -90,6 +90,11 @@ class Law:
         array over the coefficients): itself for a law with one value for every coefficient."""
         return self
 
+    def for_restrictions(self, R) -> "Law":
+        """The law that refers a Wald test of R beta = r (R: m x k): by default the law of the
+        coefficients R involves (`restricted`); a law may refer the restrictions themselves."""
+        return self.restricted(np.any(np.atleast_2d(np.asarray(R)) != 0, axis=0))
+
     def _key(self):
         return tuple(sorted((k, tuple(np.ravel(v)) if isinstance(v, np.ndarray) else v)
                             for k, v in self.__dict__.items()))
