@@ -49,6 +49,8 @@ from .kinds import KINDS, ModelKind, kind_of, model_line, register_kind
 # cluster summary, panel IV
 from .models.panel_iv import PanelIVFit, fit_panel_iv
 from .laws.clusters import ClusterT, HotellingT
+from .studies.wild_bootstrap import WildBootstrapResult, wild_cluster_bootstrap
+from .studies.cluster_summary import ClusterSummary, cluster_summary
 
 __all__ = [
     "DataError", "EstimationError", "LagwiseError", "LawUnavailable", "SpecificationError",
@@ -68,5 +70,6 @@ __all__ = [
     "Inference", "WaldTest", "infer", "SweepResult", "sweep", "Flip", "significance_flip",
     "fixed_b_critical_value", "fixed_b_p_value", "compare", "DiagnosticReport", "diagnose",
     # few clusters (issue 23)
-    "PanelIVFit", "fit_panel_iv", "ClusterT", "HotellingT",
+    "PanelIVFit", "fit_panel_iv", "ClusterT", "HotellingT", "WildBootstrapResult",
+    "wild_cluster_bootstrap", "ClusterSummary", "cluster_summary",
 ]

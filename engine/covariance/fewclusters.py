@@ -220,8 +220,11 @@ def absorbed_basis(absorbed, clusters: np.ndarray, tol: float = 1e-10):
 
 # --------------------------------------------------------------------------- blocks
 
-def blocks_from_rows(design: ClusterDesign, grouping: Grouping) -> ClusterBlocks:
-    """Per-cluster blocks from a model's rows (the n_g x n_g form for clusters smaller than p)."""
+def blocks_from_rows(design: ClusterDesign, grouping: Grouping,
+                     dense_below: int | None = None) -> ClusterBlocks:
+    """Per-cluster blocks from a model's rows: clusters with fewer rows than `dense_below`
+    (default p, where the n_g x n_g form is the cheaper) keep their rows for that form, the
+    others get p x p blocks (tests force either form)."""
     codes, n_groups = grouping.codes, grouping.n_groups
     e = design.resid
     Ft, nested, other = absorbed_basis(design.absorbed, codes)
@@ -233,7 +236,7 @@ def blocks_from_rows(design: ClusterDesign, grouping: Grouping) -> ClusterBlocks
     m = k if B is None else B.shape[1]
     srt = _Sorted(codes, n_groups)
     sizes = srt.sizes
-    small_mask = sizes < p
+    small_mask = sizes < (p if dense_below is None else dense_below)
     big = np.flatnonzero(~small_mask)
     if big.size * p * p > MAX_BLOCK_ELEMENTS:
         raise EstimationError(f"{big.size} clusters with {p} x {p} blocks exceed the memory "
@@ -447,3 +450,20 @@ def htz_eta(pcs: ClusterPieces, L: np.ndarray) -> float:
             t2 += (np.sum(dd * dd) - 2.0 * np.sum(dd * np.einsum("gi,gi->g", Bs[s], Bs[t]))
                    + np.sum(Z * Z.T))
     return q * (q + 1) / (t1 + t2)
+
+
+def hat_moments(blocks: ClusterBlocks, columns: int | None = None):
+    """(W_g, Q_g'1) restricted to the first `columns` columns of Q (default: the hat basis),
+    for every cluster: (G, c, c) and (G, c)."""
+    c = blocks.k if columns is None else columns
+    G = blocks.n_groups
+    W = np.empty((G, c, c))
+    q1 = np.empty((G, c))
+    if blocks.big.size:
+        W[blocks.big] = blocks.W[:, :c, :c]
+        q1[blocks.big] = blocks.q1[:, :c]
+    for sel, Qb, _, _ in blocks.small:
+        Qc = Qb[:, :, :c]
+        W[sel] = Qc.transpose(0, 2, 1) @ Qc
+        q1[sel] = Qc.sum(axis=1)
+    return W, q1
