@@ -167,13 +167,11 @@ def _two_way_long_run(model, correction, df, small_sample):
         s = se + st - model.outer() / n * fc_cell
         factor = fe
     else:
-        parts = []
-        for name in ("entity", "time", "entity x time"):
-            blocks = model.cluster_blocks(name)
-            if name != "entity x time":
-                _require_clusters(model, name, blocks.n_groups)
-            parts.append((fc.pieces(blocks, correction).meat() / n, blocks.n_groups))
-        (se, ge), (st, gt), (sc, _) = parts
+        ge, gt = model.group_sums("entity").shape[0], model.group_sums("time").shape[0]
+        _require_clusters(model, "entity", ge)
+        _require_clusters(model, "time", gt)
+        se, st, sc = (model.cluster_meat(name, correction) / n
+                      for name in ("entity", "time", "entity x time"))
         s, factor = se + st - sc, 1.0
     out = LongRun(S=None, factor=factor)
     out.S = clip_to_psd(s, f"two-way clustered ({CORRECTION_TITLES[correction]})", out)

@@ -80,6 +80,7 @@ class ClusterBlocks:
     small: list                            # [(cluster indices, Q rows, B rows or None, e rows)]
     esum: np.ndarray                       # sum of the residuals in each cluster
     ssr: float
+    sizes: np.ndarray | None = None        # rows per cluster
     least_squares: bool = True
     why_no_df: str = ""
     nested: list = field(default_factory=list)
@@ -270,18 +271,20 @@ def blocks_from_rows(design: ClusterDesign, grouping: Grouping,
         small.append((sel, Qs[rows], None if Bs is None else Bs[rows], es[rows]))
     return ClusterBlocks(grouping=grouping, p=p, k=k, m=m, nobs=int(e.size), big=big, W=W,
                          qe=qe, q1=q1, C=C, we=we, small=small,
-                         esum=_sums(codes, e, n_groups), ssr=float(e @ e),
+                         esum=_sums(codes, e, n_groups), ssr=float(e @ e), sizes=sizes,
                          least_squares=design.least_squares, why_no_df=design.why_no_df,
                          nested=nested, not_nested=other)
 
 
-def blocks_from_sums(grouping: Grouping, W, qe, q1, esum, ssr, nobs) -> ClusterBlocks:
+def blocks_from_sums(grouping: Grouping, W, qe, q1, esum, ssr, nobs, sizes,
+                     nested=()) -> ClusterBlocks:
     """Blocks from per-cluster sums gathered elsewhere (the Dask path): least squares with the
     contribution basis equal to the hat basis, no absorbed effects outside the clusters."""
     p = W.shape[1]
     return ClusterBlocks(grouping=grouping, p=p, k=p, m=p, nobs=int(nobs),
                          big=np.arange(grouping.n_groups), W=0.5 * (W + W.transpose(0, 2, 1)),
-                         qe=qe, q1=q1, C=None, we=None, small=[], esum=esum, ssr=float(ssr))
+                         qe=qe, q1=q1, C=None, we=None, small=[], esum=esum, ssr=float(ssr),
+                         sizes=np.asarray(sizes), nested=list(nested))
 
 
 # --------------------------------------------------------------------------- pieces
@@ -403,7 +406,7 @@ def bell_mccaffrey(pcs: ClusterPieces, ell) -> float:
 def moulton(blocks: ClusterBlocks) -> tuple[float, float]:
     """(rho, sigma^2) of the Moulton working model sigma^2 I + rho 11' estimated from the
     residuals (the estimates of R dfadjust, rho may be negative)."""
-    sizes = blocks.grouping.sizes.astype(float)
+    sizes = blocks.sizes.astype(float)
     den = float(np.sum(sizes ** 2) - blocks.nobs)
     rho = (float(blocks.esum @ blocks.esum) - blocks.ssr) / den if den > 0 else 0.0
     return rho, max(blocks.ssr / blocks.nobs - rho, 0.0)

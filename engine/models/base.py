@@ -33,9 +33,11 @@ from ..capabilities import Capabilities
 from ..covariance.cache import MomentCache
 from ..data.columns import INTERCEPT, SampleInfo
 from ..covariance.registry import as_estimator, estimator as make_estimator
-from ..covariance.fewclusters import ClusterBlocks, blocks_from_rows
+from ..covariance.fewclusters import ClusterBlocks, blocks_from_rows, pieces
+from ..covariance.hc import LEVERAGE_TOL
+from ..data.columns import index_label
 from ..data.groupings import Grouping
-from ..errors import SpecificationError
+from ..errors import EstimationError, SpecificationError
 from ..inference.compare import compare
 from ..inference.infer import infer
 from ..inference.sweep import sweep
@@ -196,6 +198,26 @@ class MomentModel:
         that declares `cluster_leverage` says."""
         raise SpecificationError("this model does not declare the hat matrix within clusters "
                                  "that CR2 and CR3 need; use CR1")
+
+    def cluster_meat(self, name: str, correction: str) -> np.ndarray:
+        """sum_g psi_g psi_g' of the adjusted cluster sums of the working contributions (CR2,
+        CR3) for a grouping (or the cells of entities and periods)."""
+        return pieces(self.cluster_blocks(name), correction).meat()
+
+    def leverage_outer(self, power: int) -> np.ndarray:
+        """sum_t e_t^2 / (1 - h_tt)^power w_t w_t' over the working design rows (HC2: power 1,
+        HC3: power 2); a row of leverage one is a typed error naming it."""
+        h = self.leverage
+        bad = np.flatnonzero(h > 1.0 - LEVERAGE_TOL)
+        if bad.size:
+            rows = ", ".join(str(index_label(self.index[i])) for i in bad[:5])
+            raise EstimationError(
+                f"HC{power + 1} is undefined: {bad.size} observation(s) have leverage 1 (rows "
+                f"{rows}); each is fitted exactly, e.g. by a dummy for one row. Use HC0/HC1 or "
+                "drop those rows.")
+        omega = self.resid ** 2 / (1.0 - h) ** power
+        w = self.working_design
+        return (w * omega[:, None]).T @ w
 
     def cluster_blocks(self, name: str) -> ClusterBlocks:
         """Per-cluster blocks of one grouping for CR2, CR3 and their degrees of freedom,

@@ -80,7 +80,7 @@ def cluster_summary(fit, by: str = "entity", rho: float = 1.0) -> ClusterSummary
     if G < 2:
         raise SpecificationError(f"clustering by {by} needs at least two clusters; this sample "
                                  f"has {G}")
-    sizes = grouping.sizes
+    sizes = blocks.sizes
     notes: list[str] = []
     Wk, _ = hat_moments(blocks)
     lev = np.trace(Wk, axis1=1, axis2=2)
