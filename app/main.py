@@ -15,6 +15,7 @@ from flask import Response, request
 
 from .._files import assets_dir, demo_file
 from . import callbacks, exports, studies  # noqa: F401 - their callbacks are recorded on import
+from . import clusters  # noqa: F401 - few clusters (issue 23): its callbacks are recorded on import
 from .derived import dataset_from_bytes, dataset_from_table, given_model
 from .layout import build_layout
 from .wiring import register

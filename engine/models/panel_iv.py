@@ -100,6 +100,12 @@ class PanelIVFit(PanelRows, IVFit):
         raise EstimationError("the first-difference serial correlation test is for least "
                               "squares; it is not computed for an IV fit")
 
+    def compare(self, level: float = 0.95, reference: str = "auto", fama_macbeth: bool = False,
+                **kwargs):
+        """Every panel estimator of S (presets of the registry); Fama-MacBeth, a least-squares
+        estimator, has no rows here."""
+        return super().compare(level=level, reference=reference, **kwargs)
+
     def fama_macbeth(self):
         raise SpecificationError("Fama-MacBeth is a least-squares estimator; it is not offered "
                                  "for an IV fit")

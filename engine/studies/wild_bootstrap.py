@@ -458,6 +458,41 @@ def wild_cluster_bootstrap(fit, coefficient, by="entity", reps=9999, weights="ra
     dimension whose clusters get the weights ("fewer", "entity" or "time"). With Rademacher
     weights and 2^G <= reps every sign vector is used (exact; the seed plays no role).
     progress(done, total) is called after each block of replications."""
+    job = prepare_bootstrap(fit, coefficient, by=by, reps=reps, weights=weights, null=null,
+                            level=level, seed=seed, restricted=restricted, pvalue=pvalue,
+                            boot_by=boot_by, ci=ci, keep_t=keep_t)
+    return job.run(progress)
+
+
+@dataclass
+class BootstrapJob:
+    """A prepared wild cluster bootstrap: the null-free setup (only cluster-sized arrays for
+    least squares; the IV data for WRE) and the options; `run` does the replications (the
+    dashboard runs it in a background job)."""
+
+    setup: object
+    coefficient: str
+    by: str
+    boot_name: str
+    options: dict
+
+    def run(self, progress=None) -> WildBootstrapResult:
+        o = self.options
+        if isinstance(self.setup, WRESetup):
+            return _run_wre(self, progress)
+        p, interval, is_int, gen, tstar = self.setup.run(
+            o["null"], o["reps"], o["weights"], o["seed"], o["pvalue"], o["level"], o["ci"],
+            o["keep_t"], progress)
+        return _result(self.setup, self.coefficient, self.by, self.boot_name,
+                       "WCR" if o["restricted"] else "WCU", o["null"], p, interval, is_int,
+                       gen, o["pvalue"], o["level"], o["weights"], o["seed"], tstar)
+
+
+def prepare_bootstrap(fit, coefficient, by="entity", reps=9999, weights="rademacher",
+                      null=0.0, level=0.95, seed=0, restricted=True, pvalue="symmetric",
+                      boot_by="fewer", ci=True, keep_t=False) -> BootstrapJob:
+    """Check the request and build the setup (see wild_cluster_bootstrap); typed errors name the
+    value at fault before any replication."""
     check_options(reps, weights, pvalue, level, seed)
     if not isinstance(null, (int, float, np.floating)) or isinstance(null, bool) \
             or not np.isfinite(null):
@@ -465,18 +500,17 @@ def wild_cluster_bootstrap(fit, coefficient, by="entity", reps=9999, weights="ra
     if not isinstance(restricted, (bool, np.bool_)):
         raise SpecificationError(f"restricted must be true or false, got {restricted!r}")
     check_offered(fit, by)
+    options = {"reps": int(reps), "weights": weights, "null": float(null), "level": level,
+               "seed": int(seed), "restricted": bool(restricted), "pvalue": pvalue, "ci": ci,
+               "keep_t": keep_t}
     if fit.capabilities.reweighting:
-        return wre_bootstrap(fit, coefficient, by=by, reps=reps, weights=weights, null=null,
-                             level=level, seed=seed, restricted=restricted, pvalue=pvalue,
-                             ci=ci, progress=progress, keep_t=keep_t)
+        setup, name, grouping = _wre_setup(fit, coefficient, by, restricted)
+        return BootstrapJob(setup, name, by, grouping.name, options)
     setup, name, bgroup = wild_setup(fit, coefficient, by, boot_by, restricted)
-    p, interval, is_int, gen, tstar = setup.run(null, reps, weights, seed, pvalue, level, ci,
-                                                keep_t, progress)
-    return _result(setup, name, by, bgroup, "WCR" if restricted else "WCU", null, p, interval,
-                   is_int, gen, pvalue, level, weights, seed, tstar)
+    return BootstrapJob(setup, name, by, bgroup.name, options)
 
 
-def _result(setup, name, by, bgroup, method, null, p, interval, is_int, gen, pvalue, level,
+def _result(setup, name, by, boot_name, method, null, p, interval, is_int, gen, pvalue, level,
             weights, seed, tstar):
     notes = []
     if gen.enumerated:
@@ -491,7 +525,7 @@ def _result(setup, name, by, bgroup, method, null, p, interval, is_int, gen, pva
     if interval is not None and not np.all(np.isfinite(interval)):
         notes.append("the interval is unbounded: no null value on that side is rejected")
     return WildBootstrapResult(
-        coefficient=name, by=by, boot_by=bgroup.name, method=method,
+        coefficient=name, by=by, boot_by=boot_name, method=method,
         estimate=setup.est,
         std_error=setup.std_error, t_stat=float(setup.t_stat(null)), null=float(null),
         p_value=p, p_kind=pvalue, ci=interval, level=level, reps=gen.reps,
@@ -577,11 +611,18 @@ class WRESetup:
 
 def wre_bootstrap(fit, coefficient, by="entity", reps=9999, weights="rademacher", null=0.0,
                   level=0.95, seed=0, restricted=True, pvalue="symmetric", ci=True,
-                  progress=None, keep_t=False, ci_grid=41) -> WildBootstrapResult:
-    """The wild restricted efficient bootstrap for a linear IV fit (see WRESetup), or a typed
-    error naming what is missing: one endogenous regressor, the test of its coefficient, one-way
-    clustering, effects (panels) nested in the clusters, the restricted version."""
-    check_options(reps, weights, pvalue, level, seed)
+                  progress=None, keep_t=False) -> WildBootstrapResult:
+    """The wild restricted efficient bootstrap for a linear IV fit (see WRESetup); the same as
+    wild_cluster_bootstrap on an IV fit."""
+    return wild_cluster_bootstrap(fit, coefficient, by=by, reps=reps, weights=weights,
+                                  null=null, level=level, seed=seed, restricted=restricted,
+                                  pvalue=pvalue, ci=ci, progress=progress, keep_t=keep_t)
+
+
+def _wre_setup(fit, coefficient, by, restricted):
+    """The WRE setup, or a typed error naming what is missing: one endogenous regressor, the
+    test of its coefficient, one-way clustering, effects (panels) nested in the clusters, the
+    restricted version."""
     core = fit.core
     c, name = contrast_of(fit, coefficient)
     if not restricted:
@@ -610,39 +651,42 @@ def wre_bootstrap(fit, coefficient, by="entity", reps=9999, weights="rademacher"
     X, Zfull = core.X, core.Z
     j = core.terms.index(name)
     exog_cols = [core.terms.index(t) for t in core.terms if t != name]
-    Zx = X[:, exog_cols] if exog_cols else np.zeros((len(core.y), 0))
-    Wx = Zfull[:, [core.z_names.index(z) for z in core.excluded]]
-    if Zx.shape[1] == 0:
+    if not exog_cols:
         raise SpecificationError("the WRE bootstrap needs at least one exogenous column (the "
                                  "intercept or a regressor) besides the endogenous one")
+    Wx = Zfull[:, [core.z_names.index(z) for z in core.excluded]]
     factor = cluster_factor(fit, grouping.n_groups, fit.effects_nested_in(by))
-    setup = WRESetup(core.y, X[:, j], Zx, Wx, grouping, factor)
-    gen = Replications(grouping.n_groups, int(reps), weights, seed, block=1024)
-    step = progress or (lambda done, total: None)
+    return WRESetup(core.y, X[:, j], X[:, exog_cols], Wx, grouping, factor), name, grouping
+
+
+def _run_wre(job, progress, ci_grid=41):
+    o, setup = job.options, job.setup
+    gen = Replications(setup.G, o["reps"], o["weights"], o["seed"], block=1024)
+    report = [progress or (lambda done, total: None)]
 
     def blocks():
         done = 0
         for V in gen.blocks():
             yield V
             done += V.shape[1]
-            step(done, gen.reps)
+            report[0](done, gen.reps)
 
     def evaluate(r):
         with _blas_one_thread():
             N, D = setup.tstars(r, blocks())
-        return _pvalue(N, D, setup.t_stat(r), pvalue), N, D
-    p0, N, D = evaluate(null)
+        return _pvalue(N, D, setup.t_stat(r), o["pvalue"]), N, D
+    p0, N, D = evaluate(o["null"])
     interval, is_int = (None, None)
-    if ci:
-        step = lambda done, total: None                        # noqa: E731
-        interval, is_int = invert(lambda r: evaluate(r)[0], setup.est, setup.se, 1.0 - level,
-                                  grid=ci_grid)
+    if o["ci"]:
+        report[0] = lambda done, total: None       # the inversion repeats the replications
+        interval, is_int = invert(lambda r: evaluate(r)[0], setup.est, setup.se,
+                                  1.0 - o["level"], grid=ci_grid)
     tstar = None
-    if keep_t:
+    if o["keep_t"]:
         with np.errstate(divide="ignore", invalid="ignore"):
             tstar = np.where(D > 0, N / np.sqrt(np.where(D > 0, D, 1.0)), np.sign(N) * np.inf)
-    res = _result(setup, name, by, grouping, "WRE", null, p0, interval, is_int, gen, pvalue,
-                  level, weights, seed, tstar)
+    res = _result(setup, job.coefficient, job.by, job.boot_name, "WRE", o["null"], p0,
+                  interval, is_int, gen, o["pvalue"], o["level"], o["weights"], o["seed"], tstar)
     res.notes.append("t statistics of 2SLS (Davidson & MacKinnon 2010), whatever the fit's "
                      "weighting; the interval re-runs the restricted fits at each trial null")
     return res
