@@ -353,7 +353,8 @@ def few_clusters_card():
                   dcc.Dropdown(id="fc-by", clearable=False)], className="lw-field"),
         html.Ul(id="fc-reading", className="lw-reading-list"),
         html.Div(id="fc-facts", className="lw-help"),
-        dcc.Loading(grid("fc-table", views.CLUSTER_COLUMNS), type="dot", color="#0e6e64"),
+        dcc.Loading(grid("fc-table", views.CLUSTER_COLUMNS, suppressColumnVirtualisation=True),
+                    type="dot", color="#0e6e64"),
         html.Ul(id="fc-notes", className="lw-notes"),
         html.H4("Wild cluster bootstrap of the coefficient in focus", className="lw-subtitle"),
         boot], export=buttons), id="fc-card", style={"display": "none"})

@@ -135,8 +135,8 @@ def fit_panel_iv(data, response: str, regressors=None, endogenous=None, instrume
     eff = effects_of(effects)
     if eff:
         intercept = False
-    check_names(response, regs + instr, entity, time, intercept or bool(eff))
     check_iv_spec(response, regs, endog, instr, intercept or bool(eff))
+    check_names(response, regs + instr, entity, time, intercept or bool(eff))
     if not regs:
         raise SpecificationError("the model needs at least one regressor to instrument")
     if method not in METHODS:
