@@ -101,3 +101,18 @@ def test_the_card_shows_it_and_its_errors(demo):
                           .to_dict(), "fkey": "fit:demo"})
     assert row["verdict"] == "not rejected" and row["bootstrap"]
     assert np.isfinite(row["p_value"])
+
+
+def test_readme_few_cluster_example_runs(monkeypatch):
+    import re
+    from pathlib import Path
+    root = Path(__file__).resolve().parent.parent
+    block = [b for b in re.findall(r"```python\n(.*?)```", (root / "README.md").read_text(),
+                                   flags=re.S) if "wild_cluster_bootstrap(" in b][0]
+    monkeypatch.chdir(root)
+    ns: dict = {"lagwise": lagwise}
+    exec(compile(block, "README.md", "exec"), ns)   # noqa: S102 - our own docs
+    assert ns["cr2"].table.loc["subsidy", "p_value"] > 0.05
+    assert ns["boot"].p_value > 0.05 and ns["summary"].n_clusters == 14
+    assert ns["piv"].panel.effects == ("entity",) and ns["piv"].core.endogenous == \
+        ["charter_cover"]

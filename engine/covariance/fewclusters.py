@@ -14,7 +14,8 @@ one cluster drop out of every cluster-level formula, the others enter through
 Ft = orthonormal basis of (I - H_nested) E_other. Then QQ' is the relevant part of the
 explicit-dummy hat matrix and, per cluster with W_g = Q_g'Q_g = sum_j lam_j r_j r_j',
 
-    f(I - H_gg) = f(1) I + Q_g D_g Q_g',   D_g = sum_{lam_j > 0} [f(1 - lam_j) - f(1)] / lam_j r_j r_j'
+    f(I - H_gg) = f(1) I + Q_g D_g Q_g',
+    D_g = sum_{lam_j > 0} [f(1 - lam_j) - f(1)] / lam_j r_j r_j'
 
 with f(x) = x^(-1/2) (CR2, Bell & McCaffrey 2002) or 1/x (CR3, the cluster jackknife), so every
 adjusted quantity needs only W_g, Q_g'e_g, Q_g'1 and (for a separate contribution basis)
