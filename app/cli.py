@@ -420,6 +420,47 @@ def _output_arguments(parser) -> None:
     parser.add_argument("--output", default=None, help="write to this file instead of stdout")
 
 
+def _panel_few_cluster_options(q) -> None:
+    """`lagwise panel`: a further grouping column and panel IV."""
+    q.add_argument("--cluster", action="append", metavar="COLUMN",
+                   help="a further grouping column (a region, an industry): clustered rows and "
+                        "a summary of its clusters; repeatable (in memory only)")
+    q.add_argument("--endogenous", default="",
+                   help="regressors to instrument (panel IV after the within transformation)")
+    q.add_argument("--instruments", default="", help="excluded instruments (comma-separated)")
+    q.add_argument("--method", default="2sls", choices=["2sls", "two-step", "iterated", "cue"],
+                   help="panel IV estimation (default 2sls; GMM weights by entity clusters)")
+
+
+def _bootstrap_parser(sub) -> None:
+    """`lagwise bootstrap`: the wild cluster bootstrap of one coefficient."""
+    b = sub.add_parser("bootstrap", help="the wild cluster bootstrap of one coefficient, "
+                                         "beside CR1/CR2/CR3 (few clusters)")
+    b.add_argument("file", help="CSV or Parquet file")
+    b.add_argument("--response", required=True, help="response column")
+    b.add_argument("--regressors", default="", help="comma-separated regressor columns")
+    b.add_argument("--coefficient", required=True, help="the coefficient to test")
+    b.add_argument("--cluster", required=True, metavar="GROUPING",
+                   help="a column to cluster by, or entity, time or both for a panel")
+    b.add_argument("--entity", default=None, help="a panel's entity column")
+    b.add_argument("--time", default=None, help="a panel's period column")
+    b.add_argument("--effects", default="none", choices=["none", "entity", "time", "both"])
+    b.add_argument("--endogenous", default="", help="the instrumented regressor (WRE)")
+    b.add_argument("--instruments", default="", help="excluded instruments")
+    b.add_argument("--no-intercept", action="store_true", help="leave out the constant term")
+    b.add_argument("--reps", type=int, default=9999, help="replications (99 to 10,000,000; "
+                   "with Rademacher weights all 2^G sign vectors when 2^G <= reps)")
+    b.add_argument("--weights", default="rademacher", choices=["rademacher", "webb", "mammen"])
+    b.add_argument("--null", type=float, default=0.0, help="the value tested (default 0)")
+    b.add_argument("--level", type=float, default=0.95, help="confidence level (default 0.95)")
+    b.add_argument("--seed", type=int, default=0)
+    b.add_argument("--pvalue", default="symmetric", choices=["symmetric", "equal-tailed"])
+    b.add_argument("--unrestricted", action="store_true",
+                   help="do not impose the null on the bootstrap samples (WCU)")
+    b.add_argument("--output", default=None, help="write to this file instead of stdout")
+    b.set_defaults(func=cmd_bootstrap)
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="lagwise", description="Robust standard errors for "
                                 "time-series regressions, and how they depend on the lag choice.")
@@ -477,14 +518,7 @@ def build_parser() -> argparse.ArgumentParser:
     q.add_argument("--effects", default="none", choices=["none", "entity", "time", "both"],
                    help="fixed effects removed by the within transformation")
     q.add_argument("--no-intercept", action="store_true", help="leave out the constant term")
-    q.add_argument("--cluster", action="append", metavar="COLUMN",
-                   help="a further grouping column (a region, an industry): clustered rows and "
-                        "a summary of its clusters; repeatable (in memory only)")
-    q.add_argument("--endogenous", default="",
-                   help="regressors to instrument (panel IV after the within transformation)")
-    q.add_argument("--instruments", default="", help="excluded instruments (comma-separated)")
-    q.add_argument("--method", default="2sls", choices=["2sls", "two-step", "iterated", "cue"],
-                   help="panel IV estimation (default 2sls; GMM weights by entity clusters)")
+    _panel_few_cluster_options(q)
     q.add_argument("--no-fama-macbeth", action="store_true",
                    help="leave the Fama-MacBeth rows out of the comparison")
     q.add_argument("--scheduler", default=None, metavar="ADDRESS",
@@ -494,31 +528,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="workers of the local Dask cluster (default 2)")
     _output_arguments(q)
     q.set_defaults(func=cmd_panel)
-    b = sub.add_parser("bootstrap", help="the wild cluster bootstrap of one coefficient, "
-                                         "beside CR1/CR2/CR3 (few clusters)")
-    b.add_argument("file", help="CSV or Parquet file")
-    b.add_argument("--response", required=True, help="response column")
-    b.add_argument("--regressors", default="", help="comma-separated regressor columns")
-    b.add_argument("--coefficient", required=True, help="the coefficient to test")
-    b.add_argument("--cluster", required=True, metavar="GROUPING",
-                   help="a column to cluster by, or entity, time or both for a panel")
-    b.add_argument("--entity", default=None, help="a panel's entity column")
-    b.add_argument("--time", default=None, help="a panel's period column")
-    b.add_argument("--effects", default="none", choices=["none", "entity", "time", "both"])
-    b.add_argument("--endogenous", default="", help="the instrumented regressor (WRE)")
-    b.add_argument("--instruments", default="", help="excluded instruments")
-    b.add_argument("--no-intercept", action="store_true", help="leave out the constant term")
-    b.add_argument("--reps", type=int, default=9999, help="replications (99 to 10,000,000; "
-                   "with Rademacher weights all 2^G sign vectors when 2^G <= reps)")
-    b.add_argument("--weights", default="rademacher", choices=["rademacher", "webb", "mammen"])
-    b.add_argument("--null", type=float, default=0.0, help="the value tested (default 0)")
-    b.add_argument("--level", type=float, default=0.95, help="confidence level (default 0.95)")
-    b.add_argument("--seed", type=int, default=0)
-    b.add_argument("--pvalue", default="symmetric", choices=["symmetric", "equal-tailed"])
-    b.add_argument("--unrestricted", action="store_true",
-                   help="do not impose the null on the bootstrap samples (WCU)")
-    b.add_argument("--output", default=None, help="write to this file instead of stdout")
-    b.set_defaults(func=cmd_bootstrap)
+    _bootstrap_parser(sub)
     s = sub.add_parser("serve", help="open the dashboard in the browser (local only)")
     s.add_argument("file", nargs="?", default=None, help="data file (default: the demo data)")
     s.add_argument("--host", default="127.0.0.1",
