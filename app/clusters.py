@@ -87,6 +87,24 @@ def on_few_demo(n, session):
                          "region"), dict(FEW_DEMO_SPEC), dict(FEW_DEMO_PANEL)
 
 
+# --------------------------------------------------------------------------- the picker
+
+@callback(Output({"type": "est-param", "name": "by"}, "options"),
+          Output({"type": "est-param", "name": "by"}, "value"),
+          Input("est-params", "children"), Input("fit-key", "data"),
+          State({"type": "est-param", "name": "by"}, "value"), State("session", "data"),
+          prevent_initial_call=True)
+def on_grouping_options(_children, fkey, by, session):
+    """The estimator picker's `cluster by` offers the groupings of the fit on screen (a
+    column named in a fit's `clusters=`, a panel's entities and periods)."""
+    offered = _offered(stored(session, fkey))
+    if not offered:
+        raise PreventUpdate
+    named = [g for g in offered if g not in ("entity", "time", "both")]
+    return [{"label": g, "value": g} for g in offered], \
+        by if by in offered else (named or offered)[0]
+
+
 # --------------------------------------------------------------------------- the card
 
 @callback(Output("fc-card", "style"), Output("fc-by", "options"), Output("fc-by", "value"),

@@ -131,7 +131,7 @@ def param_control(p: Param, value=None):
     """One control for an estimator parameter, chosen by the parameter's kind."""
     pid = {"type": "est-param", "name": p.name}
     value = p.default if value is None else value
-    if p.kind in ("choice", "kernel"):
+    if p.kind in ("choice", "kernel", "grouping"):
         labels = {k: v.label for k, v in KERNELS.items()} if p.kind == "kernel" else {}
         ctrl = dcc.Dropdown(id=pid, options=[{"label": labels.get(c, str(c)), "value": c}
                                              for c in p.options], value=value, clearable=False)
