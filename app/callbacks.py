@@ -30,6 +30,7 @@ from .derived import (comparison_for, current_curve, dataset_from_bytes, diagnos
                       panel_reference_lines, rule_marks, stored, strength_for, sweep_for,
                       view_inference)
 from .layout import estimator_controls, rule_options
+from .clusters import bootstrap_rows, grouping_columns
 from .state import STORE, key_for, spec_hash
 from .wiring import RUNNING, callback
 from .work import IDLE_POLLS, SHOW_AFTER, WORK
@@ -205,13 +206,15 @@ def on_spec(key, response, regressors, intercept, horizon, window, endogenous, i
     try:
         h = int(horizon) if horizon not in (None, "") else None
         with WORK.step(session, "Fitting the model"):
+            groups = grouping_columns(table)
             if endo or inst:
                 model = engine.fit_iv(table, response, regs, endo, inst,
-                                      intercept=bool(intercept), sample=sample, horizon=h)
+                                      intercept=bool(intercept), sample=sample, horizon=h,
+                                      clusters=groups)
             else:
                 model = engine.fit_ols(table, response, regs, intercept=bool(intercept),
                                        sample=sample, horizon=h,
-                                       one_period=one_period if h else None)
+                                       one_period=one_period if h else None, clusters=groups)
         fkey = key_for("fit", spec_hash([key, response, regs, bool(intercept), sample, h,
                                          endo, inst, one_period if h else None]))
         STORE.put(session, fkey, model)
@@ -251,19 +254,23 @@ def _panel_spec(table, key, response, regressors, intercept, window, endogenous,
                 entity, time, effects, focus, session):
     regs = regressors if isinstance(regressors, list) else []
     eff = tuple(e for e in ("entity", "time") if isinstance(effects, list) and e in effects)
+    endo = endogenous if isinstance(endogenous, list) else []
+    inst = instruments if isinstance(instruments, list) else []
     try:
-        if (isinstance(endogenous, list) and endogenous) or \
-                (isinstance(instruments, list) and instruments):
-            raise engine.SpecificationError("instruments are not offered for panels; clear the "
-                                            "endogenous regressors and instruments, or the "
-                                            "panel columns")
         periods = periods_of(table, time)
         sample, text = _window(pd.DataFrame(index=periods), window)
+        groups = grouping_columns(table, exclude=(entity, time))
         with WORK.step(session, "Fitting the panel"):
-            model = engine.fit_panel(table, response, regs, entity=entity, time=time,
-                                     effects=eff, intercept=bool(intercept), sample=sample)
+            if endo or inst:            # panel IV: the within transformation, then IV / GMM
+                model = engine.fit_panel_iv(table, response, regs, endo, inst, entity=entity,
+                                            time=time, effects=eff, intercept=bool(intercept),
+                                            sample=sample, clusters=groups)
+            else:
+                model = engine.fit_panel(table, response, regs, entity=entity, time=time,
+                                         effects=eff, intercept=bool(intercept), sample=sample,
+                                         clusters=groups)
         fkey = key_for("fit", spec_hash([key, response, regs, bool(intercept), str(sample),
-                                         "panel", entity, time, list(eff)]))
+                                         "panel", entity, time, list(eff), endo, inst]))
         STORE.put(session, fkey, model)
     except (engine.LagwiseError, ValueError, TypeError) as exc:
         return None, V.error_box(str(exc)), [], None, "", no_update
@@ -410,7 +417,7 @@ def on_inference(fkey, name, values, rule, slider, reference, level, focus, meth
     rows = no_update
     if shown != signature:
         comp = comparison_for(session, fkey, shown_model, level, reference, gmm_key)
-        rows = V.comparison_records(comp, focus, rejects)
+        rows = V.comparison_records(comp, focus, rejects) + bootstrap_rows(session, fkey, focus)
     return (V.coefficient_records(res), res.describe(), [html.Li(n) for n in notes], headline,
             V.tuning_text(res, model), rows, out_rule, out_slider,
             signature if rows is not no_update else no_update)

@@ -1,6 +1,7 @@
 """Command line: `lagwise table FILE ...` (estimator comparison), `lagwise panel FILE_OR_FOLDER
 ...` (panel estimators; a folder of Parquet files runs on Dask), `lagwise irf FILE ...`
-(impulse responses by local projections; app/cli_irf.py) and `lagwise serve [FILE]`."""
+(impulse responses by local projections; app/cli_irf.py), `lagwise bootstrap FILE ...`
+(the wild cluster bootstrap of one coefficient) and `lagwise serve [FILE]`."""
 
 from __future__ import annotations
 
@@ -101,14 +102,39 @@ def load_and_fit(args, bar=None):
         print(f"added column {name}", file=sys.stderr)
     regs = as_list(args.regressors)
     endog, instr = as_list(args.endogenous), as_list(args.instruments)
+    clusters = cluster_names(args)
     if endog or instr:
         return engine.fit_iv(table, args.response, regs, endog, instr,
                              intercept=not args.no_intercept, method=args.method,
-                             weight=weight_arg(args.weight), horizon=args.horizon)
+                             weight=weight_arg(args.weight), horizon=args.horizon,
+                             clusters=clusters)
     return engine.fit_ols(table, args.response, regs, intercept=not args.no_intercept,
                           horizon=args.horizon,
                           one_period=getattr(args, "one_period", None) if args.horizon
-                          else None)
+                          else None, clusters=clusters)
+
+
+def cluster_names(args) -> list[str]:
+    """--cluster COLUMN (repeatable, or comma-separated)."""
+    from ..engine.data.columns import as_list
+    out = []
+    for item in getattr(args, "cluster", None) or []:
+        out += as_list(item)
+    return out
+
+
+def cluster_lines(fit, names, level: float) -> list[str]:
+    """How few is few, for each grouping named on the command line (and a panel's own)."""
+    from .. import engine
+    lines = []
+    for by in names:
+        try:
+            s = engine.cluster_summary(fit, by)
+        except engine.LagwiseError as exc:
+            lines += ["", f"Clusters by {by}: summary not available: {exc}"]
+            continue
+        lines += ["", f"Clusters by {by} (how few is few)"] + [f"  {x}" for x in s.lines()]
+    return lines
 
 
 def cmd_table(args) -> int:
@@ -138,6 +164,7 @@ def cmd_table(args) -> int:
             extra = list(extra) + ["", f"Residual diagnostics not available: {exc}"]
     if "persistence" in kind.cards:
         extra = list(extra) + predictive_lines(fit, args)
+    extra = list(extra) + cluster_lines(fit, cluster_names(args), args.level)
     bar.update(1)
     bar.close()
     return write_output(args, fit, comp, extra, "standard errors across estimators")
@@ -286,14 +313,27 @@ def cmd_panel(args) -> int:
                 bar.set_description(what)
                 bar.update(done - bar.n)
             kw["progress"] = passes
-        fit = engine.fit_panel(data, args.response, regs, entity=args.entity, time=args.time,
-                               effects=effects, intercept=not args.no_intercept, client=client,
-                               **kw)
+        endog, instr = as_list(args.endogenous), as_list(args.instruments)
+        if endog or instr:
+            fit = engine.fit_panel_iv(data, args.response, regs, endog, instr,
+                                      entity=args.entity, time=args.time, effects=effects,
+                                      intercept=not args.no_intercept, method=args.method,
+                                      clusters=cluster_names(args) or None)
+        else:
+            fit = engine.fit_panel(data, args.response, regs, entity=args.entity,
+                                   time=args.time, effects=effects,
+                                   intercept=not args.no_intercept, client=client,
+                                   clusters=cluster_names(args) or None, **kw)
         if client is not None:
             bar.close()
         comp = fit.compare(level=args.level, reference=args.reference,
                            fama_macbeth=not args.no_fama_macbeth)
         extra = panel_flip_lines(fit, level=args.level)
+        if endog or instr:
+            extra = list(extra) + iv_lines(fit, engine.estimator("cluster", by="entity"),
+                                           args.level)
+        extra = list(extra) + cluster_lines(fit, cluster_names(args) or ["entity", "time"],
+                                            args.level)
     finally:
         if client is not None:
             client.close()
@@ -453,6 +493,70 @@ def cmd_factors(args) -> int:
     return 0
 
 
+def cmd_bootstrap(args) -> int:
+    """`lagwise bootstrap FILE ...`: the wild cluster bootstrap of one coefficient, with the
+    clustered t tests it is compared with."""
+    from .. import engine
+    from ..engine.data.columns import as_list
+    table = engine.load_table(args.file)
+    regs = as_list(args.regressors)
+    endog, instr = as_list(args.endogenous), as_list(args.instruments)
+    named = [c for c in as_list(args.cluster) if c not in ("entity", "time", "both")]
+    effects = {"none": (), "entity": ("entity",), "time": ("time",),
+               "both": ("entity", "time")}[args.effects]
+    common = dict(intercept=not args.no_intercept, clusters=named or None)
+    if args.entity or args.time:
+        if endog or instr:
+            fit = engine.fit_panel_iv(table, args.response, regs, endog, instr,
+                                      entity=args.entity, time=args.time, effects=effects,
+                                      **common)
+        else:
+            fit = engine.fit_panel(table, args.response, regs, entity=args.entity,
+                                   time=args.time, effects=effects, **common)
+    elif endog or instr:
+        fit = engine.fit_iv(table, args.response, regs, endog, instr, **common)
+    else:
+        fit = engine.fit_ols(table, args.response, regs, **common)
+    by = as_list(args.cluster)[0] if as_list(args.cluster) else "entity"
+    bar = progress_bar(args.reps, "replications")
+    res = engine.wild_cluster_bootstrap(
+        fit, args.coefficient, by=by, reps=args.reps, weights=args.weights, null=args.null,
+        level=args.level, seed=args.seed, restricted=not args.unrestricted,
+        pvalue=args.pvalue, progress=lambda done, total: bar.update(done - bar.n))
+    bar.close()
+    pct = f"{args.level:.0%}"
+    lines = [f"Lagwise wild cluster bootstrap: {engine.model_line(fit)}", "",
+             f"{res.coefficient} = {res.null:g}, clustered by {by}:"]
+    for c, d in (("cr1", "clusters"), ("cr2", "bell-mccaffrey"), ("cr3", "bell-mccaffrey")):
+        try:
+            r = fit.infer(engine.estimator("cluster", by=by, correction=c, df=d),
+                          level=args.level)
+        except engine.LagwiseError as exc:
+            lines.append(f"  {c.upper():<5}not available: {exc}")
+            continue
+        law = r.term_laws()[list(r.table.index).index(res.coefficient)]
+        row = r.table.loc[res.coefficient]
+        t = (row.estimate - res.null) / row.std_error
+        p = float(law.p_values(np.array([t]))[0])
+        lines.append(f"  {c.upper():<5}std err {_fmt(row.std_error):>10}  t {t:>8.3f}  "
+                     f"{law.label:<12} p {_p(p):>7}  "
+                     + ("rejected" if p < 1 - args.level else "not rejected"))
+    ci = "not computed" if res.ci is None else f"[{_fmt(res.ci[0])}, {_fmt(res.ci[1])}]"
+    lines.append(f"  {'wild':<5}bootstrap ({res.method}) p {_p(res.p_value):>7}  "
+                 + ("rejected" if res.p_value < 1 - args.level else "not rejected")
+                 + f"; {pct} interval by test inversion {ci}")
+    lines += ["", "  " + res.summary()] + [f"  note: {n}" for n in res.notes]
+    if by != "both":
+        lines += cluster_lines(fit, [by], args.level)
+    text = "\n".join(lines) + "\n"
+    if args.output:
+        Path(args.output).write_text(text)
+        print(f"wrote {args.output}", file=sys.stderr)
+    else:
+        sys.stdout.write(text)
+    return 0
+
+
 def cmd_serve(args) -> int:
     from .main import serve
     return serve(args.file, host=args.host, port=args.port, debug=args.debug,
@@ -493,10 +597,62 @@ def _factors_parser(sub) -> None:
     fa.set_defaults(func=cmd_factors)
 
 
+def _panel_few_cluster_options(q) -> None:
+    """`lagwise panel`: a further grouping column and panel IV."""
+    q.add_argument("--cluster", action="append", metavar="COLUMN",
+                   help="a further grouping column (a region, an industry): clustered rows and "
+                        "a summary of its clusters; repeatable (in memory only)")
+    q.add_argument("--endogenous", default="",
+                   help="regressors to instrument (panel IV after the within transformation)")
+    q.add_argument("--instruments", default="", help="excluded instruments (comma-separated)")
+    q.add_argument("--method", default="2sls", choices=["2sls", "two-step", "iterated", "cue"],
+                   help="panel IV estimation (default 2sls; GMM weights by entity clusters)")
+
+
+def _bootstrap_parser(sub) -> None:
+    """`lagwise bootstrap`: the wild cluster bootstrap of one coefficient."""
+    b = sub.add_parser("bootstrap", help="the wild cluster bootstrap of one coefficient, "
+                                         "beside CR1/CR2/CR3 (few clusters)")
+    b.add_argument("file", help="CSV or Parquet file")
+    b.add_argument("--response", required=True, help="response column")
+    b.add_argument("--regressors", default="", help="comma-separated regressor columns")
+    b.add_argument("--coefficient", required=True, help="the coefficient to test")
+    b.add_argument("--cluster", required=True, metavar="GROUPING",
+                   help="a column to cluster by, or entity, time or both for a panel")
+    b.add_argument("--entity", default=None, help="a panel's entity column")
+    b.add_argument("--time", default=None, help="a panel's period column")
+    b.add_argument("--effects", default="none", choices=["none", "entity", "time", "both"])
+    b.add_argument("--endogenous", default="", help="the instrumented regressor (WRE)")
+    b.add_argument("--instruments", default="", help="excluded instruments")
+    b.add_argument("--no-intercept", action="store_true", help="leave out the constant term")
+    b.add_argument("--reps", type=int, default=9999, help="replications (99 to 10,000,000; "
+                   "with Rademacher weights all 2^G sign vectors when 2^G <= reps)")
+    b.add_argument("--weights", default="rademacher", choices=["rademacher", "webb", "mammen"])
+    b.add_argument("--null", type=float, default=0.0, help="the value tested (default 0)")
+    b.add_argument("--level", type=float, default=0.95, help="confidence level (default 0.95)")
+    b.add_argument("--seed", type=int, default=0)
+    b.add_argument("--pvalue", default="symmetric", choices=["symmetric", "equal-tailed"])
+    b.add_argument("--unrestricted", action="store_true",
+                   help="do not impose the null on the bootstrap samples (WCU)")
+    b.add_argument("--output", default=None, help="write to this file instead of stdout")
+    b.set_defaults(func=cmd_bootstrap)
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="lagwise", description="Robust standard errors for "
                                 "time-series regressions, and how they depend on the lag choice.")
     sub = p.add_subparsers(dest="command", required=True)
+    _table_parser(sub)
+    _panel_parser(sub)
+    add_irf_parser(sub)
+    _factors_parser(sub)
+    _bootstrap_parser(sub)
+    _serve_parser(sub)
+    return p
+
+
+def _table_parser(sub) -> None:
+    """`lagwise table`: the estimator comparison for a regression."""
     t = sub.add_parser("table", help="print the estimator comparison for a regression")
     t.add_argument("file", help="CSV or Parquet file")
     t.add_argument("--response", required=True, help="response column")
@@ -529,6 +685,10 @@ def build_parser() -> argparse.ArgumentParser:
     t.add_argument("--size-check", type=int, default=0, metavar="N",
                    help="simulate N samples under beta = 0 and report each test's actual size")
     t.add_argument("--size-method", default="var", choices=["var", "block"])
+    t.add_argument("--cluster", action="append", metavar="COLUMN",
+                   help="a column whose labels group the rows (an industry, a region): its "
+                        "clustered rows (CR1, CR2 with Bell-McCaffrey df) join the comparison "
+                        "and a summary of its clusters is printed; repeatable")
     t.add_argument("--kernel", default=None, help="restrict kernel rows to one kernel")
     t.add_argument("--bandwidth", type=_bandwidth_arg, default=None,
                    help="real bandwidth b or a rule (andrews, newey-west, rule-of-thumb, "
@@ -536,6 +696,10 @@ def build_parser() -> argparse.ArgumentParser:
     t.add_argument("--lags", type=int, default=None, help="lag count L (sets b = L + 1)")
     _output_arguments(t)
     t.set_defaults(func=cmd_table)
+
+
+def _panel_parser(sub) -> None:
+    """`lagwise panel`: the panel estimators."""
     q = sub.add_parser("panel", help="compare panel estimators (clustered, Driscoll-Kraay, "
                                      "Fama-MacBeth); a folder of Parquet files runs on Dask")
     q.add_argument("source", help="CSV or Parquet file, or a folder of Parquet files")
@@ -546,6 +710,7 @@ def build_parser() -> argparse.ArgumentParser:
     q.add_argument("--effects", default="none", choices=["none", "entity", "time", "both"],
                    help="fixed effects removed by the within transformation")
     q.add_argument("--no-intercept", action="store_true", help="leave out the constant term")
+    _panel_few_cluster_options(q)
     q.add_argument("--no-fama-macbeth", action="store_true",
                    help="leave the Fama-MacBeth rows out of the comparison")
     q.add_argument("--scheduler", default=None, metavar="ADDRESS",
@@ -555,8 +720,10 @@ def build_parser() -> argparse.ArgumentParser:
                    help="workers of the local Dask cluster (default 2)")
     _output_arguments(q)
     q.set_defaults(func=cmd_panel)
-    add_irf_parser(sub)
-    _factors_parser(sub)
+
+
+def _serve_parser(sub) -> None:
+    """`lagwise serve`: the dashboard."""
     s = sub.add_parser("serve", help="open the dashboard in the browser (local only)")
     s.add_argument("file", nargs="?", default=None, help="data file (default: the demo data)")
     s.add_argument("--host", default="127.0.0.1",
@@ -568,7 +735,6 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--debug", action="store_true", help="Dash debug mode (development only)")
     s.add_argument("--settings", default=None, help="a saved settings JSON to start from")
     s.set_defaults(func=cmd_serve)
-    return p
 
 
 def main(argv=None) -> int:

@@ -76,6 +76,8 @@ def table_frame(target, session, fkey, model, res, focus, reference, base=None, 
     """(frame, caption, notes) for a table, from the engine's numbers."""
     if target == "coef-table":
         frame = res.table.reset_index()
+        if res.law.per_coefficient:          # degrees of freedom per coefficient
+            frame["df"] = [float(law.df) for law in res.term_laws()]
         return frame, f"{model.response}: {res.label}", [conventions(res)] + res.notes
     if target == "compare-table":
         from .state import spec_hash

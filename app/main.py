@@ -20,6 +20,7 @@ from . import callbacks, exports, studies  # noqa: F401 - their callbacks are re
 from . import projections  # noqa: F401 - the local-projection mode's callbacks
 from .derived import given_model
 from . import factors  # noqa: F401 - the factor-model mode: its sidebar section, cards, callbacks
+from . import clusters  # noqa: F401 - few clusters (issue 23): its callbacks are recorded on import
 from .layout import build_layout
 from .wiring import register
 from .state import MAX_UPLOAD_BYTES, STORE, CapacityError, content_hash, key_for

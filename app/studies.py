@@ -48,6 +48,11 @@ def job_manager():
     return DiskcacheManager(_JOBS["cache"], expire=3600)
 
 
+def job_cache():
+    """The disk cache behind the background jobs (None until the app is created)."""
+    return _JOBS["cache"]
+
+
 def lean_copy(fit) -> OLSFit:
     """The fit without its table and caches (what the size check needs)."""
     copy = OLSFit(X=np.array(fit.X), y=np.array(fit.y), terms=fit.terms,

@@ -97,6 +97,12 @@ SIZE_COLUMNS = [column("estimator", "estimator", text=False, left=True, width=29
                 column("nominal", "nominal"),
                 column("size_adjusted_critical_value", "size-adjusted |t|"),
                 column("typical_critical_value", "critical value used")]
+CLUSTER_COLUMNS = [column("estimator", "estimator", text=False, left=True, width=260,
+                          tooltip="note"),
+                   column("std_error", "std. error"), column("t_stat", "t"),
+                   column("df", "df"), column("p_value", "p"),
+                   column("interval", "interval", text=False, width=150),
+                   column("verdict", "beta = 0", text=False, width=110)]
 SUMMARY_COLUMNS = [column("column", "column", text=False, left=True),
                    column("count", "count"), column("missing", "missing"),
                    column("mean", "mean"), column("sd", "sd")]
@@ -108,6 +114,10 @@ def _with_text(row: dict, fields: dict) -> dict:
         row[name] = _num(value)
         row[name + "_txt"] = text
     return row
+
+
+#: A grid row: numbers for sorting plus their display text (for other app modules).
+with_text = _with_text
 
 
 # --------------------------------------------------------------------------- records

@@ -54,6 +54,13 @@ from .models.factors import (FactorModel, GRSTest, LargeNTest, fit_factor_model,
 from .models.joint import JointFlip, JointSweep, JointTest, joint_sweep, joint_test
 from .models.risk_premia import RiskPremia, RiskPremiaGMM, fit_risk_premia
 
+# few clusters (issue 23): bias-reduced cluster covariances, the wild cluster bootstrap, the
+# cluster summary, panel IV
+from .models.panel_iv import PanelIVFit, fit_panel_iv
+from .laws.clusters import ClusterT, HotellingT
+from .studies.wild_bootstrap import WildBootstrapResult, wild_cluster_bootstrap
+from .studies.cluster_summary import ClusterSummary, cluster_summary
+
 __all__ = [
     "DataError", "EstimationError", "LagwiseError", "LawUnavailable", "SpecificationError",
     "LoadReport", "Table", "load_table", "transform", "TRANSFORMS",
@@ -78,4 +85,7 @@ __all__ = [
     "FactorModel", "fit_factor_model", "GRSTest", "LargeNTest", "grs_test", "pesaran_yamagata",
     "JointTest", "JointSweep", "JointFlip", "joint_test", "joint_sweep",
     "RiskPremia", "RiskPremiaGMM", "fit_risk_premia",
+    # few clusters (issue 23)
+    "PanelIVFit", "fit_panel_iv", "ClusterT", "HotellingT", "WildBootstrapResult",
+    "wild_cluster_bootstrap", "ClusterSummary", "cluster_summary",
 ]

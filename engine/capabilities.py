@@ -37,6 +37,9 @@ class Capabilities:
     equations: tuple = ()
     #: groupings the model can cluster by ("entity", "time", or column names)
     clusters: tuple = ()
+    #: the hat matrix within each cluster (an orthonormal basis of its design and the absorbed
+    #: effects: `cluster_design`), which the bias-reduced cluster covariances CR2 and CR3 need
+    cluster_leverage: bool = False
 
     @property
     def several_equations(self) -> bool:
@@ -60,7 +63,11 @@ NEEDS = {
     "rows": "this needs the model's rows in memory, which a fit from sufficient statistics "
             "does not keep",
     "reweighting": "the weighting of this model's moments cannot follow the estimator",
-    "clusters": "this model offers no grouping to cluster by",
+    "clusters": "this estimator groups the moment contributions into clusters: it needs a panel "
+                "fit (lagwise.fit_panel, which offers its entity and period codes) or a fit "
+                "given a grouping column (clusters=...)",
+    "cluster_leverage": "this estimator needs the hat matrix within each cluster (CR2, CR3), "
+                        "which this model does not declare; use CR1",
 }
 
 

@@ -28,6 +28,7 @@ from .models.fama_macbeth import FamaMacBethFit, fit_fama_macbeth
 from .models.iv import IVFit, fit_iv
 from .models.ols import OLSFit, fit_ols
 from .models.panel import PanelFit, PeriodSums, fit_panel
+from .models.panel_iv import PanelIVFit, fit_panel_iv
 from .models.series import SeriesModel
 from .models.stacked import StackedModel, stack
 from .distributed.panel import PanelSummaryFit
@@ -353,3 +354,32 @@ register_kind(ModelKind(
     fit=fit_factor_model, default_family="kernel", cards=("factors",), line=factor_line,
     recipe=factor_recipe,
     notes="the dashboard opens a factor model fitted in Python as it is (no table refit)"))
+# --------------------------------------------------------------------------- panel IV (few clusters)
+
+def panel_iv_line(model) -> str:
+    p, core = model.panel, model.core
+    slopes = [t for t in model.terms if t != INTERCEPT]
+    effects = (" + ".join(p.effects) + " effects") if p.effects else "pooled"
+    return _join(f"{model.response} on {', '.join(slopes)}",
+                 f"{', '.join(core.endogenous)} instrumented by {', '.join(core.excluded)}",
+                 model.method if model.method != "2sls" else "2SLS",
+                 f"{p.n_entities:,} {p.entity} x {p.n_periods:,} {p.time}", effects,
+                 f"N = {model.nobs:,}{_lost(model)}", f"df N - K = {model.df_resid:,}")
+
+
+def panel_iv_recipe(model):
+    p, core = model.panel, model.core
+    return "fit_panel_iv", {"response": model.response,
+                            "regressors": [t for t in model.terms if t != INTERCEPT],
+                            "endogenous": list(core.endogenous),
+                            "instruments": list(core.excluded), "entity": p.entity,
+                            "time": p.time, "effects": list(p.effects),
+                            "intercept": INTERCEPT in model.terms or bool(p.effects),
+                            "sample": _window(model), "clusters": list(model.groupings) or None}
+
+
+register_kind(ModelKind(
+    name="panel-iv", title="panel instrumental variables", model_class=PanelIVFit,
+    fit=fit_panel_iv, default_family="driscoll_kraay", cards=("instruments", "panel-lines"),
+    residual_chart="panel", diagnostics=_panel_diagnostics, recipe=panel_iv_recipe,
+    line=panel_iv_line))

@@ -386,7 +386,7 @@ def test_panel_demo_in_the_page(page: Page, live_server, tmp_path):
         "() => document.getElementById('sens-graph').querySelector('.js-plotly-plot')"
         ".data.some(t => (t.name || '').startsWith('Fama-MacBeth'))")
     # clustering by time: no tuning value, the table follows
-    choose(page, "est-name", "Clustered (panel)")
+    choose(page, "est-name", "Clustered")
     expect(page.locator("#tune-title")).to_have_text("no tuning value", timeout=20_000)
     cl = fit.infer(lagwise.estimator("cluster", by="entity"))
     expect(se_cell(page, 1)).to_have_text(fmt(cl.table.std_error.iloc[1]), timeout=20_000)

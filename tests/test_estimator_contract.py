@@ -74,7 +74,7 @@ def test_every_family_applies_to_some_fit(series_fits, panel_fits, horizon_fits)
 
 def options(p):
     """Every value worth trying for one parameter."""
-    if p.kind in ("choice", "kernel"):
+    if p.kind in ("choice", "kernel", "grouping"):
         return list(p.options)
     if p.kind == "bool":
         return [False, True]
@@ -148,8 +148,15 @@ def test_every_law_request_gives_a_law_or_a_typed_error(family, fits):
             law = res.law
             assert law.describe() and law.label
             cv = law.critical_value(0.95)
-            assert np.isfinite(cv) and cv > 1.5
-            assert res.critical_value == cv
+            assert np.all(np.isfinite(cv)) and np.all(np.asarray(cv) > 1.5)
+            assert np.array_equal(res.critical_value, cv)
+            if law.per_coefficient:        # degrees of freedom per coefficient: one cv each
+                k = len(res.table)
+                for row in np.stack([law.p_values(np.zeros(k)), law.p_values(cv),
+                                     law.p_values(np.full(k, np.inf))], axis=1):
+                    assert row[0] == pytest.approx(1.0, abs=1e-6)
+                    assert row[1] == pytest.approx(0.05, abs=2e-3) and np.isnan(row[2])
+                continue
             p = law.p_values(np.array([0.0, cv, np.inf]))
             assert p[0] == pytest.approx(1.0, abs=1e-6) and p[1] == pytest.approx(0.05, abs=2e-3)
             assert np.isnan(p[2])
@@ -183,7 +190,8 @@ def test_bad_parameters_raise_clear_errors(family):
         lagwise.estimator(family.name, nonsense=1)
     for p in family.params:
         bad = {"choice": "no-such-choice", "kernel": "no-such-kernel", "bool": "yes",
-               "int": "three", "float": "x", "bandwidth": -1.0, "int_or_rule": "three"}[p.kind]
+               "int": "three", "float": "x", "bandwidth": -1.0, "int_or_rule": "three",
+               "grouping": 3}[p.kind]
         with pytest.raises(lagwise.SpecificationError, match=p.name if p.kind != "bandwidth"
                            else "bandwidth"):
             lagwise.estimator(family.name, **{p.name: bad})

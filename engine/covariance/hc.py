@@ -2,9 +2,7 @@
 
 from __future__ import annotations
 
-import numpy as np
 
-from ..data.columns import index_label
 from ..errors import EstimationError
 from .longrun import LongRun
 from .registry import Family, Param, estimator, register_family
@@ -23,18 +21,7 @@ def heteroskedasticity_robust(model, kind: str) -> LongRun:
     if not (model.capabilities.leverage and model.capabilities.design):
         raise EstimationError(f"{kind.upper()} needs the leverage of each observation, which "
                               f"is not defined for this model ({model.kind}); use HC0 or HC1")
-    h = model.leverage
-    if kind in ("hc2", "hc3"):
-        bad = np.flatnonzero(h > 1.0 - LEVERAGE_TOL)
-        if bad.size:
-            rows = ", ".join(str(index_label(model.index[i])) for i in bad[:5])
-            raise EstimationError(
-                f"{kind.upper()} is undefined: {bad.size} observation(s) have leverage 1 "
-                f"(rows {rows}); each is fitted exactly, e.g. by a dummy for one row. "
-                "Use HC0/HC1 or drop those rows.")
-        omega = model.resid**2 / (1.0 - h) ** (1 if kind == "hc2" else 2)
-    w = model.working_design
-    s = (w * omega[:, None]).T @ w / model.nobs * factor
+    s = model.leverage_outer(1 if kind == "hc2" else 2) / model.nobs * factor
     return LongRun(S=s, factor=factor)
 
 _HC_TEXT = {

@@ -34,6 +34,7 @@ class Param:
 
     name: str
     kind: str     # "choice" | "kernel" | "bandwidth" | "bool" | "int" | "float" | "int_or_rule"
+    #               | "grouping" (one of `choices` or a column name a model offers)
     default: Any
     help: str
     choices: tuple = ()
@@ -262,6 +263,12 @@ def _check_param(owner: str, p: Param, value):
         if not isinstance(value, str) or value not in p.options:
             raise SpecificationError(f"{owner}: {p.name}={value!r} is not one of "
                                      f"{', '.join(map(str, p.options))}")
+    elif p.kind == "grouping":
+        if not isinstance(value, str) or not value.strip():
+            raise SpecificationError(f"{owner}: {p.name} must be one of "
+                                     f"{', '.join(map(str, p.options))} or the name of a column "
+                                     f"the fit offers, got {value!r}")
+        value = value.strip()
     elif p.kind == "bool":
         if not isinstance(value, (bool, np.bool_)):
             raise SpecificationError(f"{owner}: {p.name} must be true or false, got {value!r}")

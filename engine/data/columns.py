@@ -33,6 +33,8 @@ class SampleInfo:
     first: object = None
     last: object = None
     notes: list[str] = field(default_factory=list)
+    #: positions of the rows used in the frame they were read from (None: not recorded)
+    rows: np.ndarray | None = field(default=None, repr=False)
 
 
 def column_ranges(values: np.ndarray):
@@ -147,6 +149,7 @@ def numeric_block(frame, cols, non_numeric, sample, what="column", ones: bool = 
     index = frame.index
     available = len(index)
     info = SampleInfo(rows_available=available, rows_used=0)
+    rows = np.arange(available)           # positions in the frame of the rows used
     window = None
     if sample is not None:
         try:
@@ -156,7 +159,9 @@ def numeric_block(frame, cols, non_numeric, sample, what="column", ones: bool = 
             raise SpecificationError(f"sample window {sample!r} does not match the index: {exc}") \
                 from None
         index = index[window]
+        rows = rows[window]
         info.dropped_window = available - len(index)
+    info.rows = rows
     lead = int(ones)
     n = len(index)
     values, lo, hi = column_block([series[col] if window is None else series[col].iloc[window]
@@ -188,6 +193,7 @@ def numeric_block(frame, cols, non_numeric, sample, what="column", ones: bool = 
                 "estimators")
     info.notes.insert(0, f"{info.dropped_missing} rows with missing values dropped")
     index = index[ok]
+    info.rows = rows[ok]
     kept = take_rows(values, idx)
     if idx.size:
         lo, hi = column_ranges(kept)

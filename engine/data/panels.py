@@ -121,6 +121,7 @@ class PanelData:
     lo: np.ndarray = None
     hi: np.ndarray = None
     entity_major: bool = False       # rows sorted by entity, then period (no duplicates)
+    rows: np.ndarray | None = None   # positions of the rows used in the frame
 
 
 def _plain_integers(series: pd.Series) -> bool:
@@ -307,7 +308,7 @@ def panel_data(data, response, regs, entity, time, sample=None, ones: bool = Fal
                      entities=pd.Index(entities, name=entity), periods=pd.Index(periods,
                                                                                  name=time),
                      index=index, sample=info, table=table, horizon=horizon, lo=lo, hi=hi,
-                     entity_major=entity_major)
+                     entity_major=entity_major, rows=np.arange(rows) if idx is None else idx)
 
 
 def _check_duplicates(e_codes, t_codes, entities, periods, idx) -> bool:

@@ -17,10 +17,20 @@ local scheduler otherwise:
 Every estimator that needs only these (classical, HC0/HC1, clustering by entity, time or both,
 Driscoll-Kraay with any kernel and bandwidth rule, fixed-b, the bandwidth sweeps, Fama-MacBeth
 with any time-series estimator) then runs locally on small arrays; the results equal the
-in-memory path to rounding (tested to 1e-10). Not available here, with a typed error saying so:
-HC2/HC3 (they need each row's leverage), entity clusters + a time kernel (it needs each entity's
-rows together), and two-way fixed effects on an unbalanced panel (alternating projections would
-need a pass per sweep).
+in-memory path to rounding (tested to 1e-10).
+
+Two-way fixed effects on an unbalanced panel: the passes demean by the larger dimension; the
+other dimension's dummies are then projected out exactly by a system of its size built from the
+cell incidence (Frisch-Waugh-Lovell), and the scores pass applies the same projection row by
+row. Estimators that need more than sums run one further pass when first asked for, on the
+client that fitted the panel: HC2/HC3 (each row's leverage in closed form: none with two-way
+effects on an unbalanced panel, as in memory), CR2/CR3 by entity or period (per-cluster p x p
+blocks; with absorbed effects only when they are nested in the clusters, since otherwise their
+basis spans all rows: a typed error says so; two-way CR2/CR3 on pooled panels, whose cells are
+single rows, use the HC2/HC3 sums), and entity clusters with a time kernel (the within-entity
+lag products, partition by partition when no entity spans two partitions, after a shuffle of the
+rows by entity otherwise). The wild cluster bootstrap and clustering by other columns need the
+rows in memory.
 """
 
 from __future__ import annotations
@@ -33,6 +43,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 import scipy.linalg as sla
+from scipy import sparse
 
 from ..errors import DataError, EstimationError, SpecificationError
 from ..capabilities import Capabilities
@@ -42,7 +53,10 @@ from ..data.panels import (PanelInfo, describe_effects, id_values, register_larg
                            time_values)
 from ..models.base import MomentModel
 from ..models.fama_macbeth import FamaMacBethFit, assemble_fama_macbeth
-from ..models.panel import ABSORBED_TOL, PeriodSums, compare_panel
+from ..covariance.fewclusters import blocks_from_sums
+from ..data.groupings import Grouping
+from ..models.panel import (ABSORBED_TOL, PanelRows, PeriodSums, compare_panel,
+                            within_lag_products)
 
 
 #: The counting pass keeps a map of the (entity, period) cells present (duplicates, balance):
@@ -247,7 +261,8 @@ def _pass_counts(part, spec):
            "sum": v.sum(axis=0), "lo": v.min(axis=0) if len(v) else np.full(m, np.inf),
            "hi": v.max(axis=0) if len(v) else np.full(m, -np.inf),
            "bitmap": np.packbits(bitmap), "duplicate": dup,
-           "e_count": np.bincount(e, minlength=g), "t_count": np.bincount(t, minlength=tp)}
+           "e_count": np.bincount(e, minlength=g), "t_count": np.bincount(t, minlength=tp),
+           "e_parts": (np.bincount(e, minlength=g) > 0).astype(np.int64)}
     if "entity" in spec["effects"]:
         out["e_sum"] = np.column_stack([np.bincount(e, weights=v[:, j], minlength=g)
                                         for j in range(m)]) if m else np.zeros((g, 0))
@@ -258,7 +273,9 @@ def _pass_counts(part, spec):
 
 
 def _transformed(part, spec):
-    """Compact codes and centred / demeaned values of one partition's usable rows."""
+    """Compact codes and centred / demeaned values of one partition's usable rows (two-way
+    effects on an unbalanced panel: demeaned by the larger dimension, then, once the small
+    system is solved, the dummies of the other dimension projected out)."""
     e, t, v, labelled, finite = _rows(part, spec)
     ok = labelled & finite
     e, t, v = spec["e_compact"][e[ok]], spec["t_compact"][t[ok]], v[ok]
@@ -269,14 +286,24 @@ def _transformed(part, spec):
         z = v - spec["e_mean"][e]
     elif eff == ("time",):
         z = v - spec["t_mean"][t]
-    else:
+    elif not spec.get("unbalanced"):
         z = v - spec["e_mean"][e] - spec["t_mean"][t] + spec["mean"]
+    else:
+        a, d = (e, t) if spec["a_dim"] == "entity" else (t, e)
+        z = v - spec["a_mean"][a]
+        if "gamma" in spec:
+            z = z - spec["gamma"][d] + spec["gbar"][a]
     return e, t, v, z
 
 
 def _pass_cross(part, spec):
     e, t, v, z = _transformed(part, spec)
     out = {"zz": z.T @ z, "centred_ss": ((v - spec["mean"]) ** 2).sum(axis=0)}
+    if spec.get("unbalanced"):
+        d, nd = (t, spec["n_periods_compact"]) if spec["a_dim"] == "entity" else \
+            (e, spec["n_entities_compact"])
+        out["d_sum"] = np.column_stack([np.bincount(d, weights=z[:, j], minlength=nd)
+                                        for j in range(z.shape[1])])
     if spec.get("fama_macbeth"):
         out.update(_fm_sums(t, v - spec["mean"], spec["n_periods_compact"]))
     return out
@@ -295,13 +322,21 @@ def _fm_sums(t, w, n_periods):
     return out
 
 
-def _pass_scores(part, spec):
+def _scored(part, spec):
+    """Codes, the design rows x_c (the constant and the centred or demeaned regressors) and the
+    residuals of one partition's usable rows."""
     e, t, v, z = _transformed(part, spec)
     k_s = spec["n_slopes"]
     resid = z[:, -1] - z[:, :k_s] @ spec["slopes"]
-    g = z[:, :k_s] * resid[:, None]
+    x = z[:, :k_s]
     if spec["intercept"]:
-        g = np.column_stack([resid, g])
+        x = np.column_stack([np.ones(len(resid)), x])
+    return e, t, x, resid
+
+
+def _pass_scores(part, spec):
+    e, t, x, resid = _scored(part, spec)
+    g = x * resid[:, None]
     m = g.shape[1]
     return {"ssr": np.array([resid @ resid]), "outer": g.T @ g,
             "t_sums": np.column_stack([np.bincount(t, weights=g[:, j],
@@ -310,6 +345,70 @@ def _pass_scores(part, spec):
             "e_sums": np.column_stack([np.bincount(e, weights=g[:, j],
                                                    minlength=spec["n_entities_compact"])
                                        for j in range(m)])}
+
+
+def _grouped_cross(codes, x, n):
+    """(n, k, k) sums of x_i x_i' within each group."""
+    k = x.shape[1]
+    out = np.empty((n, k, k))
+    for a in range(k):
+        for b in range(a, k):
+            out[:, a, b] = np.bincount(codes, weights=x[:, a] * x[:, b], minlength=n)
+            out[:, b, a] = out[:, a, b]
+    return out
+
+
+def _pass_extras(part, spec):
+    """What leverage-based and within-entity estimators need, in one pass: the HC2 and HC3
+    sums (rows' leverage in closed form), the per-cluster blocks of CR2 and CR3 (groupings with
+    no absorbed effect outside them) and, when no entity spans partitions, the within-entity
+    lag products."""
+    e, t, x, resid = _scored(part, spec)
+    out = {}
+    if spec["hc"]:
+        h = np.einsum("ij,jk,ik->i", x, spec["xx_inv"], x) + _dummy_leverage(e, t, spec)
+        out["lev_max"] = np.array([h.max() if len(h) else -np.inf])
+        for power in (1, 2):
+            w = resid ** 2 / (1.0 - np.minimum(h, 1.0 - 1e-300)) ** power
+            out[f"hc{power + 1}"] = (x * w[:, None]).T @ x
+    for dim in spec["block_dims"]:
+        codes, n = (e, spec["n_entities_compact"]) if dim == "entity" else \
+            (t, spec["n_periods_compact"])
+        out[f"W_{dim}"] = _grouped_cross(codes, x, n)
+        out[f"qe_{dim}"] = np.column_stack([np.bincount(codes, weights=x[:, j] * resid,
+                                                        minlength=n) for j in range(x.shape[1])])
+        out[f"q1_{dim}"] = np.column_stack([np.bincount(codes, weights=x[:, j], minlength=n)
+                                            for j in range(x.shape[1])])
+        out[f"esum_{dim}"] = np.bincount(codes, weights=resid, minlength=n)
+    if spec["lags"]:
+        out["lags"] = _lags_of(e, t, x * resid[:, None], spec)
+    return out
+
+
+def _pass_lags(part, spec):
+    """Within-entity lag products of a partition holding whole entities (after a shuffle)."""
+    e, t, x, resid = _scored(part, spec)
+    return {"lags": _lags_of(e, t, x * resid[:, None], spec)}
+
+
+def _lags_of(e, t, g, spec):
+    if not len(e):
+        return np.zeros((spec["n_periods_compact"], g.shape[1], g.shape[1]))
+    local, ents = pd.factorize(e)
+    return within_lag_products(g, local.astype(np.int64), t, len(ents),
+                               spec["n_periods_compact"])
+
+
+def _dummy_leverage(e, t, spec):
+    """The effects' part of each row's leverage (closed forms; see PanelFit)."""
+    eff = spec["effects"]
+    if not eff:
+        return 0.0
+    if eff == ("entity",):
+        return 1.0 / spec["e_n"][e]
+    if eff == ("time",):
+        return 1.0 / spec["t_n"][t]
+    return 1.0 / spec["n_periods_compact"] + 1.0 / spec["n_entities_compact"] - 1.0 / spec["n"]
 
 
 def _map(ddf, func, spec):
@@ -394,15 +493,27 @@ def _prepare(data, response, regs, entity, time, effects, sample, client, fama_m
     bitmap = np.unpackbits(counts["bitmap"])[: len(entities) * len(periods)].astype(bool)
     cells = bitmap.reshape(len(entities), len(periods))[present_e][:, present_t]
     balanced = n == cells.shape[0] * cells.shape[1]
+    spec["e_n"] = counts["e_count"][present_e].astype(float)
+    spec["t_n"] = counts["t_count"][present_t].astype(float)
+    spec["n"] = float(n)
+    spec["entities_split"] = bool((counts["e_parts"][present_e] > 1).any())
     if "entity" in effects:
         spec["e_mean"] = counts["e_sum"][present_e] / counts["e_count"][present_e][:, None]
     if "time" in effects:
         spec["t_mean"] = counts["t_sum"][present_t] / counts["t_count"][present_t][:, None]
     if effects == ("entity", "time") and not balanced:
-        raise SpecificationError(
-            "two-way fixed effects on an unbalanced panel need alternating projections over "
-            "the whole data (a pass per sweep); on the Dask path use entity or time effects "
-            "(with clustering or Driscoll-Kraay for the other dimension), or fit in memory")
+        # demean by the larger dimension exactly; the smaller one's dummies are projected out
+        # after the cross products, by a system of its size (see _two_way_system)
+        spec["unbalanced"] = True
+        spec["a_dim"] = "entity" if cells.shape[0] >= cells.shape[1] else "time"
+        spec["a_mean"] = spec["e_mean"] if spec["a_dim"] == "entity" else spec["t_mean"]
+        small = min(cells.shape)
+        if small > MAX_TWO_WAY_LEVELS or n * small > MAX_TWO_WAY_WORK:
+            raise SpecificationError(
+                f"two-way fixed effects on this unbalanced panel need a {small} x {small} "
+                f"system built from {n:,} rows (about {n * small:.2g} operations, above the "
+                "limit of the Dask path); use entity or time effects with clustering or "
+                "Driscoll-Kraay for the other dimension, or fit in memory")
     info = SampleInfo(rows_available=n + int(counts["no_label"][0] + counts["missing"][0]),
                       rows_used=n, dropped_missing=int(counts["missing"][0]))
     if counts["no_label"][0]:
@@ -412,6 +523,34 @@ def _prepare(data, response, regs, entity, time, effects, sample, client, fama_m
         info.notes.append(f"{int(counts['missing'][0])} rows with missing values dropped")
     return ddf, spec, counts, cells, pd.Index(entities[present_e], name=entity), \
         pd.Index(periods[present_t], name=time), info
+
+
+#: Two-way effects on an unbalanced panel: the smaller dimension's system is at most this large,
+#: and building it at most this much work (rows times its size).
+MAX_TWO_WAY_LEVELS = 4000
+MAX_TWO_WAY_WORK = 5e10
+
+
+def _two_way_system(cross, cells, spec):
+    """Two-way within cross products on an unbalanced panel, exactly (Frisch-Waugh-Lovell):
+    with A the dimension demeaned in the passes and D the other's dummies (L levels),
+    D~ = M_A D, D~'D~ = diag(n_d) - C' diag(1/n_a) C (C the cell incidence, a x d), and for every
+    column a~'b~ - (D~'a~)' (D~'D~)^+ (D~'b~). Returns (zz, gamma, gbar, rank of D~'D~):
+    gamma = (D~'D~)^+ D~'z per level of D and gbar its mean over each A unit's cells, so a row's
+    two-way within value is z - gamma[d] + gbar[a]."""
+    C = cells if spec["a_dim"] == "entity" else cells.T
+    C = C.astype(float)
+    n_a = C.sum(axis=1)
+    S = sparse.csr_matrix(C / np.sqrt(n_a)[:, None])
+    dtd = np.diag(C.sum(axis=0)) - (S.T @ S).toarray()
+    lam, vec = np.linalg.eigh(0.5 * (dtd + dtd.T))
+    keep = lam > 1e-10 * max(float(lam.max()), 1e-300)
+    pinv = (vec[:, keep] / lam[keep]) @ vec[:, keep].T
+    d_sum = cross["d_sum"]
+    gamma = pinv @ d_sum
+    zz = cross["zz"] - d_sum.T @ gamma
+    gbar = (C @ gamma) / n_a[:, None]
+    return 0.5 * (zz + zz.T), gamma, gbar, int(keep.sum())
 
 
 class _Structure(PanelInfo):
@@ -455,12 +594,20 @@ class PanelSummaryFit(MomentModel):
 
     @property
     def capabilities(self) -> Capabilities:
-        """A panel's grouped sums without its rows (no leverage, no diagnostics)."""
-        return Capabilities(panel=True, rows=False, clusters=("entity", "time"))
+        """A panel's grouped sums without its rows (no residual diagnostics): leverage in
+        closed form (not for two-way effects on an unbalanced panel), clusters by entity and
+        period with the per-cluster blocks of CR2 and CR3 from a further pass."""
+        return Capabilities(panel=True, rows=False, design=True, least_squares=True,
+                            leverage=self._leverage_closed, clusters=("entity", "time"),
+                            cluster_leverage=True)
 
     def __init__(self, *, beta, terms, response, nobs, panel, sample, gram, mean_x, intercept,
-                 ssr, outer_c, t_sums_c, e_sums_c, tss, fm=None):
+                 ssr, outer_c, t_sums_c, e_sums_c, tss, fm=None, source=None):
         self._init_model()
+        #: (Dask DataFrame, pass specification, client) for the passes that leverage and
+        #: within-entity estimators need, run when first asked for (`_extras`)
+        self._source = source
+        self._leverage_closed = not (len(panel.effects) == 2 and not panel.balanced)
         self.beta = beta
         self.terms = list(terms)
         self.response = response
@@ -513,10 +660,101 @@ class PanelSummaryFit(MomentModel):
     def period_model(self):
         return self.caches.get("period_model", lambda: PeriodSums(self, self._sums["time"]))
 
+    # ------------------------------------------------------------------ further passes
+    def _pass(self, func, what, data=None, extra=None):
+        if self._source is None:
+            raise EstimationError(f"{what} needs a further pass over the data, which this fit "
+                                  "no longer has; fit again")
+        ddf, spec, client = self._source
+        if client is not None and getattr(client, "status", "running") != "running":
+            raise EstimationError(f"{what} needs a further pass over the data, and the Dask "
+                                  "client that fitted this panel is closed; fit again with an "
+                                  "open client")
+        (out,) = _compute(client, _map(ddf if data is None else data, func,
+                                       {**spec, **(extra or {})}))
+        return out
+
+    def _extras(self) -> dict:
+        """One pass for HC2/HC3, the CR2/CR3 blocks and (entities within partitions) the
+        within-entity lag products; computed once."""
+        def build():
+            _, spec, _ = self._source if self._source is not None else (None, {}, None)
+            dims = [d for d in ("entity", "time") if self.effects_nested_in(d)
+                    or not self.panel.effects]
+            k = self.k
+            c_gram = np.linalg.inv(self._basis_c.T @ self._basis_c)
+            return self._pass(_pass_extras, "this estimator", extra={
+                "hc": self._leverage_closed, "xx_inv": c_gram, "block_dims": dims,
+                "lags": not spec.get("entities_split", True), "k": k})
+        return self.caches.get("extras", build)
+
+    def leverage_outer(self, power: int) -> np.ndarray:
+        if not self._leverage_closed:
+            raise EstimationError("HC2/HC3 need each row's leverage, which has no closed form "
+                                  "with two-way effects on an unbalanced panel")
+        ex = self._extras()
+        if ex["lev_max"][0] > 1.0 - 1e-10:
+            raise EstimationError(f"HC{power + 1} is undefined: some observations have leverage "
+                                  "1 (each is fitted exactly); use HC0/HC1")
+        return self._inv_c.T @ ex[f"hc{power + 1}"] @ self._inv_c
+
+    def effects_nested_in(self, name: str) -> bool:
+        return tuple(self.panel.effects) == (name,)
+
+    def grouping(self, name: str) -> Grouping:
+        if name not in ("entity", "time"):
+            return super().grouping(name)
+        labels = self.panel.entities if name == "entity" else self.panel.periods
+        return Grouping(name, np.zeros(0, dtype=np.int64), labels)
+
+    def cluster_design(self):
+        raise EstimationError("this needs the rows of the panel (the wild cluster bootstrap, "
+                              "CR2/CR3 with effects outside the clusters), which the Dask path "
+                              "does not gather; fit in memory")
+
+    def cluster_blocks(self, name: str):
+        """Per-cluster blocks of CR2/CR3 by entity or period, from the further pass; refused
+        with absorbed effects not nested in the clusters (their basis spans all rows)."""
+        if name not in ("entity", "time"):
+            raise EstimationError(f"CR2/CR3 by {name!r} are not available on the Dask path")
+        if self.panel.effects and not self.effects_nested_in(name):
+            raise EstimationError(
+                f"CR2/CR3 clustered by {name} with {' and '.join(self.panel.effects)} effects "
+                "need the effects' basis over all rows (the effects are not nested in the "
+                "clusters; Pustejovsky & Tipton 2018), which the Dask path does not gather; use "
+                "CR1, cluster by the effects' own dimension, or fit in memory")
+
+        def build():
+            ex = self._extras()
+            inv = self._inv_c
+            W = np.einsum("ai,gab,bj->gij", inv, ex[f"W_{name}"], inv)
+            counts = self.panel.counts if name == "entity" else self.panel.period_counts
+            return blocks_from_sums(self.grouping(name), W, ex[f"qe_{name}"] @ inv,
+                                    ex[f"q1_{name}"] @ inv, ex[f"esum_{name}"], self._ssr,
+                                    self.nobs, counts, nested=list(self.panel.effects))
+        return self.caches.get(f"cluster_blocks_{name}", build)
+
+    def cluster_meat(self, name: str, correction: str) -> np.ndarray:
+        """The cells of entities and periods are single rows: their CR2 / CR3 term is the
+        HC2 / HC3 sum (the row's leverage with the effects, in closed form)."""
+        if name == PanelRows.CELLS:
+            return self.leverage_outer(1 if correction == "cr2" else 2)
+        return super().cluster_meat(name, correction)
+
     def within_lags(self):
-        raise EstimationError("entity clusters + a time kernel needs each entity's rows "
-                              "together, which the Dask path does not gather; use two-way "
-                              "clustering or Driscoll-Kraay, or fit in memory")
+        """sum_i sum_t g_it g_i,t-j' (working basis): in the further pass when no entity spans
+        partitions, otherwise after a shuffle of the rows by entity."""
+        def build():
+            ddf, spec, _ = self._source if self._source is not None else (None, {}, None)
+            if self._source is not None and not spec.get("entities_split", True):
+                lags = self._extras()["lags"]
+            else:
+                shuffled = ddf.shuffle(on=spec["entity"]) if ddf is not None else None
+                lags = self._pass(_pass_lags, "entity clusters + a time kernel",
+                                  data=shuffled)["lags"]
+            inv = self._inv_c
+            return np.einsum("ai,jab,bk->jik", inv, lags, inv)
+        return self.caches.get("within_lags", build)
 
     @property
     def working_basis(self):
@@ -558,8 +796,14 @@ class PanelSummaryFit(MomentModel):
 
     def describe_method(self):
         p = self.panel
-        return describe_effects(p.effects, p.absorbed, p.components, p.iterations,
-                                 p.balanced) + "; fitted on Dask from sufficient statistics"
+        text = describe_effects(p.effects, p.absorbed, p.components, p.iterations, p.balanced)
+        if len(p.effects) == 2 and not p.balanced:
+            a = self._source[1]["a_dim"] if self._source is not None else "entity"
+            d = "time" if a == "entity" else "entity"
+            text = (f"entity and time fixed effects removed exactly: demeaning by {a}, then the "
+                    f"{d} dummies projected out by a system of their size; {p.absorbed} degrees "
+                    "of freedom absorbed by the effects, counted in N - K")
+        return text + "; fitted on Dask from sufficient statistics"
 
     def fama_macbeth(self):
         if self._fm is None:
@@ -622,9 +866,13 @@ def _fm_from_sums(sums, periods, terms, regs, response, mean, intercept, sample,
 
 def fit_panel_distributed(data, response, regs, entity, time, effects=(), intercept=True,
                           sample=None, client=None, fama_macbeth=True,
-                          progress=None) -> PanelSummaryFit:
+                          progress=None, clusters=None) -> PanelSummaryFit:
     """`fit_panel` on a Dask DataFrame or a Parquet folder (see the module docstring).
     progress(done, total, what) is called before each pass over the data."""
+    if clusters:
+        raise SpecificationError(f"clustering by a column ({clusters!r}) is not offered on the "
+                                 "Dask path: it clusters by entity, by period or both; fit in "
+                                 "memory to cluster by another grouping")
     step = progress or (lambda done, total, what: None)
     ddf, spec, counts, cells, entities, periods, info = _prepare(
         data, response, regs, entity, time, effects, sample, client, fama_macbeth, progress)
@@ -633,6 +881,9 @@ def fit_panel_distributed(data, response, regs, entity, time, effects=(), interc
     step(2, 4, "cross products")
     (cross,) = _compute(client, _map(ddf, _pass_cross, spec))
     zz = cross["zz"]
+    rank = None
+    if spec.get("unbalanced"):
+        zz, spec["gamma"], spec["gbar"], rank = _two_way_system(cross, cells, spec)
     before, after = np.sqrt(cross["centred_ss"]), np.sqrt(np.diag(zz))
     if effects:
         gone = [j for j in range(k_s) if after[j] <= ABSORBED_TOL * max(before[j], 1e-300)]
@@ -663,6 +914,11 @@ def fit_panel_distributed(data, response, regs, entity, time, effects=(), interc
     mean = spec["mean"]
     g_e, g_t = len(entities), len(periods)
     absorbed = {(): 0, ("entity",): g_e, ("time",): g_t}.get(effects, g_e + g_t - 1)
+    components = 1
+    if rank is not None:
+        big = g_e if spec["a_dim"] == "entity" else g_t
+        absorbed = big + rank
+        components = g_e + g_t - absorbed
     n = int(counts["n"][0])
     k = k_s + int(intercept)
     if n <= k + absorbed:
@@ -674,7 +930,7 @@ def fit_panel_distributed(data, response, regs, entity, time, effects=(), interc
     step(4, 4, "done")
     beta = np.r_[mean[k_s] - mean[:k_s] @ slopes, slopes] if intercept else slopes
     panel = _Structure(cells, entity=entity, time=time, entities=entities, periods=periods,
-                       effects=effects, absorbed=absorbed, components=1, iterations=0)
+                       effects=effects, absorbed=absorbed, components=components, iterations=0)
     note = spacing_note(periods)
     if note:
         panel.notes.append(note)
@@ -692,7 +948,7 @@ def fit_panel_distributed(data, response, regs, entity, time, effects=(), interc
                           sample=info, gram=gram, mean_x=mean[:k_s], intercept=intercept,
                           ssr=scores["ssr"][0], outer_c=scores["outer"],
                           t_sums_c=scores["t_sums"], e_sums_c=scores["e_sums"],
-                          tss=zz[k_s, k_s], fm=fm)
+                          tss=zz[k_s, k_s], fm=fm, source=(ddf, spec, client))
     if effects:
         fit.sample.notes.append(fit.describe_method())
     return fit

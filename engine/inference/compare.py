@@ -71,15 +71,17 @@ def compare(model, level: float = 0.95, reference: str = "auto", kernel=None, ba
         if mc is not None:
             why = (why + "; " if why else "") + \
                 f"simulated critical value {res.critical_value:.3f} (Monte Carlo s.e. {mc:.3f})"
-        for term, row in res.table.iterrows():
+        per_term = res.law.per_coefficient
+        for i, (term, row) in enumerate(res.table.iterrows()):
             ok = np.isfinite(row.p_value)
+            law = res.law.restricted(np.arange(len(res.table)) == i) if per_term else res.law
             rows.append({"estimator": label, "family": est.family.name, "term": term,
                          "estimate": row.estimate, "std_error": row.std_error,
                          "t_stat": row.t_stat, "p_value": row.p_value, "ci_low": row.ci_low,
                          "ci_high": row.ci_high,
                          "bandwidth": np.nan if lr.bandwidth is None else lr.bandwidth,
                          "lags": np.nan if lr.lags is None else lr.lags,
-                         "reference": res.law.describe(), "law": res.law.label,
+                         "reference": law.describe(), "law": law.label,
                          "rejects": bool(row.p_value < 1 - level) if ok else None,
                          "note": "; ".join(res.notes[len(model.sample.notes):]), "why": why,
                          "flags": ",".join(sorted(lr.flags))})

@@ -124,7 +124,7 @@ class Inference:
             raise SpecificationError(f"r must have {m} entries (one per restriction)")
         if np.linalg.matrix_rank(Rm) < m:
             raise SpecificationError("the restrictions in R are linearly dependent")
-        law = self.law.restricted(np.any(Rm != 0, axis=0))
+        law = self.law.for_restrictions(Rm)
         law.check_restrictions(m)
         diff = Rm @ self.params.to_numpy() - rv
         middle = Rm @ self.cov.to_numpy() @ Rm.T
@@ -150,9 +150,18 @@ class Inference:
         out["estimator"] = self.label
         out["bandwidth"] = np.nan if lr.bandwidth is None else lr.bandwidth
         out["lags"] = np.nan if lr.lags is None else lr.lags
-        out["reference"] = self.law.describe()
+        out["reference"] = [law.describe() for law in self.term_laws()]
+        out["df"] = [np.nan if law.df is None else float(law.df) for law in self.term_laws()]
         out["level"] = self.level
         return out
+
+    def term_laws(self) -> list:
+        """The reference law of each coefficient (differs by coefficient when the law has
+        degrees of freedom per coefficient)."""
+        k = len(self.table)
+        if not self.law.per_coefficient:
+            return [self.law] * k
+        return [self.law.restricted(np.arange(k) == j) for j in range(k)]
 
     def summary(self) -> str:
         """The result in plain text, in our own layout: what was estimated and how, then one
@@ -165,14 +174,16 @@ class Inference:
             lines.append("  flags: " + ", ".join(sorted(self.flags)))
         width = max(len(str(t)) for t in self.table.index) + 2
         lines.append("")
+        per = self.law.per_coefficient
         lines.append(f"  {'term':<{width}}{'estimate':>12}{'std error':>12}{'t':>9}{'p':>9}"
-                     f"   {pct + ' interval':<28}")
-        for term, r in self.table.iterrows():
+                     f"   {pct + ' interval':<28}" + ("df" if per else ""))
+        for (term, r), law in zip(self.table.iterrows(), self.term_laws()):
             p = "n/a" if not np.isfinite(r.p_value) else (
                 "<0.001" if r.p_value < 0.001 else f"{r.p_value:.3f}")
             ci = f"[{r.ci_low:.4g}, {r.ci_high:.4g}]" if np.isfinite(r.ci_low) else "n/a"
             lines.append(f"  {str(term):<{width}}{r.estimate:>12.5g}{r.std_error:>12.4g}"
-                         f"{r.t_stat:>9.3f}{p:>9}   {ci:<28}")
+                         f"{r.t_stat:>9.3f}{p:>9}   {ci:<28}"
+                         + (f"{float(law.df):.4g}" if per else ""))
         if self.notes:
             lines.append("")
             lines += [f"  note: {n}" for n in self.notes]

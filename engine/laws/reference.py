@@ -90,6 +90,11 @@ class Law:
         array over the coefficients): itself for a law with one value for every coefficient."""
         return self
 
+    def for_restrictions(self, R) -> "Law":
+        """The law that refers a Wald test of R beta = r (R: m x k): by default the law of the
+        coefficients R involves (`restricted`); a law may refer the restrictions themselves."""
+        return self.restricted(np.any(np.atleast_2d(np.asarray(R)) != 0, axis=0))
+
     def _key(self):
         return tuple(sorted((k, tuple(np.ravel(v)) if isinstance(v, np.ndarray) else v)
                             for k, v in self.__dict__.items()))
@@ -188,6 +193,14 @@ class Normal(Law):
         return f"chi-square({m}), large-sample"
 
 
+def _df_number(df: float) -> str:
+    """Degrees of freedom as a reader wants them: whole numbers as they are, others to two
+    decimals (8.99, 418.5)."""
+    if float(df).is_integer():
+        return f"{int(df)}"
+    return f"{df:.2f}".rstrip("0").rstrip(".")
+
+
 class StudentT(Law):
     """t(df); df may be one number or one per coefficient (an array), in which case critical
     values and p-values are arrays over the coefficients and a joint test is referred with the
@@ -234,8 +247,8 @@ class StudentT(Law):
     def _df_text(self) -> str:
         if isinstance(self.df, np.ndarray):
             lo, hi = float(self.df.min()), float(self.df.max())
-            return f"{lo:.4g}" if lo == hi else f"{lo:.4g} to {hi:.4g}"
-        return f"{self.df:g}"
+            return _df_number(lo) if lo == hi else f"{_df_number(lo)} to {_df_number(hi)}"
+        return _df_number(self.df)
 
     def describe(self):
         per = " (per coefficient)" if self.per_coefficient else ""

@@ -33,7 +33,11 @@ from ..capabilities import Capabilities
 from ..covariance.cache import MomentCache
 from ..data.columns import INTERCEPT, SampleInfo
 from ..covariance.registry import as_estimator, estimator as make_estimator
-from ..errors import SpecificationError
+from ..covariance.fewclusters import ClusterBlocks, blocks_from_rows, pieces
+from ..covariance.hc import LEVERAGE_TOL
+from ..data.columns import index_label
+from ..data.groupings import Grouping
+from ..errors import EstimationError, SpecificationError
 from ..inference.compare import compare
 from ..inference.infer import infer
 from ..inference.sweep import sweep
@@ -74,6 +78,9 @@ class MomentModel:
 
     def _init_model(self):
         self.caches = Caches()
+        #: groupings of the rows offered for clustering (name -> Grouping), beyond a panel's
+        #: entities and periods: the columns named in a fit's `clusters=`
+        self.groupings: dict[str, Grouping] = {}
 
     # ------------------------------------------------------------------ protocol pieces
     @property
@@ -156,6 +163,67 @@ class MomentModel:
     def describe_method(self) -> str:
         """How the coefficients were estimated, in words ('' for least squares)."""
         return ""
+
+    # ------------------------------------------------------------------ clusters
+    def grouping(self, name: str) -> Grouping:
+        """The rows grouped by `name`, one of the groupings the model offers
+        (`capabilities.clusters`)."""
+        offered = self.capabilities.clusters
+        if name not in offered or name not in self.groupings:
+            raise SpecificationError(
+                f"this fit offers no grouping {name!r} to cluster by"
+                + (f" (it offers {', '.join(repr(o) for o in offered)})" if offered else "")
+                + f"; fit it with clusters={name!r} to cluster by that column")
+        return self.groupings[name]
+
+    def group_sums(self, name: str) -> np.ndarray:
+        """Sums of the working moment contributions within each group of a grouping."""
+        def build():
+            g = self.grouping(name)
+            w = self.working_contributions
+            out = np.empty((g.n_groups, w.shape[1]))
+            for j in range(w.shape[1]):
+                out[:, j] = np.bincount(g.codes, weights=w[:, j], minlength=g.n_groups)
+            return out
+        return self.caches.get(f"sums_{name}", build)
+
+    def effects_nested_in(self, name: str) -> bool:
+        """Every effect absorbed by the fit lies inside one group of the grouping (no effects:
+        False)."""
+        return False
+
+    def cluster_design(self):
+        """The hat basis, residuals, contribution basis and absorbed effects behind the
+        bias-reduced cluster covariances (engine.covariance.fewclusters.ClusterDesign); a model
+        that declares `cluster_leverage` says."""
+        raise SpecificationError("this model does not declare the hat matrix within clusters "
+                                 "that CR2 and CR3 need; use CR1")
+
+    def cluster_meat(self, name: str, correction: str) -> np.ndarray:
+        """sum_g psi_g psi_g' of the adjusted cluster sums of the working contributions (CR2,
+        CR3) for a grouping (or the cells of entities and periods)."""
+        return pieces(self.cluster_blocks(name), correction).meat()
+
+    def leverage_outer(self, power: int) -> np.ndarray:
+        """sum_t e_t^2 / (1 - h_tt)^power w_t w_t' over the working design rows (HC2: power 1,
+        HC3: power 2); a row of leverage one is a typed error naming it."""
+        h = self.leverage
+        bad = np.flatnonzero(h > 1.0 - LEVERAGE_TOL)
+        if bad.size:
+            rows = ", ".join(str(index_label(self.index[i])) for i in bad[:5])
+            raise EstimationError(
+                f"HC{power + 1} is undefined: {bad.size} observation(s) have leverage 1 (rows "
+                f"{rows}); each is fitted exactly, e.g. by a dummy for one row. Use HC0/HC1 or "
+                "drop those rows.")
+        omega = self.resid ** 2 / (1.0 - h) ** power
+        w = self.working_design
+        return (w * omega[:, None]).T @ w
+
+    def cluster_blocks(self, name: str) -> ClusterBlocks:
+        """Per-cluster blocks of one grouping for CR2, CR3 and their degrees of freedom,
+        cached."""
+        return self.caches.get(f"cluster_blocks_{name}", lambda: blocks_from_rows(
+            self.cluster_design(), self.grouping(name)))
 
     # ------------------------------------------------------------------ caches
     @property

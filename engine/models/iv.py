@@ -28,18 +28,21 @@ from scipy import optimize
 
 from ..blas import single_blas_thread
 from ..capabilities import Capabilities
+from ..covariance.fewclusters import ClusterDesign
 from ..covariance.registry import as_estimator
+from ..data.groupings import as_names, grouping_from
 from ..data.columns import (INTERCEPT, as_list, check_horizon, check_magnitudes, column_ranges,
                             frame_and_meta, index_label, numeric_block)
 from ..errors import EstimationError, LagwiseError, SpecificationError
 from ..inference.sweep import sweep
 from ..laws.reference import chi_square_upper
 from .base import MomentModel, residuals_vanish
+from .series import SeriesModel
 from .iv_strength import FirstStage, anderson_rubin, anderson_rubin_test, first_stage
 from .gmm_common import (JTest, WeightedGMM, fixed_bandwidth, inverse_weight,
                           with_j)
 from .iv_sweep import gmm_curves
-from .ols import RANK_TOLERANCE, cholesky_qr2, collinearity_message
+from .ols import RANK_TOLERANCE, cholesky_qr2, collinearity_message, label_column
 
 METHODS = {"2sls": "two-stage least squares (W = (Z'Z/T)^-1)",
            "two-step": "two-step efficient GMM (W = S^-1 from the first step's moment "
@@ -66,6 +69,9 @@ class IVCore:
     horizon: int | None
     table: object
     z_scales: np.ndarray | None = None   # each instrument's largest absolute value, if known
+    #: groupings of the rows offered for clustering (name -> Grouping), shared by every
+    #: weighting of the specification
+    groupings: dict = field(default_factory=dict)
     Q: np.ndarray = field(init=False)
     C: np.ndarray = field(init=False)
     C_inv: np.ndarray = field(init=False)
@@ -113,8 +119,20 @@ class IVCore:
         aw = self.A.T @ w
         return np.linalg.solve(aw @ self.A, aw @ self.b)
 
+    def series_model(self, contributions, influence_map, *, terms, beta, df_resid):
+        """A moment model of statistics that are means over this specification's rows (the
+        first-stage system, the Anderson-Rubin regressions)."""
+        return SeriesModel(contributions, influence_map, terms=terms, beta=beta,
+                           index=self.index, horizon=self.horizon, df_resid=df_resid)
 
-def _check_spec(response, regs, endogenous, instruments, intercept):
+    @property
+    def fitted_basis(self) -> np.ndarray:
+        """An orthonormal basis (T x k) of the fitted regressors X^ = P_Z X = Q A."""
+        u, _ = np.linalg.qr(self.A)
+        return self.Q @ u
+
+
+def check_iv_spec(response, regs, endogenous, instruments, intercept):
     if not isinstance(response, str) or not response:
         raise SpecificationError("choose a response column")
     for name, group in (("regressor", regs), ("instrument", instruments)):
@@ -148,7 +166,7 @@ def _check_spec(response, regs, endogenous, instruments, intercept):
 @single_blas_thread
 def fit_iv(data, response: str, regressors=None, endogenous=None, instruments=None,
            intercept: bool = True, method: str = "2sls", weight=None, sample=None,
-           horizon=None, max_iter: int = 100, tol: float = 1e-8) -> "IVFit":
+           horizon=None, max_iter: int = 100, tol: float = 1e-8, clusters=None) -> "IVFit":
     """Fit y = X beta + u by linear IV / GMM.
 
     regressors: every right-hand-side column; endogenous: the subset that is instrumented;
@@ -157,7 +175,7 @@ def fit_iv(data, response: str, regressors=None, endogenous=None, instruments=No
     weighting (an Estimator or a registry name; default HC0) for the last three.
     """
     regs, endog, instr = as_list(regressors), as_list(endogenous), as_list(instruments)
-    _check_spec(response, regs, endog, instr, intercept)
+    check_iv_spec(response, regs, endog, instr, intercept)
     if method not in METHODS:
         raise SpecificationError(f"unknown method {method!r}; choose one of {', '.join(METHODS)}")
     table, frame, non_numeric, horizons = frame_and_meta(data)
@@ -191,6 +209,11 @@ def fit_iv(data, response: str, regressors=None, endogenous=None, instruments=No
                   endogenous=endog, excluded=instr, exogenous=exog, index=index,
                   response=response, sample=info, horizon=horizon, table=table,
                   z_scales=z_scales)
+    for name in as_names(clusters):
+        if name in cols:
+            raise SpecificationError(f"'{name}' is a variable of the model; cluster by another "
+                                     "column")
+        core.groupings[name] = grouping_from(label_column(data, frame, name), name, info.rows)
     first = IVFit(core, np.eye(Z.shape[1]), method="2sls")
     if method == "2sls":
         return first
@@ -231,13 +254,26 @@ class IVFit(WeightedGMM, MomentModel):
         self.fitted_values = core.X @ self.beta
         self.resid = core.y - self.fitted_values
         self.leverage = None
+        self.groupings = core.groupings
 
     # ------------------------------------------------------------------ the protocol
     @property
     def capabilities(self) -> Capabilities:
         """A time series of instruments times residuals (a design: the instruments' basis); the
-        weighting can follow the estimator of S (two-step, iterated, CUE)."""
-        return Capabilities(time_ordered=True, design=True, reweighting=True)
+        weighting can follow the estimator of S (two-step, iterated, CUE); the groupings named
+        in `clusters=`, with the hat matrix of the fitted regressors within clusters."""
+        return Capabilities(time_ordered=True, design=True, reweighting=True,
+                            clusters=tuple(self.groupings), cluster_leverage=True)
+
+    def cluster_design(self) -> ClusterDesign:
+        """CR2 and CR3 of an IV fit adjust the residuals of each cluster by the hat matrix of
+        the fitted regressors X^ = P_Z X (the symmetric projection 2SLS uses in its second
+        stage); the moment contributions are z_t u_t. The degrees of freedom of Bell & McCaffrey
+        and Imbens & Kolesar assume least-squares residuals and are not offered."""
+        return ClusterDesign(hat=self.core.fitted_basis, resid=self.resid,
+                             contributions=self.core.Q, least_squares=False,
+                             why_no_df="the residuals of an IV fit are not a projection of the "
+                                       "errors", hat_words="the fitted regressors P_Z X")
 
     def fits_exactly(self) -> bool:
         return residuals_vanish(self.resid, self.y)
@@ -313,7 +349,7 @@ class IVFit(WeightedGMM, MomentModel):
             w, lr = inverse_weight(weight, self)
             if len(cache) >= 8:
                 cache.pop(next(iter(cache)))
-            cache[key] = IVFit(self.core, w, method="two-step", weight=weight, weighting=lr,
+            cache[key] = type(self)(self.core, w, method="two-step", weight=weight, weighting=lr,
                                iterations=2, first_step=self)
         return cache[key]
 
@@ -323,7 +359,7 @@ class IVFit(WeightedGMM, MomentModel):
         current, steps = self, 1
         while True:
             w, lr = inverse_weight(weight, current)
-            nxt = IVFit(self.core, w, method="iterated", weight=weight, weighting=lr,
+            nxt = type(self)(self.core, w, method="iterated", weight=weight, weighting=lr,
                         iterations=steps + 1, first_step=self)
             change = np.max(np.abs(nxt.beta - current.beta) / (np.abs(current.beta) + 1e-8))
             current, steps = nxt, steps + 1
@@ -334,7 +370,7 @@ class IVFit(WeightedGMM, MomentModel):
                                       f"(last relative change {change:.2g}); use two-step")
         # at convergence the weighting S is S(beta): refresh it so W = S^-1 for the final S
         w, lr = inverse_weight(weight, current)
-        final = IVFit(self.core, w, method="iterated", weight=weight, weighting=lr,
+        final = type(self)(self.core, w, method="iterated", weight=weight, weighting=lr,
                       iterations=steps, first_step=self)
         return final
 
@@ -350,7 +386,7 @@ class IVFit(WeightedGMM, MomentModel):
         core = self.core
 
         def objective(beta):
-            trial = IVFit(core, start.W, method="cue", beta=beta)
+            trial = type(self)(core, start.W, method="cue", beta=beta)
             try:
                 s = fixed.long_run(trial).S
                 g = (core.b - core.A @ beta) / self.nobs
@@ -362,9 +398,9 @@ class IVFit(WeightedGMM, MomentModel):
         if not np.isfinite(res.fun):
             raise EstimationError("the continuously updated objective is not finite near the "
                                   "two-step estimate; use two-step or iterated GMM")
-        trial = IVFit(core, start.W, method="cue", beta=res.x)
+        trial = type(self)(core, start.W, method="cue", beta=res.x)
         w, lr = inverse_weight(fixed, trial)
-        return IVFit(core, w, method="cue", weight=fixed, weighting=lr,
+        return type(self)(core, w, method="cue", weight=fixed, weighting=lr,
                      iterations=int(res.nit) + 1, first_step=self, beta=res.x)
 
     # ------------------------------------------------------------------ specification

@@ -16,7 +16,6 @@ from scipy import optimize
 from ..blas import single_blas_thread
 from ..errors import LagwiseError, SpecificationError
 from ..laws.reference import chi_square_upper, f_upper
-from .series import SeriesModel
 
 
 #: Rules of thumb for instrument strength (common practice, not tests with known size).
@@ -50,17 +49,18 @@ def partial_out(core):
     return z_ex, x_en, core.y.copy(), None
 
 
-def _coefficient_model(zt, vt, names, index, horizon):
+def _coefficient_model(core, zt, vt, names):
     """The first-stage system as a moment model: contributions v_t (x) z~_t (column-major vec
-    of the L x p coefficient matrix), influence map (I_p (x) Q^-1) / T, Q = Z~'Z~/T."""
+    of the L x p coefficient matrix), influence map (I_p (x) Q^-1) / T, Q = Z~'Z~/T; made by the
+    core (`series_model`), so a panel's system keeps its entity and period codes."""
     t_obs, L = zt.shape
     p = vt.shape[1]
     q_inv = np.linalg.inv(zt.T @ zt / t_obs)
     g = np.hstack([vt[:, [j]] * zt for j in range(p)])
     m = np.kron(np.eye(p), q_inv) / t_obs
     terms = [f"{n}:{e}" for e in names[1] for n in names[0]]
-    return SeriesModel(g, m, terms=terms, beta=np.zeros(len(terms)), index=index,
-                       horizon=horizon, df_resid=t_obs - L)
+    return core.series_model(g, m, terms=terms, beta=np.zeros(len(terms)),
+                             df_resid=t_obs - L)
 
 
 @single_blas_thread
@@ -72,8 +72,7 @@ def first_stage(fit, est):
     t_obs, L = zt.shape
     pi = np.linalg.lstsq(zt, xt, rcond=None)[0]                      # (L, p)
     vt = xt - zt @ pi
-    system = _coefficient_model(zt, vt, (core.excluded, core.endogenous), core.index,
-                                core.horizon)
+    system = _coefficient_model(core, zt, vt, (core.excluded, core.endogenous))
     system.beta = pi.ravel(order="F")
     res_sys = system.infer(est, reference="normal")
     v_pi = res_sys.cov.to_numpy()
@@ -218,16 +217,15 @@ def _ar_p_value(est, zt, ey, ex, pi_y, pi_x, core):
     q_inv = np.linalg.inv(zt.T @ zt / t_obs)
 
     def model_for(v, coef):
-        m = _coefficient_model(zt, v[:, None], (core.excluded, ["AR"]), core.index,
-                               core.horizon)
+        m = _coefficient_model(core, zt, v[:, None], (core.excluded, ["AR"]))
         m.beta = coef
         return m
 
     ref = model_for(ey - float(pi_y @ pi_x / max(pi_x @ pi_x, 1e-300)) * ex, pi_y)
     law = est.family.law("auto", est.params, est.long_run(ref), ref)
     if est.family.quadratic(est.params):
-        stacked = _coefficient_model(zt, np.column_stack([ey, ex]), (core.excluded, ["y", "x"]),
-                                     core.index, core.horizon)
+        stacked = _coefficient_model(core, zt, np.column_stack([ey, ex]),
+                                     (core.excluded, ["y", "x"]))
         s = est.long_run(stacked).S
         s_yy, s_yx, s_xx = s[:L, :L], s[:L, L:], s[L:, L:]
 
@@ -258,8 +256,7 @@ def _fixed(est, zt, ey, ex, pi_y, pi_x, core):
     starting point, so the test statistic is one function of b0."""
     if isinstance(est.params.get("bandwidth"), str):
         b0 = float(pi_y @ pi_x / max(pi_x @ pi_x, 1e-300))
-        model = _coefficient_model(zt, (ey - b0 * ex)[:, None], (core.excluded, ["AR"]),
-                                   core.index, core.horizon)
+        model = _coefficient_model(core, zt, (ey - b0 * ex)[:, None], (core.excluded, ["AR"]))
         lr = est.long_run(model)
         return est.with_params(bandwidth=max(lr.bandwidth, 1e-6))
     return est

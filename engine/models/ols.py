@@ -12,8 +12,11 @@ import scipy.linalg as sla
 
 from ..blas import single_blas_thread
 from ..capabilities import Capabilities
+from ..covariance.fewclusters import ClusterDesign
 from ..data.columns import (INTERCEPT, as_list, check_horizon, check_magnitudes, column_ranges,
                             frame_and_meta, index_label, numeric_block)
+from ..data.groupings import as_names, grouping_from
+from ..data.table import Table
 from ..data.transforms import transform_name
 from ..errors import SpecificationError
 from .base import MomentModel, residuals_vanish
@@ -66,9 +69,14 @@ class OLSFit(MomentModel):
     @property
     def capabilities(self) -> Capabilities:
         """A time series of rows with a design, leverage and (when known) the one-period series
-        behind an overlapping response."""
+        behind an overlapping response; the groupings named in `clusters=` to cluster by."""
         return Capabilities(time_ordered=True, design=True, leverage=True, least_squares=True,
-                            one_period=self.one_period is not None)
+                            one_period=self.one_period is not None,
+                            clusters=tuple(self.groupings), cluster_leverage=True)
+
+    def cluster_design(self) -> ClusterDesign:
+        """The orthonormal basis of X and the residuals (CR2, CR3 and their df)."""
+        return ClusterDesign(hat=self.working_design, resid=self.resid)
 
     def fits_exactly(self) -> bool:
         return residuals_vanish(self.resid, self.y)
@@ -281,7 +289,7 @@ def collinearity_message(r, piv, rank, terms) -> str:
 
 def fit_ols(data, response: str, regressors=None, intercept: bool = True,
             sample: tuple | None = None, horizon: int | None = None,
-            one_period: str | None = None) -> OLSFit:
+            one_period: str | None = None, clusters=None) -> OLSFit:
     """Fit y = X beta + e by least squares.
 
     data: a `Table` or a DataFrame. regressors: list of column names (or "x1,x2").
@@ -291,7 +299,9 @@ def fit_ols(data, response: str, regressors=None, intercept: bool = True,
     the table when the response was made by the forward-sum transform. one_period: the column
     whose sum over the next h periods is the response (known automatically for a response made
     by the forward-sum transform); Hodrick (1992) standard errors and the predictive-regression
-    tools need it.
+    tools need it. clusters: column name(s) whose labels group the rows (an industry, a
+    country); the fit offers them to the cluster estimators (`estimator("cluster",
+    by="industry")`), the wild cluster bootstrap and the cluster summary.
 
     Rows with a missing value in any used column are dropped and counted in `fit.sample`.
     Raises DataError for unusable columns, SpecificationError for an impossible model.
@@ -344,7 +354,27 @@ def fit_ols(data, response: str, regressors=None, intercept: bool = True,
                  horizon=horizon, table=table, scales=np.maximum(hi[:k], -lo[:k]),
                  xy=values[:, :k + 1])
     fit.one_period = one_period_source(table, frame, response, horizon, one_period)
+    offer_groupings(fit, data, frame, clusters, info.rows, [response, *regs])
     return fit
+
+
+def offer_groupings(fit, data, frame, clusters, rows, used) -> None:
+    """Read the grouping columns for the fit's rows (`rows`: positions in the frame)."""
+    for name in as_names(clusters):
+        if name in used:
+            raise SpecificationError(f"'{name}' is a variable of the model; cluster by another "
+                                     "column")
+        fit.groupings[name] = grouping_from(label_column(data, frame, name), name, rows)
+
+
+def label_column(data, frame, name):
+    """A column of numbers or labels (a Table keeps text columns among its labels)."""
+    if name in frame.columns:
+        return frame[name]
+    labels = data.labels if isinstance(data, Table) else None
+    if labels is not None and name in labels.columns:
+        return labels[name]
+    return None
 
 
 #: The named one-period series must sum to the response within this fraction of the response's

@@ -30,10 +30,12 @@ import pandas as pd
 from scipy import fft as sfft
 
 from ..capabilities import Capabilities
+from ..covariance.fewclusters import ClusterDesign, nested_in
 from ..data.columns import INTERCEPT, as_list
+from ..data.groupings import Grouping, as_names, grouping_from
 from ..data.dates import spacing_note
-from ..data.panels import (PanelInfo, check_names, checked_panel, describe_effects,
-                           large_data_fit, panel_names)
+from ..data.panels import (PanelInfo, check_names, checked_panel, columns_of,
+                           describe_effects, large_data_fit, panel_names)
 from ..errors import EstimationError, SpecificationError
 from ..inference.compare import compare
 from .fama_macbeth import FamaMacBethFit, fama_macbeth_from_rows
@@ -51,7 +53,96 @@ ABSORBED_TOL = 1e-9
 DENSE_BLOCK = 4_000_000
 
 
-class PanelFit(OLSFit):
+class PanelRows:
+    """What a fit on a stacked panel's rows offers the panel estimators (mixed into the least
+    squares and the IV fits of panels): groupings by entity, by period, by their cells and by
+    the columns named in `clusters=`; group sums; the per-period model; within-entity lag
+    products; the absorbed effects. Needs `panel` (PanelInfo), `groupings` and the moment-model
+    protocol."""
+
+    PANEL_GROUPINGS = ("entity", "time")
+    #: the intersection of entities and periods: one row per cell (two-way clustering)
+    CELLS = "entity x time"
+
+    def grouping(self, name: str) -> Grouping:
+        if name in self.PANEL_GROUPINGS or name == self.CELLS:
+            def build():
+                p = self.panel
+                if name == self.CELLS:
+                    key = p.entity_codes * p.n_periods + p.time_codes
+                    codes, uniq = pd.factorize(key, sort=True)
+                    return Grouping(name, codes.astype(np.int64), pd.RangeIndex(len(uniq)))
+                codes, labels = ((p.entity_codes, p.entities) if name == "entity"
+                                 else (p.time_codes, p.periods))
+                return Grouping(name, codes, labels)
+            return self.caches.get(f"grouping_{name}", build)
+        return super().grouping(name)
+
+    def group_sums(self, dim: str) -> np.ndarray:
+        """Sums of the working moment contributions within each entity, period or group."""
+        if dim not in EFFECTS:
+            return super().group_sums(dim)
+
+        return self.caches.get(f"sums_{dim}", lambda: self._grouped(
+            self.working_contributions, None, dim))
+
+    def _grouped(self, values, weights, dim):
+        """Sums of the columns of `values` (times `weights` per row, when given) within each
+        entity or period: row or column sums of each column on a balanced panel in (entity,
+        period) order, contiguous blocks for entities in entity order, counting otherwise."""
+        p = self.panel
+        codes, n = ((p.entity_codes, p.n_entities) if dim == "entity"
+                    else (p.time_codes, p.n_periods))
+        out = np.empty((n, values.shape[1]))
+        grid = p.grid
+        starts = None
+        if grid is None and dim == "entity" and p.entity_major:
+            starts = np.concatenate([[0], np.cumsum(p.counts)[:-1]])
+        for j in range(values.shape[1]):
+            col = values[:, j]
+            if grid is not None:
+                spec = "et,et->e" if dim == "entity" else "et,et->t"
+                if weights is None:
+                    out[:, j] = col.reshape(grid).sum(axis=1 if dim == "entity" else 0)
+                else:
+                    out[:, j] = np.einsum(spec, col.reshape(grid), weights.reshape(grid))
+                continue
+            w = col if weights is None else col * weights
+            if starts is not None:
+                out[:, j] = np.add.reduceat(w, starts)
+            else:
+                out[:, j] = np.bincount(codes, weights=w, minlength=n)
+        return out
+
+    def absorbed_factors(self) -> tuple:
+        """((name, codes per row), ...) of the effects the within transformation absorbed."""
+        p = self.panel
+        return tuple((e, p.entity_codes if e == "entity" else p.time_codes) for e in p.effects)
+
+    def effects_nested_in(self, name: str) -> bool:
+        """Every absorbed effect lies inside one cluster of the grouping (entity effects with
+        clusters by entity or by an industry containing the entities)."""
+        eff = self.absorbed_factors()
+        if not eff:
+            return False
+        if tuple(self.panel.effects) == (name,):
+            return True
+        codes = self.grouping(name).codes
+        return all(nested_in(c, codes) for _, c in eff)
+
+    @property
+    def period_model(self) -> "PeriodSums":
+        """The per-period sums as a time-series moment model on the T_p periods."""
+        return self.caches.get("period_model", lambda: PeriodSums(self, self.group_sums("time")))
+
+    def within_lags(self) -> np.ndarray:
+        """W_j = sum_i sum_t g_it g_i,t-j' (working basis) for j = 0..T_p-1: (T_p, m, m)."""
+        return self.caches.get("within_lags", lambda: within_lag_products(
+            self.working_contributions, self.panel.entity_codes, self.panel.time_codes,
+            self.panel.n_entities, self.panel.n_periods))
+
+
+class PanelFit(PanelRows, OLSFit):
     """Least squares on a stacked panel, pooled or with fixed effects (see the module docstring).
 
     N (`nobs`) counts rows; K = k + the effect parameters absorbed; `df_resid` = N - K."""
@@ -87,9 +178,16 @@ class PanelFit(OLSFit):
     @property
     def capabilities(self) -> Capabilities:
         """A stacked panel: entity and period codes, a design, leverage where it has a closed
-        form, clusters by entity and by period; the rows are not one time series."""
+        form, clusters by entity, by period and by the columns named in `clusters=`, the hat
+        matrix within clusters; the rows are not one time series."""
         return Capabilities(panel=True, design=True, leverage=self._has_leverage(),
-                            clusters=("entity", "time"))
+                            least_squares=True,
+                            clusters=("entity", "time", *self.groupings), cluster_leverage=True)
+
+    def cluster_design(self) -> ClusterDesign:
+        """The basis of the within-transformed X, the residuals and the absorbed effects."""
+        return ClusterDesign(hat=self.working_design, resid=self.resid,
+                             absorbed=self.absorbed_factors())
 
     # ------------------------------------------------------------------ degrees of freedom
     @property
@@ -103,55 +201,14 @@ class PanelFit(OLSFit):
 
     # ------------------------------------------------------------------ grouped statistics
     def group_sums(self, dim: str) -> np.ndarray:
-        """Sums of the working moment contributions within each entity or each period. While
-        the orthonormal basis is not formed (a well-conditioned design), they are the sums of
-        x_t e_t mapped by C^-1 (q_t = x_t C^-1), so no T x k array is built for them."""
-        def build():
-            if self._q is None and "working_contributions" not in self.caches:
-                return self._grouped(self.X, self.resid, dim) @ self._inv_c
-            return self._grouped(self.working_contributions, None, dim)
-        if dim not in EFFECTS:
-            raise SpecificationError(f"group by 'entity' or 'time', not {dim!r}")
-        return self.caches.get(f"sums_{dim}", build)
-
-    def _grouped(self, values, weights, dim):
-        """Sums of the columns of `values` (times `weights` per row, when given) within each
-        entity or period: row or column sums of each column on a balanced panel in (entity,
-        period) order, contiguous blocks for entities in entity order, counting otherwise."""
-        p = self.panel
-        codes, n = ((p.entity_codes, p.n_entities) if dim == "entity"
-                    else (p.time_codes, p.n_periods))
-        out = np.empty((n, values.shape[1]))
-        grid = p.grid
-        starts = None
-        if grid is None and dim == "entity" and p.entity_major:
-            starts = np.concatenate([[0], np.cumsum(p.counts)[:-1]])
-        for j in range(values.shape[1]):
-            col = values[:, j]
-            if grid is not None:
-                spec = "et,et->e" if dim == "entity" else "et,et->t"
-                if weights is None:
-                    out[:, j] = col.reshape(grid).sum(axis=1 if dim == "entity" else 0)
-                else:
-                    out[:, j] = np.einsum(spec, col.reshape(grid), weights.reshape(grid))
-                continue
-            w = col if weights is None else col * weights
-            if starts is not None:
-                out[:, j] = np.add.reduceat(w, starts)
-            else:
-                out[:, j] = np.bincount(codes, weights=w, minlength=n)
-        return out
-
-    @property
-    def period_model(self) -> "PeriodSums":
-        """The per-period sums as a time-series moment model on the T_p periods."""
-        return self.caches.get("period_model", lambda: PeriodSums(self, self.group_sums("time")))
-
-    def within_lags(self) -> np.ndarray:
-        """W_j = sum_i sum_t g_it g_i,t-j' (working basis) for j = 0..T_p-1: (T_p, m, m)."""
-        return self.caches.get("within_lags", lambda: within_lag_products(
-            self.working_contributions, self.panel.entity_codes, self.panel.time_codes,
-            self.panel.n_entities, self.panel.n_periods))
+        """Sums of the working moment contributions within each entity, period or group. While
+        the orthonormal basis is not formed (a well-conditioned design), the entity and period
+        sums are the sums of x_t e_t mapped by C^-1 (q_t = x_t C^-1), so no T x k array is built
+        for them."""
+        if dim in EFFECTS and self._q is None and "working_contributions" not in self.caches:
+            return self.caches.get(f"sums_{dim}", lambda: self._grouped(
+                self.X, self.resid, dim) @ self._inv_c)
+        return super().group_sums(dim)
 
     # ------------------------------------------------------------------ descriptions
     def describe_method(self) -> str:
@@ -380,7 +437,7 @@ def _fft_lags(g, e_codes, t_codes, n_entities, n_periods, size) -> np.ndarray:
 
 def fit_panel(data, response: str, regressors=None, entity: str | None = None,
               time: str | None = None, effects=(), intercept: bool = True, sample=None,
-              client=None, **dask_options):
+              client=None, clusters=None, **dask_options):
     """Least squares on a stacked panel (one row per entity and period).
 
     data: a Table (its loader report names the panel's columns), a DataFrame (columns, or a
@@ -388,7 +445,9 @@ def fit_panel(data, response: str, regressors=None, entity: str | None = None,
     folder of Parquet files (then `client` may be a dask.distributed Client; see
     engine.distributed). effects: () pooled, "entity", "time" or ("entity", "time"): fixed
     effects removed by the within transformation (the intercept is then absorbed).
-    sample: optional (first, last) period, inclusive.
+    sample: optional (first, last) period, inclusive. clusters: column name(s) whose labels
+    group the rows (an industry, a region) beyond entities and periods; the fit offers them to
+    the cluster estimators, the wild cluster bootstrap and the cluster summary.
 
     Rows missing a value or a label are dropped and counted. Raises DataError for unusable
     columns (ids with fractions, a time column that does not parse, duplicate rows of one
@@ -405,6 +464,8 @@ def fit_panel(data, response: str, regressors=None, entity: str | None = None,
         raise SpecificationError("with fixed effects the model needs at least one regressor")
     large = large_data_fit(data, "panel")
     if large is not None:
+        if clusters:
+            dask_options["clusters"] = clusters
         return large(data, response, regs, entity, time, effects=eff, intercept=intercept,
                      sample=sample, client=client, **dask_options)
     lead = int(intercept)
@@ -463,6 +524,13 @@ def fit_panel(data, response: str, regressors=None, entity: str | None = None,
                    horizon=pdata.horizon, scales=scales, xy=transformed[:, :k + 1])
     if eff and k:
         fit.sample.notes.append(describe_effects(eff, absorbed, comps, iters, info.balanced))
+    frame, get, _, _ = columns_of(data, [])
+    for name in as_names(clusters):
+        if name in (response, *regs, entity, time):
+            raise SpecificationError(f"'{name}' is a variable or an identifier of the panel; "
+                                     "cluster by entity or time with by='entity' or by='time', "
+                                     "or name another column")
+        fit.groupings[name] = grouping_from(get(name), name, pdata.rows)
     return fit
 
 
