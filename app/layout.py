@@ -354,10 +354,10 @@ def memo_card():
                       dcc.Dropdown(id="memo-ests", multi=True)], className="lw-field"),
             html.Div([html.Label("beneath each estimate", className="lw-label"),
                       dcc.RadioItems(id="memo-show", options=[
-                          {"label": " standard error", "value": "se"},
+                          {"label": " standard error", "value": "std_error"},
                           {"label": " t", "value": "t"}, {"label": " p", "value": "p"},
-                          {"label": " interval", "value": "ci"}],
-                          value="se", inline=True, className="lw-radio")],
+                          {"label": " interval", "value": "interval"}],
+                          value="std_error", inline=True, className="lw-radio")],
                      className="lw-field")], className="lw-grid"),
         html.Div(id="memo-preview", className="lw-memo"),
         dcc.Store(id="memo-specs", data=[])],

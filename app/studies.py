@@ -293,7 +293,7 @@ def memo_table(session, specs, est_values, show, level):
         ests[est.label] = est
     if not fits or not ests:
         raise engine.SpecificationError("add a specification and choose at least one estimator")
-    return engine.robustness_table(fits, ests, show=show, level=level)
+    return engine.robustness_table(fits, ests, beneath=show, level=level)
 
 
 @callback(Output("memo-preview", "children"), Input("memo-specs", "data"),
