@@ -15,6 +15,7 @@ from flask import Response, request
 
 from .._files import assets_dir, demo_file
 from . import callbacks, exports, studies  # noqa: F401 - their callbacks are recorded on import
+from . import answer  # noqa: F401 - the model line and the answer line (issue 22)
 from .derived import dataset_from_bytes, dataset_from_table, given_model
 from .layout import build_layout
 from .wiring import register

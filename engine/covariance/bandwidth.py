@@ -83,7 +83,7 @@ def rule_title(setting) -> str:
     """Words for a bandwidth setting in a label: 'Andrews (1991) bandwidth' or 'b = 12'."""
     if isinstance(setting, str):
         return f"{RULES[setting][0]} bandwidth"
-    return f"b = {float(setting):.4g}"
+    return f"b = {bandwidth_text(setting)}"
 
 
 def check_bandwidth_setting(value):
