@@ -45,9 +45,8 @@ def render_text(fit, comp, level: float, extra_lines=(), stamp=None) -> str:
         est = block.estimate.iloc[0]
         own = _own_estimates(block)
         lines.append("")
-        head = f"== {term}: estimate {est:.6g}"
-        if own:
-            head += " (each line shows its own estimate)"
+        head = f"== {term}: each line shows its own estimate" if own else \
+            f"== {term}: estimate {est:.6g}"
         lines.append(head + " " + "=" * max(0, 60 - len(term)))
         lines.append(f"  {'estimator':<{width}}" + (f"{'estimate':>11}" if own else "")
                      + f"{'b':>8}{'lags':>6}{'std err':>11}{'t':>9}"
