@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 
 import numpy as np
 import pandas as pd
@@ -131,7 +132,9 @@ def sensitivity_figure(sweep, term: str, mode: str = "t", level: float = 0.95,
             "estimate": f"estimate of {term}", "ci": f"{level:.0%} interval for {term}"}[mode]
     xlab = sweep.axis.title + (" (lags used = ceil(b) - 1 for finite kernels)"
                                if sweep.axis.symbol == "b" else "")
-    fig.update_xaxes(title_text=xlab)
+    # the x range is the axis's own (no padding), so the strip's label positions, computed as
+    # fractions of it, are fractions of the plot's width
+    fig.update_xaxes(title_text=xlab, range=[float(sweep.values[0]), float(sweep.values[-1])])
     fig.update_yaxes(title_text=ylab)
     what = "bandwidth" if sweep.axis.symbol == "b" else sweep.axis.title
     top = TITLE_PX + (rows * STRIP_ROW_PX + 10 if rows else 0)
@@ -226,6 +229,7 @@ def _with_j_panel(fig, sweep, current_curve, xlab, shown):
     out.layout.annotations = fig.layout.annotations
     out.update_yaxes(range=fig.layout.yaxis.range, title_text=fig.layout.yaxis.title.text,
                      row=1, col=1)
+    out.update_xaxes(range=[float(sweep.values[0]), float(sweep.values[-1])])
     p = sweep.extras["j_p_value"]
     for c in range(len(sweep.labels)):
         color, short, width = _curve_style(sweep, c, c == current_curve)
@@ -404,9 +408,9 @@ def _add_marks(fig, sweep, j, mode, cv, marks, rng, current_curve=0) -> int:
             clusters[-1].append(p)
         else:
             clusters.append([p])
-    titles = [", ".join(p[2] for p in cl) for cl in clusters]
-    halves = [(len(t) * CHAR_PX + 10) / (2 * PLOT_PX) for t in titles]      # axis fractions
-    rows = 1 if 2 * sum(halves) <= 0.98 else 2
+    titles = [strip_label([p[2] for p in cl]) for cl in clusters]
+    halves = [(len(t) * CHAR_PX + 16) / (2 * PLOT_PX) for t in titles]      # axis fractions
+    rows = 1 if 2 * sum(halves) <= 0.98 + sum(STRIP_REACH) else 2
     centres = [0.0] * len(clusters)
     for r in range(rows):
         idx = list(range(r, len(clusters), rows))
@@ -434,17 +438,32 @@ def _add_marks(fig, sweep, j, mode, cv, marks, rng, current_curve=0) -> int:
     return rows
 
 
+#: How far (axis fractions at PLOT_PX) a strip label may reach past the plot's left and right
+#: edges: over the margins, above the tick labels.
+STRIP_REACH = (56 / PLOT_PX, 16 / PLOT_PX)
+
+
+def strip_label(titles: list[str]) -> str:
+    """A rule's name in the strip: without its year ("Andrews" for "Andrews (1991)"); rules
+    sharing a label are named together when short, else the first and how many more."""
+    short = [re.sub(r" \(\d{4}\)$", "", t) for t in titles]
+    joined = ", ".join(short)
+    return joined if len(short) == 1 or len(joined) <= 18 else f"{short[0]} +{len(short) - 1}"
+
+
 def _spread(wanted: list[float], halves: list[float]) -> list[float]:
     """Centres (axis fractions, in order) as close as possible to the wanted ones, with labels
-    of the given half-widths side by side without overlap, inside [0, 1]."""
+    of the given half-widths side by side without overlap, reaching at most STRIP_REACH past
+    the plot's edges."""
+    left, right = -STRIP_REACH[0], 1.0 + STRIP_REACH[1]
     out = []
     for w, h in zip(wanted, halves):
-        c = max(w, h)
+        c = max(w, left + h)
         if out:
             c = max(c, out[-1] + halves[len(out) - 1] + h)
         out.append(c)
     if out:                                           # pushed past the right end: back
-        out[-1] = min(out[-1], 1.0 - halves[-1])
+        out[-1] = min(out[-1], right - halves[-1])
         for i in range(len(out) - 2, -1, -1):
             out[i] = min(out[i], out[i + 1] - halves[i + 1] - halves[i])
     return out

@@ -44,8 +44,10 @@ def _p(text: str, cls: str = "") -> str:
     return f"<p{f' class={cls!r}' if cls else ''}>{html.escape(text)}</p>" if text else ""
 
 
-def records_table(records: list[dict], columns: list[dict]) -> str:
-    """A table of the screen's rows: each cell's display text, each header the screen's."""
+def records_table(records: list[dict], columns: list[dict], headers: dict | None = None) -> str:
+    """A table of the screen's rows: each cell's display text, each header the screen's (or
+    its replacement in `headers`)."""
+    headers = headers or {}
     def cell(rec, c):
         v = rec.get(c["field"] + "_txt", rec.get(c["field"], ""))
         if isinstance(v, float) and not math.isfinite(v):
@@ -53,7 +55,8 @@ def records_table(records: list[dict], columns: list[dict]) -> str:
         return "" if v is None else str(v)
     left = [c.get("cellStyle", {}).get("textAlign") == "left" or "valueFormatter" not in c
             for c in columns]
-    head = "".join(f"<th class='{'text' if lft else ''}'>{html.escape(c['headerName'])}</th>"
+    head = "".join(f"<th class='{'text' if lft else ''}'>"
+                   f"{html.escape(headers.get(c['field'], c['headerName']))}</th>"
                    for c, lft in zip(columns, left))
     body = "".join("<tr>" + "".join(
         f"<td class='{'text' if lft else ''}'>{html.escape(cell(r, c))}</td>"
@@ -104,7 +107,8 @@ def build_report(session, fkey, shown, res, base, est, focus, level, reference, 
     parts += _sensitivity(figs, charts, *_flips(session, fkey, base, est, focus, level,
                                                   reference, method))
     parts.append("<h2>Coefficients</h2>" + _p(res.describe(), "note")
-                 + records_table(V.coefficient_records(res), V.COEF_COLUMNS)
+                 + records_table(V.coefficient_records(res), V.COEF_COLUMNS,
+                                 {"interval": f"{level:.0%} interval"})
                  + "".join(_p(n, "note") for n in res.notes))
     rejects = A.headline_parts(res, est, shown, focus, flip, title)["rejects"]
     parts.append(f"<h2>Every estimator: {html.escape(focus)}</h2>"

@@ -141,7 +141,8 @@ def comparison_records(comp: pd.DataFrame, term: str, current_rejects: bool | No
              "differs": bool(ok and current_rejects is not None and r.rejects is not None
                              and bool(r.rejects) != current_rejects)},
             {"estimate": (r.estimate, fmt(r.estimate)),
-             "bandwidth": (r.bandwidth, fmt(r.bandwidth, 3) if ok else ""),
+             "bandwidth": (r.bandwidth, bandwidth_text(r.bandwidth)
+                           if ok and np.isfinite(r.bandwidth) else ""),
              "lags": (r.lags, fmt(int(r.lags)) if ok and np.isfinite(r.lags) else ""),
              "std_error": (r.std_error, fmt(r.std_error)), "t_stat": (r.t_stat, fmt(r.t_stat, 3)),
              "p_value": (r.p_value, fmt_p(r.p_value))}))

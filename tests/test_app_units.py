@@ -50,11 +50,13 @@ def test_sensitivity_figure_traces_axes_and_marker(fit, sweep):
     assert mark.x[0] == 20.5
     assert mark.y[0] == pytest.approx(np.interp(20.5, sweep.bandwidths, sweep.t_stat[0, :, 1]))
     assert mark.hovertemplate.startswith("Andrews (1991)")
-    label = [a for a in fig.layout.annotations if a.text == "Andrews (1991)"][0]
+    label = [a for a in fig.layout.annotations if a.text == "Andrews"][0]   # year on hover
+    assert label.hovertext == "Andrews (1991)"
     # the label sits in the strip above the plotting area, its leader pointing at the rule's b
     assert (label.x, label.yref, label.y) == (20.5, "paper", 1) and label.ay < 0
     assert all(a.yref == "paper" and a.y >= 1 for a in fig.layout.annotations)
     assert "bandwidth b" in fig.layout.xaxis.title.text
+    assert list(fig.layout.xaxis.range) == [1.0, 40.0]     # label fractions = plot fractions
 
 
 def test_rule_labels_sit_in_a_strip_and_never_overlap(fit, sweep):
@@ -68,12 +70,12 @@ def test_rule_labels_sit_in_a_strip_and_never_overlap(fit, sweep):
     notes = [a for a in fig.layout.annotations if a.name == "rule"]
     assert len(notes) == 5                                   # one leader per rule
     labels = {(a.text, a.ax, a.ay) for a in notes}
-    assert {t for t, _, _ in labels} == {"rule A, rule B, rule C", "rule D",
-                                          "a much longer rule name"}
+    assert {t for t, _, _ in labels} == {"rule A +2", "rule D", "a much longer rule name"}
+    titles = {m[1] for m in marks}
     span = sweep.values[-1] - sweep.values[0]
     for a in notes:
         assert a.yref == "paper" and a.y == 1 and a.ay < 0 and a.axref == "x"
-        marker = [t for t in fig.data if t.name in a.text.split(", ") and t.x[0] == a.x]
+        marker = [t for t in fig.data if t.name in titles and t.x[0] == a.x]
         assert len(marker) == 1
     for ta, xa, ya in labels:
         for tb, xb, yb in labels:
@@ -81,6 +83,7 @@ def test_rule_labels_sit_in_a_strip_and_never_overlap(fit, sweep):
                 gap = abs(xa - xb) / span * F.PLOT_PX
                 assert gap >= (len(ta) + len(tb)) * F.CHAR_PX / 2 + 10
     full = [a.hovertext for a in notes if a.text.startswith("rule A")][0]
+    assert F.strip_label(["Andrews (1991)", "LLSW (2018)"]) == "Andrews, LLSW"
     assert full.startswith("rule A in full<br>rule B")
     assert fig.layout.margin.t >= F.TITLE_PX + F.STRIP_ROW_PX
 
