@@ -22,6 +22,7 @@ from ..engine.covariance.registry import FAMILIES
 from ..engine.data.columns import index_label
 from ..engine.data.panels import periods_of
 from ..engine.kinds import kind_of
+from . import answer as A
 from . import figures as F
 from . import views as V
 from .factors import factor_fit
@@ -50,9 +51,11 @@ def on_upload(contents, _demo, _panel_demo, filename, session):
     name = filename if isinstance(filename, str) else "upload"
     try:
         if ctx.triggered_id in ("load-demo", "load-demo-panel"):
-            path = engine_demo(ctx.triggered_id == "load-demo-panel")
+            panel = ctx.triggered_id == "load-demo-panel"
+            path = engine_demo(panel)
             key, table = dataset_from_bytes(session, path.read_bytes(), path.name)
-            return key, V.ok_box(f"loaded the demo data ({len(table.frame)} rows, simulated)"), \
+            what = "the panel demo" if panel else "the demo data"
+            return key, V.ok_box(f"loaded {what} ({len(table.frame):,} rows, simulated)"), \
                 None, no_update
         if not contents:
             return no_update, no_update, None, no_update
@@ -66,8 +69,8 @@ def on_upload(contents, _demo, _panel_demo, filename, session):
     except (ValueError, TypeError):
         return no_update, V.error_box(f"{name}: the upload could not be decoded"), None, \
             no_update
-    return key, V.ok_box(f"loaded {name}: {len(table.frame)} rows, "
-                         f"{len(table.frame.columns)} numeric columns"), None, None
+    return key, V.ok_box(f"loaded {name}: {len(table.frame):,} rows, "
+                         f"{len(table.frame.columns):,} numeric columns"), None, None
 
 
 def engine_demo(panel: bool = False):
@@ -99,9 +102,9 @@ def on_dataset(key, session, response, regressors, initial, pending):
             [], None, [], 1, [0, 1], [], None, [], None, False, []
     frame = table.frame
     cols = [str(c) for c in frame.columns]
-    opts = [{"label": c, "value": c} for c in cols]
+    opts = [{"label": c, "value": c, "title": c} for c in cols]     # title: the full name
     labels = [str(c) for c in (table.labels.columns if table.labels is not None else [])]
-    id_opts = [{"label": c, "value": c} for c in labels + cols]
+    id_opts = [{"label": c, "value": c, "title": c} for c in labels + cols]
     records, columns = V.preview(table)
     regressors = regressors if isinstance(regressors, list) else []
     settings = pending if isinstance(pending, dict) else {}
@@ -162,8 +165,8 @@ def on_iv_options(columns, response, regressors, endogenous, instruments):
     endo = [e for e in (endogenous if isinstance(endogenous, list) else []) if e in regs]
     free = [c for c in cols if c != response and c not in regs]
     inst = [z for z in (instruments if isinstance(instruments, list) else []) if z in free]
-    return ([{"label": r, "value": r} for r in regs], endo,
-            [{"label": c, "value": c} for c in free], inst)
+    return ([{"label": r, "value": r, "title": r} for r in regs], endo,
+            [{"label": c, "value": c, "title": c} for c in free], inst)
 
 
 @callback(Output("fit-key", "data"), Output("fit-message", "children"),
@@ -233,7 +236,7 @@ def on_spec(key, response, regressors, intercept, horizon, window, endogenous, i
     msg += model.sample.notes
     known = model.one_period if model.capabilities.one_period else None
     return (fkey, html.Div([html.Div(m) for m in msg], className="lw-ok"),
-            [{"label": t, "value": t} for t in model.terms], focus, text, h,
+            [{"label": t, "value": t, "title": t} for t in model.terms], focus, text, h,
             known.name if known is not None else None)
 
 
@@ -247,7 +250,7 @@ def _given_spec(session, fkey, focus):
     focus = focus if focus in model.terms else slopes[0]
     msg = [engine.model_line(model), *model.sample.notes]
     return (fkey, html.Div([html.Div(m) for m in msg], className="lw-ok"),
-            [{"label": t, "value": t} for t in model.terms], focus, "", no_update, no_update)
+            [{"label": t, "value": t, "title": t} for t in model.terms], focus, "", no_update, no_update)
 
 
 def _panel_spec(table, key, response, regressors, intercept, window, endogenous, instruments,
@@ -278,11 +281,11 @@ def _panel_spec(table, key, response, regressors, intercept, window, endogenous,
     focus = focus if focus in model.terms else \
         ([t for t in model.terms if t != engine.INTERCEPT] or model.terms)[0]
     r2 = V.fmt(model.r_squared, 3) or "n/a"
-    msg = [f"N = {model.nobs} rows: {p.n_entities} entities x {p.n_periods} periods; k = "
+    msg = [f"N = {model.nobs:,} rows: {p.n_entities:,} entities x {p.n_periods:,} periods; k = "
            f"{model.k}; {'within ' if p.effects else ''}R² = {r2}", model.describe_method()]
     msg += model.sample.notes
     return (fkey, html.Div([html.Div(m) for m in msg], className="lw-ok"),
-            [{"label": t, "value": t} for t in model.terms], focus, text, None)
+            [{"label": t, "value": t, "title": t} for t in model.terms], focus, text, None)
 
 
 def _window(frame, window):
@@ -331,6 +334,29 @@ def on_family(name, pending):
     return estimator_controls(name, values if isinstance(values, dict) else None)
 
 
+def landed_value(tuning, grid) -> float | None:
+    """Where the slider goes for a rule's value: the nearest whole value inside the slider's
+    range; None (the slider stays) when there is no finite value (never NaN in an input)."""
+    if tuning is None or not np.isfinite(tuning) or len(grid) == 0 \
+            or not np.isfinite(grid[[0, -1]]).all():
+        return None
+    return float(np.clip(round(float(tuning)), grid[0], grid[-1]))
+
+
+def rule_keys(name) -> list[str]:
+    return [o["value"] for o in rule_options(name)] if name in FAMILIES else []
+
+
+def family_rule(name, pending) -> str:
+    """The rule a family opens with: the one in pending settings for it, else Andrews where the
+    family has it, else its first rule ("fixed" without a tuning axis)."""
+    keys = rule_keys(name)
+    wanted = pending.get("rule") if isinstance(pending, dict) \
+        and pending.get("estimator") == name else None
+    return wanted if wanted in keys else ("andrews" if "andrews" in keys else
+                                          keys[1] if len(keys) > 1 else "fixed")
+
+
 @callback(Output("tune-slider", "min"), Output("tune-slider", "max"),
           Output("tune-slider", "disabled"), Output("tune-title", "children"),
           Output("tune-help", "children"), Output("tune-rule", "options"),
@@ -348,10 +374,7 @@ def on_axis(fkey, name, rule, pending, session):
     # a new fit keeps a rule that applies: resending it would recompute the tables
     same = ctx.triggered_id == "fit-key" and rule in keys
     if ctx.triggered_id == "est-name" or rule not in keys:
-        wanted = pending.get("rule") if isinstance(pending, dict) \
-            and pending.get("estimator") == name else None
-        rule = wanted if wanted in keys else ("andrews" if "andrews" in keys else
-                                             keys[1] if len(keys) > 1 else "fixed")
+        rule = family_rule(name, pending)
     if family.axis is None:
         return no_update, no_update, True, "no tuning value", \
             "This estimator has no tuning value; the chart shows the kernel estimators for " \
@@ -377,13 +400,18 @@ INFERENCE_INPUTS = [Input("fit-key", "data"), Input("est-name", "value"),
           Output("tune-rule", "value"), Output("tune-slider", "value"),
           Output("compare-shown", "data"),
           *INFERENCE_INPUTS, State({"type": "est-param", "name": ALL}, "id"),
-          State("session", "data"), State("compare-shown", "data"), prevent_initial_call=True,
-          message=1)
+          State("session", "data"), State("compare-shown", "data"),
+          State("pending-settings", "data"), prevent_initial_call=True, message=1)
 def on_inference(fkey, name, values, rule, slider, reference, level, focus, method, ids, session,
-                 shown):
+                 shown, pending=None):
     """One round trip per slider move. The rule and the slider are kept in step here: a rule
-    places the slider where it landed; moving the slider switches to a value set by hand."""
+    places the slider where it landed; moving the slider switches to a value set by hand. A
+    new family is computed once, at its own rule: while the page still holds the previous
+    family's rule, on_axis is about to replace it, and that change brings us back here."""
     out_rule = out_slider = no_update
+    if rule not in rule_keys(name) or ("est-name.value" in ctx.triggered_prop_ids
+                                       and rule != family_rule(name, pending)):
+        raise PreventUpdate
     if ctx.triggered_id == "tune-slider" and rule != "fixed":
         rule = out_rule = "fixed"
     model = stored(session, fkey)
@@ -399,13 +427,13 @@ def on_inference(fkey, name, values, rule, slider, reference, level, focus, meth
         box = V.error_box(str(exc))
         return [], box, [], box, "", no_update, out_rule, out_slider, no_update
     family = est.family
-    if family.axis is not None and rule != "fixed" and res.long_run.tuning is not None:
-        landed = float(np.clip(round(res.long_run.tuning), *family.axis.grid(model)[[0, -1]]))
-        if landed != slider:
+    if family.axis is not None and rule != "fixed":
+        landed = landed_value(res.long_run.tuning, family.axis.grid(model))
+        if landed is not None and landed != slider:
             out_slider = landed
     flip = flip_for(session, fkey, model, est, focus, level, reference, method)
     title = family.axis.rules[rule][0] if family.axis and rule in family.axis.rules else None
-    rejects, headline = V.headline(res, focus, V.flip_line(flip), title)
+    rejects, headline = A.headline(res, est, shown_model, focus, flip, title)
     notes = list(res.notes)
     short = V.shortfall_note(res, model)
     if short:
@@ -424,17 +452,22 @@ def on_inference(fkey, name, values, rule, slider, reference, level, focus, meth
 
 
 @callback(Output("sens-graph", "figure", allow_duplicate=True),
+          Output("flip-graph", "figure", allow_duplicate=True),
           Input("tune-slider", "value"), prevent_initial_call=True)
 def on_marker(slider):
-    """Move the current-value marker only (a partial update of the figure)."""
-    patch = Patch()
-    patch["layout"]["shapes"][0]["x0"] = slider
-    patch["layout"]["shapes"][0]["x1"] = slider
-    return patch
+    """Move the current-value markers only (partial updates of the two figures)."""
+    patches = []
+    for _ in range(2):
+        patch = Patch()
+        patch["layout"]["shapes"][0]["x0"] = slider
+        patch["layout"]["shapes"][0]["x1"] = slider
+        patches.append(patch)
+    return tuple(patches)
 
 
 @callback(Output("sens-graph", "figure"), Output("flip-text", "children"),
-          Output("interval-graph", "figure"),
+          Output("interval-graph", "figure"), Output("flip-graph", "figure"),
+          Output("flip-summary", "children"),
           Input("fit-key", "data"), Input("reference", "value"), Input("level", "value"),
           Input("focus", "value"), Input("chart-mode", "value"), Input("est-name", "value"),
           Input({"type": "est-param", "name": ALL}, "value"), Input("tune-rule", "value"),
@@ -447,7 +480,7 @@ def on_sensitivity(fkey, reference, level, focus, mode, name, values, rule, meth
     if model is None or focus not in model.terms:
         empty = F.empty_figure(no_model_message(session, fkey) if fkey else
                                "Load data and choose a model to see the sensitivity chart.")
-        return empty, "", F.empty_figure("")
+        return empty, "", F.empty_figure(""), F.empty_figure("", 120), ""
     if not applies(name, model):
         raise PreventUpdate
     try:
@@ -462,11 +495,15 @@ def on_sensitivity(fkey, reference, level, focus, mode, name, values, rule, meth
         if "panel-lines" in kind_of(model).cards and mode in ("t", "se"):
             lines += panel_reference_lines(session, fkey, model, focus, col, level,
                                            skip=res.label)
-        ref = reference if np.isfinite(sweep.critical_values(level, reference, focus)).any() else "auto"
-        fig = F.sensitivity_figure(sweep, focus, mode or "t", level, ref, slider,
-                                   current_curve(sweep, est) if sweep.family is est.family
-                                   else None, rule_marks(session, fkey, model, est, sweep),
+        ref = reference if np.isfinite(sweep.critical_values(level, reference, focus)).any() \
+            else "auto"
+        chosen = current_curve(sweep, est) if sweep.family is est.family else None
+        fig = F.sensitivity_figure(sweep, focus, mode or "t", level, ref, slider, chosen,
+                                   rule_marks(session, fkey, model, est, sweep),
                                    reference_lines=lines, horizon=model.horizon)
+        strips = F.flip_strip_figure(sweep, focus, level, ref, slider, chosen)
+        summary = V.conclusion_summary(sweep, F.conclusion_states(sweep, focus, level, ref),
+                                       level)
         flips = [html.Li(engine.significance_flip(model, focus, level=level, reference=ref,
                                                   sweep_result=sweep, curve=c).sentence())
                  for c in range(len(sweep.labels))]
@@ -474,9 +511,10 @@ def on_sensitivity(fkey, reference, level, focus, mode, name, values, rule, meth
         gmm_key = spec_hash(est.settings()) if is_gmm(model, method) else ""
         comp = comparison_for(session, fkey, shown_model, level, reference, gmm_key)
     except engine.LagwiseError as exc:
-        return F.empty_figure(str(exc)), V.error_box(str(exc)), F.empty_figure("")
+        return F.empty_figure(str(exc)), V.error_box(str(exc)), F.empty_figure(""), \
+            F.empty_figure("", 120), ""
     STORE.refresh(session, fkey)          # the fit now carries its caches: count them
-    return fig, html.Ul(flips), F.interval_figure(comp, focus, level)
+    return fig, html.Ul(flips), F.interval_figure(comp, focus, level), strips, summary
 
 
 # --------------------------------------------------------------------------- progress

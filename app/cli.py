@@ -26,20 +26,33 @@ def _p(x):
     return "<0.001" if x < 0.001 else f"{x:.3f}"
 
 
-def render_text(fit, comp, level: float, extra_lines=()) -> str:
+def _own_estimates(block) -> bool:
+    """Rows of the block that carry their own estimate (Fama-MacBeth, GMM re-weighted): the
+    lines then show each row's estimate."""
+    est = block.estimate.to_numpy(dtype=float)
+    ok = np.isfinite(est)
+    return bool(ok.any() and np.ptp(est[ok]) > 1e-12 * max(1.0, float(np.abs(est[ok]).max())))
+
+
+def render_text(fit, comp, level: float, extra_lines=(), stamp=None) -> str:
     """Our own plain-text layout: one block per coefficient, one line per estimator."""
     pct = f"{level * 100:g}%"
     from ..engine.kinds import model_line
-    head = f"Lagwise comparison: {model_line(fit)}\n{pct} intervals"
-    lines = [head]
+    lines = [f"Lagwise comparison: {model_line(fit)}"]
+    lines += list(stamp.lines()) if stamp is not None else []
+    lines.append(f"{pct} intervals")
     lines += [f"  note: {n}" for n in fit.sample.notes]
     width = max(len(s) for s in comp.estimator) + 2
     for term in fit.terms:
         block = comp[comp.term == term]
         est = block.estimate.iloc[0]
+        own = _own_estimates(block)
         lines.append("")
-        lines.append(f"== {term}: estimate {est:.6g} " + "=" * max(0, 60 - len(term)))
-        lines.append(f"  {'estimator':<{width}}{'b':>8}{'lags':>6}{'std err':>11}{'t':>9}"
+        head = f"== {term}: each line shows its own estimate" if own else \
+            f"== {term}: estimate {est:.6g}"
+        lines.append(head + " " + "=" * max(0, 60 - len(term)))
+        lines.append(f"  {'estimator':<{width}}" + (f"{'estimate':>11}" if own else "")
+                     + f"{'b':>8}{'lags':>6}{'std err':>11}{'t':>9}"
                      f"{'p':>8}   {pct + ' interval':<26}{'null beta=0'}")
         for _, r in block.iterrows():
             if isinstance(r.note, str) and r.note and not np.isfinite(r.std_error):
@@ -47,7 +60,8 @@ def render_text(fit, comp, level: float, extra_lines=()) -> str:
                 continue
             ci = f"[{_fmt(r.ci_low)}, {_fmt(r.ci_high)}]"
             verdict = {True: "rejected", False: "not rejected"}.get(r.rejects, "n/a")
-            lines.append(f"  {r.estimator:<{width}}{_fmt(r.bandwidth, '.3g'):>8}"
+            lines.append(f"  {r.estimator:<{width}}" + (f"{_fmt(r.estimate):>11}" if own else "")
+                         + f"{_fmt(r.bandwidth, '.3g'):>8}"
                          f"{_fmt(r.lags, '.0f'):>6}{_fmt(r.std_error):>11}{_fmt(r.t_stat, '.3f'):>9}"
                          f"{_p(r.p_value):>8}   {ci:<26}{verdict}")
     notes = sorted({n for n in comp.note if isinstance(n, str) and n and "not available" not in n
@@ -173,12 +187,16 @@ def cmd_table(args) -> int:
 def write_output(args, fit, comp, extra, what: str) -> int:
     """The comparison as text (our layout) or a table format, to a file or stdout."""
     from ..engine.io.tables import render
+    from ..engine.io.provenance import provenance
+    from ..engine.kinds import model_line
+    stamp = provenance(fit)
     if args.format == "text":
-        out = render_text(fit, comp, args.level, extra)
+        out = render_text(fit, comp, args.level, extra, stamp=stamp)
     else:
         cols = ["term", "estimator", "estimate", "std_error", "t_stat", "p_value", "ci_low",
                 "ci_high", "bandwidth", "lags", "reference", "rejects", "note"]
-        out = render(comp[cols], args.format, index=False, caption=f"{fit.response}: {what}")
+        out = render(comp[cols], args.format, index=False, caption=f"{fit.response}: {what}",
+                     notes=[model_line(fit)], stamp=stamp.lines(), level=args.level)
     if args.output:
         Path(args.output).write_text(out)
         print(f"wrote {args.output}", file=sys.stderr)
@@ -557,6 +575,26 @@ def cmd_bootstrap(args) -> int:
     return 0
 
 
+def cmd_demo(args) -> int:
+    """The bundled, simulated demo files: their paths (one name: that file's path only, for
+    use in another command, e.g. lagwise table "$(lagwise demo freight_index.csv)" ...)."""
+    from .._files import demo_dir
+    folder = demo_dir()
+    files = sorted(p for p in folder.iterdir() if p.suffix in (".csv", ".parquet"))
+    if args.name:
+        match = [p for p in files if p.name == args.name or p.stem == args.name]
+        if not match:
+            print(f"lagwise: no demo file named {args.name!r}; the demo files are "
+                  + ", ".join(p.name for p in files), file=sys.stderr)
+            return 2
+        print(match[0])
+        return 0
+    print(f"Demo data (simulated; generators beside them) in {folder}:")
+    for p in files:
+        print(f"  {p}")
+    return 0
+
+
 def cmd_serve(args) -> int:
     from .main import serve
     return serve(args.file, host=args.host, port=args.port, debug=args.debug,
@@ -641,6 +679,8 @@ def _bootstrap_parser(sub) -> None:
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="lagwise", description="Robust standard errors for "
                                 "time-series regressions, and how they depend on the lag choice.")
+    from ..engine.io.provenance import lagwise_version
+    p.add_argument("--version", action="version", version=f"lagwise {lagwise_version()}")
     sub = p.add_subparsers(dest="command", required=True)
     _table_parser(sub)
     _panel_parser(sub)
@@ -648,6 +688,7 @@ def build_parser() -> argparse.ArgumentParser:
     _factors_parser(sub)
     _bootstrap_parser(sub)
     _serve_parser(sub)
+    _demo_parser(sub)
     return p
 
 
@@ -735,6 +776,14 @@ def _serve_parser(sub) -> None:
     s.add_argument("--debug", action="store_true", help="Dash debug mode (development only)")
     s.add_argument("--settings", default=None, help="a saved settings JSON to start from")
     s.set_defaults(func=cmd_serve)
+
+
+def _demo_parser(sub) -> None:
+    """`lagwise demo`: where the bundled demo files are."""
+    d = sub.add_parser("demo", help="print where the bundled (simulated) demo files are")
+    d.add_argument("name", nargs="?", default=None,
+                   help="a demo file (freight_index.csv, shipping_panel.csv): print its path")
+    d.set_defaults(func=cmd_demo)
 
 
 def main(argv=None) -> int:

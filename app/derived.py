@@ -196,7 +196,7 @@ def panel_reference_lines(session, fkey, model, focus, col, level, skip=""):
 
 
 def rule_marks(session, fkey, model, est, sweep):
-    """Where each automatic rule of the family lands: [(curve, title, value)]."""
+    """Where each automatic rule of the family lands: [(curve, title, value, how in full)]."""
     family = est.family
     if family.axis is None or sweep.family is not family:
         return []
@@ -210,7 +210,7 @@ def rule_marks(session, fkey, model, est, sweep):
                 lr = est.with_params(**changes).long_run(model)
             except engine.LagwiseError:
                 continue
-            out.append((curve, title, lr.tuning))
+            out.append((curve, title, lr.tuning, lr.how or title))
         return out
     return STORE.derived(session, key, build)
 

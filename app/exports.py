@@ -13,11 +13,13 @@ import plotly.graph_objects as go
 from dash import ALL, Input, Output, State, ctx, no_update
 
 from .. import engine
+from ..engine.io.provenance import chart_fields, provenance, stamp_chart
 from ..engine.io.settings import (SETTINGS_VERSION, check_against_sample, load_settings,
                                   settings_json)
 from ..engine.io.tables import FORMATS, render
 from . import views as V
-from ..engine.kinds import kind_of
+from ..engine.kinds import kind_of, model_line
+from .report import build_report
 from .derived import (comparison_for, diagnostics_for, is_gmm, make_estimator, param_values,
                       stored, strength_for, view_inference)
 from .layout import CHART_FORMATS
@@ -27,7 +29,7 @@ from .wiring import callback
 _EXPORT_LOCK = threading.Lock()
 _KALEIDO = {"started": False}
 GRAPHS = ["sens-graph", "interval-graph", "resid-graph", "acf-graph", "scatter-graph",
-          "score-graph", "horizon-graph", "size-graph"]
+          "score-graph", "horizon-graph", "size-graph", "flip-graph"]
 TABLES = ["coef-table", "compare-table", "diag-table", "spec-table", "persistence-table"]
 VIEW_STATE = [State("session", "data"), State("fit-key", "data"), State("est-name", "value"),
               State({"type": "est-param", "name": ALL}, "value"),
@@ -36,13 +38,57 @@ VIEW_STATE = [State("session", "data"), State("fit-key", "data"), State("est-nam
               State("level", "value"), State("focus", "value"), State("iv-method", "value")]
 
 
-def export_figure(fig: go.Figure, fmt: str) -> bytes:
+#: Width of exported charts (pixels; PNG at twice this) and characters per subtitle line.
+EXPORT_WIDTH, SUBTITLE_CHARS = 1000, 150
+
+
+def _wrap(text: str, width: int = SUBTITLE_CHARS) -> list[str]:
+    """Lines of at most `width` characters, broken after "; " or ", " where possible."""
+    out, line = [], ""
+    for piece in text.replace("; ", ";\0").replace(", ", ",\0").split("\0"):
+        if line and len(line) + 1 + len(piece) > width:
+            out.append(line)
+            line = piece
+        else:
+            line = f"{line} {piece}" if line else piece
+    return out + ([line] if line else [])
+
+
+def export_layout(fig: go.Figure, subtitle: str = "") -> go.Figure:
+    """The figure as it is exported: a fixed width, its own height, and the model line as a
+    subtitle under the title (the top margin grows by the subtitle's lines)."""
+    height = max(int(fig.layout.height or 450), 360)
+    fig.update_layout(width=EXPORT_WIDTH, height=height)
+    if subtitle:
+        lines = _wrap(subtitle)
+        extra = 17 * len(lines) + 4
+        top = int(fig.layout.margin.t if fig.layout.margin.t is not None else 48)
+        title = fig.layout.title.text or ""
+        fig.update_layout(height=height + extra, margin={"t": top + extra},
+                          title={"text": title, "y": 1, "yref": "container", "yanchor": "top",
+                                 "pad": {"t": 8},
+                                 "subtitle": {"text": "<br>".join(lines),
+                                              "font": {"size": 11, "color": "#6b7480"}}})
+    return fig
+
+
+def export_figure(fig: go.Figure, fmt: str, subtitle: str = "", stamp=None) -> bytes:
     """Static export with kaleido and the system chromium, one export at a time (kaleido's
-    shared server is not thread-safe)."""
+    shared server is not thread-safe). subtitle: the model line; stamp: the provenance
+    (engine.io.provenance), written into the file's own metadata (PNG text chunks, SVG
+    metadata, the PDF's document information)."""
     import plotly.io as pio
     if fmt not in CHART_FORMATS:
         raise engine.SpecificationError(f"charts export as {', '.join(CHART_FORMATS)}")
-    fig.update_layout(width=1000, height=max(int(fig.layout.height or 450), 360))
+    export_layout(fig, subtitle)
+    data = _render(pio, fig, fmt)
+    if stamp is None:
+        return data
+    fields = chart_fields(stamp, fig.layout.title.text or "", subtitle)
+    return stamp_chart(data, fmt, fields)
+
+
+def _render(pio, fig, fmt) -> bytes:
     with _EXPORT_LOCK:
         if not _KALEIDO["started"]:
             import kaleido
@@ -51,6 +97,19 @@ def export_figure(fig: go.Figure, fmt: str) -> bytes:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             return pio.to_image(fig, format=fmt, scale=2 if fmt == "png" else 1)
+
+
+def _line_and_stamp(session, fkey, name, values, ids, rule, slider, reference, level, method):
+    """The model line of the view (the weighted fit's for GMM) and the provenance stamp."""
+    model = stored(session, fkey)
+    if model is None:
+        return "", provenance(None)
+    try:
+        shown, _, base, _ = current_view(session, fkey, name, values, ids, rule, slider,
+                                         reference, level, None, method)
+    except engine.LagwiseError:
+        shown = base = model
+    return model_line(shown), provenance(base)
 
 
 def current_view(session, fkey, name, values, ids, rule, slider, reference, level, focus,
@@ -78,7 +137,8 @@ def table_frame(target, session, fkey, model, res, focus, reference, base=None, 
         frame = res.table.reset_index()
         if res.law.per_coefficient:          # degrees of freedom per coefficient
             frame["df"] = [float(law.df) for law in res.term_laws()]
-        return frame, f"{model.response}: {res.label}", [conventions(res)] + res.notes
+        return frame, f"{model.response}: {res.label}", [model_line(model), conventions(res)] \
+            + res.notes
     if target == "compare-table":
         from .state import spec_hash
         comp = comparison_for(session, fkey, model, res.level, reference,
@@ -88,8 +148,8 @@ def table_frame(target, session, fkey, model, res, focus, reference, base=None, 
         frame = rows[["estimator", "estimate", "bandwidth", "lags", "std_error", "t_stat",
                       "p_value", "ci_low", "ci_high", "reference", "beta = 0", "note"]]
         return frame, f"{focus}: every estimator", \
-            [f"{res.level:.0%} confidence intervals; two-sided tests at {1 - res.level:.0%}; "
-             "each row's reference law is stated in its row"]
+            [model_line(model), f"{res.level:.0%} confidence intervals; two-sided tests at "
+             f"{1 - res.level:.0%}; each row's reference law is stated in its row"]
     if target == "spec-table":
         if "instruments" not in kind_of(base).cards:
             raise engine.SpecificationError("the model has no instruments")
@@ -137,7 +197,9 @@ def on_export(clicks, *states):
         if target in figs:
             if not isinstance(figs[target], dict):
                 return no_update
-            data = export_figure(go.Figure(figs[target]), fmt)
+            line, stamp = _line_and_stamp(session, fkey, name, values, ids, rule, slider,
+                                          reference, level, method)
+            data = export_figure(go.Figure(figs[target]), fmt, subtitle=line, stamp=stamp)
             return {"content": base64.b64encode(data).decode(), "base64": True,
                     "filename": f"lagwise_{target}.{fmt}"}
         if target not in TABLES or fmt not in FORMATS:
@@ -146,7 +208,8 @@ def on_export(clicks, *states):
                                              reference, level, focus, method)
         frame, caption, notes = table_frame(target, session, fkey, model, res, focus, reference,
                                             base, est, method)
-        text = render(frame, fmt, index=False, caption=caption, notes=notes)
+        text = render(frame, fmt, index=False, caption=caption, notes=notes,
+                      stamp=provenance(base).lines(), level=res.level)
     except (engine.LagwiseError, ValueError) as exc:
         return {"content": f"export failed: {exc}\n", "filename": "lagwise_export_error.txt"}
     ext = {"csv": "csv", "markdown": "md", "latex": "tex", "html": "html"}[fmt]
@@ -154,26 +217,21 @@ def on_export(clicks, *states):
 
 
 @callback(Output("download", "data", allow_duplicate=True), Input("export-report", "n_clicks"),
-          *[State(g, "figure") for g in GRAPHS], *VIEW_STATE, prevent_initial_call=True)
+          *[State(g, "figure") for g in GRAPHS], *VIEW_STATE, State("size-data", "data"),
+          prevent_initial_call=True)
 def on_report(_n, *states):
-    figs = [go.Figure(f) for f in states[: len(GRAPHS)] if isinstance(f, dict)]
-    session, fkey, name, values, ids, rule, slider, reference, level, focus, method = \
+    """The HTML report of this view (app.report): every card that was computed, opening with
+    where it came from, the model and the answer."""
+    figs = dict(zip(GRAPHS, states[: len(GRAPHS)]))
+    session, fkey, name, values, ids, rule, slider, reference, level, focus, method, size = \
         states[len(GRAPHS):]
     try:
         model, res, base, est = current_view(session, fkey, name, values, ids, rule, slider,
                                              reference, level, focus, method)
-        tables = []
-        titles = ["Coefficients", "Every estimator, coefficient in focus", "Diagnostic tests",
-                  "Instruments: strength and specification", "Persistence of the predictor"]
-        for target, title in zip(TABLES, titles):
-            if target == "spec-table" and "instruments" not in kind_of(base).cards:
-                continue
-            if target == "persistence-table":
-                continue                      # its chart is in the report; the table on request
-            frame, _, _ = table_frame(target, session, fkey, model, res, focus, reference,
-                                      base, est, method)
-            tables.append((title, frame))
-        text = V.report_html(model, figs, tables, res.describe(), conventions(res))
+        if focus not in model.terms:
+            raise engine.SpecificationError("choose a coefficient in focus first")
+        text = build_report(session, fkey, model, res, base, est, focus, level, reference,
+                            method or "2sls", rule, figs, size, provenance(base))
     except engine.LagwiseError as exc:
         return {"content": f"report failed: {exc}\n", "filename": "lagwise_report_error.txt"}
     return {"content": text, "filename": "lagwise_report.html"}
@@ -202,7 +260,8 @@ def on_save(_n, dkey, response, regressors, intercept, horizon, window, mode, en
               "reference": reference, "level": level, "focus": focus, "chart_mode": mode,
               "endogenous": endogenous or [], "instruments": instruments or [],
               "method": method or "2sls", "entity": entity or None, "time": time or None,
-              "effects": [e for e in (effects or []) if e in ("entity", "time")]}
+              "effects": [e for e in (effects or []) if e in ("entity", "time")],
+              "made_by": provenance(table).record()}
     return ({"content": settings_json(record), "filename": "lagwise_settings.json"},
             V.ok_box("settings saved to lagwise_settings.json"))
 
@@ -302,8 +361,10 @@ def view_script(table, model, est, level, reference, method="2sls") -> str:
     from .._files import demo_dir
     source = table.report.source or "data.csv"
     bundled = (demo_dir() / source).is_file()
+    stamp = provenance(table)
     lines = ['"""Reproduces a Lagwise view: the model, the estimator and its settings, the',
              'reference law and the level. Generated by the Lagwise dashboard."""', "",
+             *[f"# {x}" for x in stamp.lines()], f"# model: {model_line(model)}", "",
              "import lagwise", ""]
     if bundled:
         lines.append(f"table = lagwise.load_table(lagwise.demo_file({source!r}))   "

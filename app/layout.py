@@ -126,7 +126,8 @@ def grid(gid: str, columns: list[dict], height: str | None = None, **grid_option
     if height is None:
         options["domLayout"] = "autoHeight"
     return dag.AgGrid(id=gid, columnDefs=columns, rowData=[], columnSize="sizeToFit",
-                      defaultColDef={"sortable": True, "resizable": True, "minWidth": 60},
+                      defaultColDef={"sortable": True, "resizable": True, "minWidth": 60,
+                                     "wrapHeaderText": True, "autoHeaderHeight": True},
                       dashGridOptions=options, className="ag-theme-quartz lw-grid-table",
                       style={"height": height} if height else {"width": "100%"},
                       getRowStyle=views.DIFFERS_STYLE)
@@ -138,7 +139,8 @@ def param_control(p: Param, value=None):
     value = p.default if value is None else value
     if p.kind in ("choice", "kernel", "grouping"):
         labels = {k: v.label for k, v in KERNELS.items()} if p.kind == "kernel" else {}
-        ctrl = dcc.Dropdown(id=pid, options=[{"label": labels.get(c, str(c)), "value": c}
+        ctrl = dcc.Dropdown(id=pid, options=[{"label": labels.get(c, str(c)), "value": c,
+                                              "title": labels.get(c, str(c))}
                                              for c in p.options], value=value, clearable=False)
     elif p.kind == "bool":
         ctrl = dcc.Checklist(id=pid, options=[{"label": " " + (p.title or p.name), "value": "on"}],
@@ -171,8 +173,10 @@ def rule_options(name: str) -> list[dict]:
     family = FAMILIES[name]
     if family.axis is None:
         return [{"label": "no tuning value", "value": "fixed"}]
-    return [{"label": f"set by hand ({family.axis.symbol} on the slider)", "value": "fixed"}] + [
-        {"label": title, "value": key} for key, (title, _) in family.axis.rules.items()]
+    return [{"label": f"set by hand ({family.axis.symbol} on the slider)", "value": "fixed",
+             "title": f"set by hand ({family.axis.symbol} on the slider)"}] + [
+        {"label": title, "value": key, "title": title}
+        for key, (title, _) in family.axis.rules.items()]
 
 
 def _model_sections() -> list:
@@ -206,7 +210,7 @@ def _model_sections() -> list:
             html.Summary("Transforms"),
             html.P(HELP["transform"], className="lw-help"),
             html.Div([
-                dcc.Dropdown(id="tf-kind", options=[{"label": text, "value": k}
+                dcc.Dropdown(id="tf-kind", options=[{"label": text, "value": k, "title": text}
                                                     for k, text in views.TRANSFORM_TITLES.items()
                                                     if k in TRANSFORMS],
                              value="sum-next", clearable=False, className="lw-tf-kind"),
@@ -276,16 +280,24 @@ def sidebar(initial_horizon=None, where: str = "this computer"):
 
 
 def sensitivity_card():
-    est_options = [{"label": f.title, "value": f.name} for f in FAMILIES.values()]
+    est_options = [{"label": f.title, "value": f.name, "title": f.title}
+                   for f in FAMILIES.values()]
     chart = html.Div([
-        graph("sens-graph", 400),
+        graph("sens-graph", 460),
         html.Div([html.Label("show", className="lw-label"),
                   dcc.RadioItems(id="chart-mode", options=[
                       {"label": " t statistic", "value": "t"},
                       {"label": " standard error", "value": "se"},
                       {"label": " interval", "value": "ci"}],
                       value="t", inline=True, className="lw-radio")], className="lw-row"),
-        html.Div(id="flip-text", className="lw-flip"),
+        html.P("Kernels that are not positive semi-definite by construction (truncated, "
+               "Tukey-Hanning) start hidden: click their names in the legend to show them. "
+               "Triangles at the edge mark points beyond the vertical range.",
+               className="lw-help"),
+        graph("flip-graph", 220),
+        html.Div(id="flip-summary", className="lw-flip-summary", **{"aria-live": "polite"}),
+        html.Details([html.Summary("every change of conclusion, curve by curve"),
+                      html.Div(id="flip-text", className="lw-flip")], className="lw-details"),
     ], className="lw-chart-col")
     controls = html.Div([
         html.Div([
@@ -310,7 +322,7 @@ def sensitivity_card():
                       dcc.Dropdown(id="reference", options=REFERENCE_OPTIONS,
                                    value="auto", clearable=False),
                       html.P(HELP["reference"], className="lw-help")],
-                     className="lw-field"),
+                     className="lw-field lw-wide"),
             html.Div([html.Label("confidence level", className="lw-label"),
                       dcc.Dropdown(id="level", options=[
                           {"label": f"{x:.0%}", "value": x} for x in (0.9, 0.95, 0.99)],
@@ -416,10 +428,10 @@ def memo_card():
                       dcc.Dropdown(id="memo-ests", multi=True)], className="lw-field"),
             html.Div([html.Label("beneath each estimate", className="lw-label"),
                       dcc.RadioItems(id="memo-show", options=[
-                          {"label": " standard error", "value": "se"},
+                          {"label": " standard error", "value": "std_error"},
                           {"label": " t", "value": "t"}, {"label": " p", "value": "p"},
-                          {"label": " interval", "value": "ci"}],
-                          value="se", inline=True, className="lw-radio")],
+                          {"label": " interval", "value": "interval"}],
+                          value="std_error", inline=True, className="lw-radio")],
                      className="lw-field")], className="lw-grid"),
         html.Div(id="memo-preview", className="lw-memo"),
         dcc.Store(id="memo-specs", data=[])],
@@ -437,8 +449,10 @@ def size_card():
                           value=500, clearable=False)], className="lw-field"),
             html.Div([html.Label("simulated from", className="lw-label"),
                       dcc.Dropdown(id="size-method", options=[
-                          {"label": "a VAR of the regressors and errors", "value": "var"},
-                          {"label": "blocks of the data", "value": "block"}],
+                          {"label": "a VAR of the regressors and errors", "value": "var",
+                           "title": "a VAR of the regressors and errors"},
+                          {"label": "blocks of the data", "value": "block",
+                           "title": "blocks of the data"}],
                           value="var", clearable=False)], className="lw-field"),
         ], className="lw-grid"),
         html.Div([html.Button("run the size check", id="size-run", n_clicks=0,
@@ -448,8 +462,8 @@ def size_card():
         html.Progress(id="size-progress", value="0", max="1", className="lw-progress"),
         html.Div(id="size-progress-text", className="lw-help", **{"aria-live": "polite"}),
         html.Div(id="size-status", className="lw-message"),
-        graph("size-graph", 660),
-        grid("size-table", views.SIZE_COLUMNS),
+        html.Div([graph("size-graph", 320), grid("size-table", views.SIZE_COLUMNS)],
+                 id="size-results", style={"display": "none"}),
         dcc.Store(id="size-job"), dcc.Store(id="size-data")],
         export=html.Div([export_menu("size-graph", CHART_FORMATS),
                          html.Div([html.Span("table", className="lw-export-label")] + [
@@ -464,17 +478,22 @@ def size_card():
 def main_area():
     return html.Main([
         html.Section([
+            html.Div(id="model-line", className="lw-model-line"),
             html.Div([html.Label("coefficient in focus", className="lw-label"),
                       dcc.Dropdown(id="focus", clearable=False, className="lw-focus")],
                      className="lw-headline-pick"),
-            html.Div(id="headline", className="lw-headline-text", **{"aria-live": "polite"}),
+            html.Div([html.Div(id="answer-line", className="lw-answer",
+                               **{"aria-live": "polite"}),
+                      html.Div(id="headline", className="lw-headline-text",
+                               **{"aria-live": "polite"})], className="lw-headline-main"),
             html.P(HELP["headline"], className="lw-help")],
             className="lw-card lw-headline", id="headline-card"),
         *[build() for build in MAIN_EXTRAS],
         sensitivity_card(),
         lp_cards(card, graph, grid, CHART_FORMATS, TABLE_FORMATS),
         html.Div([
-            card("Coefficients", [html.Div(id="coef-caption", className="lw-caption"),
+            card("Coefficients", [html.Div(id="coef-model", className="lw-model-line"),
+                                  html.Div(id="coef-caption", className="lw-caption"),
                                   grid("coef-table", views.COEF_COLUMNS),
                                   html.Ul(id="coef-notes", className="lw-notes")],
                  export=export_menu("coef-table", TABLE_FORMATS, copy=True)),
@@ -510,12 +529,14 @@ def main_area():
         size_card(),
         memo_card(),
         html.Div([html.Button("download an HTML report of this view", id="export-report",
-                              n_clicks=0, className="lw-btn"),
+                              n_clicks=0, className="lw-btn",
+                              title="everything computed for this view in one file: the model, "
+                                    "the answer, the charts, tables and readings"),
                   html.Button("download a Python script of this view", id="export-script",
-                              n_clicks=0, className="lw-btn-quiet",
+                              n_clicks=0, className="lw-btn",
                               title="a short script using the lagwise API that reproduces "
                                     "the coefficient table")],
-                 className="lw-report-row"),
+                 className="lw-report-row lw-row"),
     ], className="lw-main")
 
 

@@ -18,9 +18,10 @@ from .._files import assets_dir, demo_file
 from ..engine.data.reading import load_table
 from . import callbacks, exports, studies  # noqa: F401 - their callbacks are recorded on import
 from . import projections  # noqa: F401 - the local-projection mode's callbacks
-from .derived import given_model
 from . import factors  # noqa: F401 - the factor-model mode: its sidebar section, cards, callbacks
 from . import clusters  # noqa: F401 - few clusters (issue 23): its callbacks are recorded on import
+from . import answer  # noqa: F401 - the model line and the answer line (issue 22)
+from .derived import dataset_from_bytes, dataset_from_table, given_model
 from .layout import build_layout
 from .wiring import register
 from .state import MAX_UPLOAD_BYTES, STORE, CapacityError, content_hash, key_for

@@ -156,7 +156,8 @@ def on_size_request(_n, fkey, focus, reps, method, level, session):
     return token, html.Div(f"running {reps} replications...", className="lw-help")
 
 
-@callback(Output("size-card", "style"), Output("size-graph", "figure", allow_duplicate=True),
+@callback(Output("size-card", "style"), Output("size-results", "style"),
+          Output("size-graph", "figure", allow_duplicate=True),
           Output("size-table", "rowData", allow_duplicate=True),
           Output("size-status", "children", allow_duplicate=True),
           Output("size-progress", "value", allow_duplicate=True),
@@ -168,7 +169,7 @@ def on_size_reset(fkey, session):
     is shown for least-squares time-series fits only."""
     model = stored(session, fkey)
     style = {} if _has_card(model, "size-check") else {"display": "none"}
-    return style, F.empty_figure("run the size check for this model"), [], "", "0", "", None
+    return style, {"display": "none"}, F.empty_figure(""), [], "", "0", "", None
 
 
 @callback(Output("size-status", "children", allow_duplicate=True),
@@ -181,6 +182,7 @@ def on_size_cancel(n):
 
 @callback(Output("size-graph", "figure"), Output("size-table", "rowData"),
           Output("size-data", "data"), Output("size-status", "children", allow_duplicate=True),
+          Output("size-results", "style", allow_duplicate=True),
           Input("size-job", "data"), background=True,
           running=[(Output("size-run", "disabled"), True, False),
                    (Output("size-cancel", "disabled"), False, True)],
@@ -195,7 +197,7 @@ def on_size_job(set_progress, token):
     raw = cache.pop(f"size-input-{token}") if cache is not None else None
     if raw is None:
         return no_update, no_update, no_update, V.error_box("the size check's input expired; "
-                                                            "run it again")
+                                                            "run it again"), no_update
     job = pickle.loads(raw)         # written by this server for this job only
     fit = job["fit"]
 
@@ -206,13 +208,14 @@ def on_size_job(set_progress, token):
     fig = F.size_figure(res.frame, 1.0 - res.level, res.done, fit.nobs)
     data = {"frame": res.frame.to_dict("records"), "notes": res.notes, "focus": res.focus,
             "response": fit.response}
-    return fig, V.size_records(res.frame), data, html.Ul([html.Li(n) for n in res.notes])
+    return fig, V.size_records(res.frame), data, html.Ul([html.Li(n) for n in res.notes]), {}
 
 
 @callback(Output("download", "data", allow_duplicate=True),
           Input({"type": "export-size", "fmt": ALL}, "n_clicks"), State("size-data", "data"),
-          prevent_initial_call=True)
-def on_size_export(clicks, data):
+          State("fit-key", "data"), State("session", "data"), prevent_initial_call=True)
+def on_size_export(clicks, data, fkey=None, session=None):
+    from ..engine.io.provenance import provenance
     from ..engine.io.tables import render
     trig = ctx.triggered_id
     if not isinstance(trig, dict) or not any(c for c in clicks or [] if c):
@@ -224,9 +227,12 @@ def on_size_export(clicks, data):
     frame = pd.DataFrame(data["frame"])[["estimator", "reference", "nominal", "rejection_rate",
                                          "ci_low", "ci_high", "size_adjusted_critical_value",
                                          "typical_critical_value", "replications"]]
+    model = stored(session, fkey)
     text = render(frame, fmt, index=False,
                   caption=f"{data.get('response')}: size of each nominal test of "
-                          f"{data.get('focus')} = 0 at this sample", notes=data.get("notes"))
+                          f"{data.get('focus')} = 0 at this sample",
+                  notes=([engine.model_line(model)] if model is not None else [])
+                  + list(data.get("notes") or []), stamp=provenance(model).lines())
     ext = {"csv": "csv", "markdown": "md", "latex": "tex"}.get(fmt, "txt")
     return {"content": text, "filename": f"lagwise_size_check.{ext}"}
 
@@ -243,7 +249,8 @@ def _estimator_options(model) -> list[dict]:
         if key in seen:
             continue
         seen.add(key)
-        out.append({"label": est.label, "value": key, "axis": est.family.axis is not None})
+        out.append({"label": est.label, "value": key, "title": est.label,
+                    "axis": est.family.axis is not None})
     return out
 
 
@@ -298,7 +305,7 @@ def memo_table(session, specs, est_values, show, level):
         ests[est.label] = est
     if not fits or not ests:
         raise engine.SpecificationError("add a specification and choose at least one estimator")
-    return engine.robustness_table(fits, ests, show=show, level=level)
+    return engine.robustness_table(fits, ests, beneath=show, level=level)
 
 
 @callback(Output("memo-preview", "children"), Input("memo-specs", "data"),

@@ -3,16 +3,14 @@ table rows (numbers for sorting, text for display), and the HTML report. No Dash
 
 from __future__ import annotations
 
-import html as _html
 import math
 
 import numpy as np
 import pandas as pd
 from dash import html
 
-from ..engine.io.tables import render
-from ..engine.kinds import model_line
-from ..engine.inference.sweep import times
+from ..engine.covariance.bandwidth import bandwidth_text, lags_text
+from ..engine.io.tables import p_text
 
 #: Transform pickers show these titles (engine names are the values).
 TRANSFORM_TITLES = {"lag": "lag p", "lead": "lead p", "difference": "difference", "log": "log",
@@ -38,20 +36,19 @@ def fmt(x, digits=4):
 
 
 def fmt_p(p, mc_error: float | None = None):
-    """p-values: three decimals, '<0.001' below that; '~' marks a simulated law's value."""
-    if p is None or not math.isfinite(p):
-        return ""
-    text = "<0.001" if p < 0.001 else f"{p:.3f}"
-    return text
+    """p-values as everywhere: three decimals, "< 0.001" below that (never scientific)."""
+    return p_text(p)
 
 
 def _num(x):
     return float(x) if x is not None and np.isfinite(x) else None
 
 
-def column(field, name, text=True, left=False, width=None, tooltip=None):
-    """A grid column: sorted by the number in `field`, shown as the text in `field_txt`."""
-    out = {"field": field, "headerName": name, "minWidth": 80}
+def column(field, name, text=True, left=False, width=None, tooltip=None, wrap=False):
+    """A grid column: sorted by the number in `field`, shown as the text in `field_txt`. Every
+    header names itself on hover; a text column shows its cell's full text on hover (cells
+    too narrow for it end in an ellipsis), or wraps (`wrap`: long sentences)."""
+    out = {"field": field, "headerName": name, "minWidth": 80, "headerTooltip": name}
     if text:
         out["valueFormatter"] = {"function": f"params.data.{field}_txt"}
         out["type"] = "rightAligned"
@@ -59,8 +56,12 @@ def column(field, name, text=True, left=False, width=None, tooltip=None):
         out["cellStyle"] = {"textAlign": "left"}
     if width:
         out["minWidth"] = width
-    if tooltip:
-        out["tooltipField"] = tooltip
+    if tooltip or not text:
+        out["tooltipField"] = tooltip or field
+    if wrap:
+        out.update({"wrapText": True, "autoHeight": True,
+                    "cellStyle": {"textAlign": "left", "lineHeight": "1.35",
+                                  "paddingTop": "4px", "paddingBottom": "4px"}})
     return out
 
 
@@ -78,8 +79,9 @@ COMPARE_COLUMNS = [column("estimator", "estimator", text=False, left=True, width
                    column("law", "law", text=False, width=110)]
 DIAG_COLUMNS = [column("test", "test", text=False, left=True, width=190),
                 column("statistic", "statistic"), column("df", "df", text=False),
-                column("p_value", "p"), column("null", "null hypothesis", text=False, width=200),
-                column("method", "method", text=False, width=220)]
+                column("p_value", "p"),
+                column("null", "null hypothesis", text=False, width=200, wrap=True),
+                column("method", "method", text=False, width=220, wrap=True)]
 FIRST_STAGE_COLUMNS = [column("endogenous", "endogenous", text=False, left=True, width=150),
                        column("robust_f", "F (chosen S)"), column("robust_p", "p"),
                        column("homoskedastic_f", "F (homoskedastic)"),
@@ -87,10 +89,10 @@ FIRST_STAGE_COLUMNS = [column("endogenous", "endogenous", text=False, left=True,
 SPEC_COLUMNS = [column("test", "test", text=False, left=True, width=220),
                 column("statistic", "statistic"), column("df", "df", text=False),
                 column("p_value", "p"), column("about", "what it uses", text=False, left=True,
-                                               width=260)]
+                                               width=260, wrap=True)]
 PERSIST_COLUMNS = [column("quantity", "quantity", text=False, left=True, width=230),
                    column("value", "value", width=90),
-                   column("detail", "detail", text=False, left=True, width=330)]
+                   column("detail", "detail", text=False, left=True, width=330, wrap=True)]
 SIZE_COLUMNS = [column("estimator", "estimator", text=False, left=True, width=290),
                 column("rejection_rate", "rejection rate"),
                 column("interval", "Monte Carlo 95%", text=False, width=130),
@@ -149,7 +151,8 @@ def comparison_records(comp: pd.DataFrame, term: str, current_rejects: bool | No
              "differs": bool(ok and current_rejects is not None and r.rejects is not None
                              and bool(r.rejects) != current_rejects)},
             {"estimate": (r.estimate, fmt(r.estimate)),
-             "bandwidth": (r.bandwidth, fmt(r.bandwidth, 3) if ok else ""),
+             "bandwidth": (r.bandwidth, bandwidth_text(r.bandwidth)
+                           if ok and np.isfinite(r.bandwidth) else ""),
              "lags": (r.lags, fmt(int(r.lags)) if ok and np.isfinite(r.lags) else ""),
              "std_error": (r.std_error, fmt(r.std_error)), "t_stat": (r.t_stat, fmt(r.t_stat, 3)),
              "p_value": (r.p_value, fmt_p(r.p_value))}))
@@ -232,8 +235,8 @@ def tuning_text(res, model) -> str:
     lr = res.long_run
     if lr.bandwidth is not None:
         span = lr.span or model.nobs
-        text = (f"b = {lr.bandwidth:.4g} · {lr.lags} lags used · "
-                + (f"b/T_p = {lr.bandwidth / span:.3g} ({span} periods)" if lr.span else
+        text = (f"b = {bandwidth_text(lr.bandwidth)} · {lags_text(lr.lags)} used · "
+                + (f"b/T_p = {lr.bandwidth / span:.3g} ({span:,} periods)" if lr.span else
                    f"b/T = {lr.bandwidth / span:.3g}"))
         if lr.how:
             text += f" · {lr.how}"
@@ -248,39 +251,69 @@ def shortfall_note(res, model) -> str | None:
     return lags_short_of_horizon(model, res.long_run)
 
 
-def headline(res, term: str, flip_line: str, rule_title: str | None):
-    row = res.table.loc[term]
-    level = res.level
-    rejects = bool(row.p_value < 1 - level) if np.isfinite(row.p_value) else None
-    words = {True: "beta = 0 is rejected", False: "beta = 0 is not rejected",
-             None: "no test (standard error not available)"}[rejects]
-    choice = res.describe()
-    if rule_title:
-        choice = f"value chosen by {rule_title}: " + choice
-    mc = res.law.mc_error(level)
-    law_note = "" if mc is None else \
-        f" (simulated critical values, Monte Carlo s.e. about {mc:.3f})"
-    return rejects, [
-        html.Div([html.Span(term, className="lw-hl-term"),
-                  html.Span(f"estimate {fmt(row.estimate)}", className="lw-hl-num"),
-                  html.Span(f"SE {fmt(row.std_error)}", className="lw-hl-num"),
-                  html.Span(f"t {fmt(row.t_stat, 3)}", className="lw-hl-num"),
-                  html.Span(f"p {fmt_p(row.p_value)}", className="lw-hl-num")],
-                 className="lw-hl-row"),
-        html.Div(f"At {1 - level:.0%}: {words} under {choice}{law_note}.",
-                 className="lw-hl-verdict"),
-        html.Div(flip_line, className="lw-hl-flip")]
+def _runs(mask: np.ndarray, values: np.ndarray) -> list[tuple[float, float]]:
+    """(first, last) value of each run of True."""
+    out, start = [], None
+    for i, m in enumerate(list(mask) + [False]):
+        if m and start is None:
+            start = i
+        elif not m and start is not None:
+            out.append((float(values[start]), float(values[i - 1])))
+            start = None
+    return out
 
 
-def flip_line(flip) -> str:
-    if flip is None or flip.rejects_at_start is None:
-        return ""
-    what = "rejection" if flip.rejects_at_start else "non-rejection"
-    if not flip.changes:
-        return (f"The {what} holds for every {flip.symbol} from {flip.values[0]:g} to "
-                f"{flip.values[-1]:g} ({flip.curve}).")
-    return (f"The {what} holds for {flip.symbol} <= {flip.holds_up_to:g} ({flip.curve}); "
-            f"the conclusion changes {times(len(flip.changes))} along the axis.")
+def _ranges_text(runs, values, symbol) -> str:
+    first, last = float(values[0]), float(values[-1])
+    parts = []
+    for a, b in runs:
+        if a == first and b == last:
+            parts.append(f"every {symbol}")
+        elif a == b:
+            parts.append(f"{symbol} = {a:g}")
+        elif a == first:
+            parts.append(f"{symbol} ≤ {b:g}")
+        elif b == last:
+            parts.append(f"{symbol} ≥ {a:g}")
+        else:
+            parts.append(f"{symbol} from {a:g} to {b:g}")
+    return " and ".join(parts)
+
+
+def conclusion_summary(sweep, states: np.ndarray, level: float) -> str:
+    """One sentence over the strips: where every curve rejects, where none does, and how many
+    changes of conclusion there are in all (states: curves x values, 1 / 0 / -1)."""
+    values, sym = sweep.values, sweep.axis.symbol
+    n = states.shape[0]
+    avail = states >= 0
+    some = avail.any(axis=0)
+    every = some & np.all((states == 1) | ~avail, axis=0)
+    none_ = some & np.all((states == 0) | ~avail, axis=0)
+    changes = 0
+    for row in states:
+        seen = row[row >= 0]
+        changes += int((np.diff(seen) != 0).sum())
+    pct = f"{1 - level:.0%}"
+    who = "the curve" if n == 1 else f"all {n} curves"
+    if not some.any():
+        return "No curve has a usable standard error along the axis."
+    if every[some].all():
+        return f"beta = 0 is rejected at {pct} by {who} at every {sym} shown."
+    if none_[some].all():
+        return f"beta = 0 is not rejected at {pct} by {who} at any {sym} shown."
+    parts = []
+    if every.any():
+        parts.append(f"rejected by {who} for {_ranges_text(_runs(every, values), values, sym)}")
+    if none_.any():
+        parts.append(f"by none for {_ranges_text(_runs(none_, values), values, sym)}")
+    mixed = some & ~every & ~none_
+    if mixed.any() and n > 1:
+        parts.append("by some of them elsewhere" if parts else
+                     f"rejected by some curves and not others for "
+                     f"{_ranges_text(_runs(mixed, values), values, sym)}")
+    text = f"beta = 0 at {pct}: " + "; ".join(parts)
+    return text + (f" ({changes} change{'s' if changes != 1 else ''} of conclusion in all; "
+                   "the full list below)." if changes else ".")
 
 
 def flagged_points_note(sweep) -> list:
@@ -300,34 +333,6 @@ def error_box(text: str):
 
 def ok_box(text: str):
     return html.Div(text, className="lw-ok")
-
-
-# --------------------------------------------------------------------------- report
-
-def report_html(model, figs, tables: list[tuple[str, pd.DataFrame]], caption: str,
-                conventions: str) -> str:
-    parts = ["<!doctype html><html><head><meta charset='utf-8'><title>Lagwise report</title>",
-             "<style>body{font-family:Liberation Sans,Arial,sans-serif;color:#1d2733;"
-             "max-width:1050px;margin:24px auto;padding:0 16px}table{border-collapse:collapse;"
-             "font-size:13px;margin:8px 0 20px}td,th{padding:4px 8px;border-bottom:1px solid "
-             "#e7e4dc;text-align:right}th{background:#f1efe8}h1{color:#0e6e64}"
-             "td:first-child,th:first-child,td:last-child{text-align:left}"
-             ".note{color:#6b7480;font-size:13px}</style></head><body>",
-             "<h1>Lagwise report</h1>"]
-    if model is not None:
-        parts.append(f"<p>{_html.escape(model_line(model))}.</p>")
-        if model.describe_method():
-            parts.append(f"<p>{_html.escape(model.describe_method())}</p>")
-    parts.append(f"<p><strong>Current choice:</strong> {_html.escape(caption)}</p>")
-    parts.append(f"<p class='note'>{_html.escape(conventions)}</p>")
-    for title, frame in tables:
-        parts.append(f"<h2>{_html.escape(title)}</h2>" + render(frame, "html", index=False))
-    for i, fig in enumerate(figs):
-        parts.append(fig.to_html(full_html=False, include_plotlyjs="inline" if i == 0 else False))
-    parts.append("<p class='note'>Standard errors rest on large-sample approximations unless a "
-                 "t, F or fixed-b reference law is stated; kernel results depend on the bandwidth "
-                 "b shown. Generated by Lagwise.</p></body></html>")
-    return "\n".join(parts)
 
 
 # --------------------------------------------------------------------------- predictive

@@ -20,6 +20,7 @@ import numpy as np
 import pandas as pd
 
 from .data.columns import INTERCEPT
+from .data.losses import losses
 from .data.table import LoadReport, Table
 from .errors import SpecificationError
 from .models.base import MomentModel
@@ -106,62 +107,74 @@ def _sample_text(model) -> str:
     return f"{first} to {last}" if first is not None else ""
 
 
-def _lost(model) -> str:
-    s = model.sample
-    parts = []
-    if s.dropped_missing:
-        parts.append(f"{s.dropped_missing} with missing values")
-    if s.dropped_window:
-        parts.append(f"{s.dropped_window} outside the window")
-    return f" ({', '.join(parts)} left out)" if parts else ""
+def _lost(model, columns=()) -> str:
+    """What was lost between the data and the fit, in words (empty when nothing was)."""
+    text = losses(model.sample, model.table, columns, model.response, model.horizon).text()
+    return f" ({text})" if text else ""
 
 
-def _r2(model) -> str:
+def _r2(model, prefix: str = "") -> str:
     r2 = model.r_squared
-    return f"R² {r2:.3f}" if np.isfinite(r2) else ""
+    return f"{prefix}R² = {r2:.3f}" if np.isfinite(r2) else ""
 
 
 def _overlap(model) -> str:
     h = model.horizon
-    return f"overlapping {h}-period response (h = {h})" if h and h > 1 else ""
+    return f"overlap h = {h}" if h and h > 1 else ""
 
 
 def _join(*parts) -> str:
     return "; ".join(p for p in parts if p)
 
 
-def series_line(model) -> str:
+def _regression(model, absorbed: bool = False) -> str:
+    """"y on x1, x2 and an intercept" (the response and the regressors)."""
     slopes = [t for t in model.terms if t != INTERCEPT]
-    h = _overlap(model)
-    return _join(f"{model.response} on {', '.join(slopes) or 'a constant'}"
-                 + (" with intercept" if INTERCEPT in model.terms and slopes else ""),
-                 _sample_text(model), f"T = {model.nobs}{_lost(model)}", h, _r2(model))
+    if not slopes:
+        return f"{model.response} on a constant"
+    tail = " and an intercept" if INTERCEPT in model.terms else \
+        (" (intercept absorbed by the effects)" if absorbed else " (no intercept)")
+    return f"{model.response} on {', '.join(slopes)}{tail}"
+
+
+def _used_columns(model) -> list[str]:
+    return [model.response] + [t for t in model.terms if t != INTERCEPT]
+
+
+def series_line(model) -> str:
+    return _join(_regression(model), _sample_text(model),
+                 f"T = {model.nobs:,}{_lost(model, _used_columns(model))}", _overlap(model),
+                 _r2(model))
+
+
+#: How an IV fit's coefficients were estimated, in a word or two.
+IV_METHODS = {"2sls": "2SLS", "two-step": "two-step GMM", "iterated": "iterated GMM",
+              "cue": "continuously updated GMM"}
 
 
 def iv_line(model) -> str:
     core = model.core
-    slopes = [t for t in model.terms if t != INTERCEPT]
-    return _join(f"{model.response} on {', '.join(slopes) or 'a constant'}",
-                 f"{', '.join(core.endogenous)} instrumented by {', '.join(core.excluded)}",
-                 model.method if model.method != "2sls" else "2SLS",
-                 _sample_text(model), f"T = {model.nobs}{_lost(model)}",
-                 _overlap(model))
+    columns = _used_columns(model) + list(core.excluded)
+    return _join(_regression(model),
+                 f"{', '.join(core.endogenous)} instrumented by {', '.join(core.excluded)}"
+                 if core.endogenous else "", IV_METHODS.get(model.method, model.method),
+                 _sample_text(model), f"T = {model.nobs:,}{_lost(model, columns)}",
+                 _overlap(model), _r2(model))
 
 
 def panel_line(model) -> str:
     p = model.panel
-    slopes = [t for t in model.terms if t != INTERCEPT]
-    effects = (" + ".join(p.effects) + " effects") if p.effects else "pooled"
-    return _join(f"{model.response} on {', '.join(slopes) or 'a constant'}",
-                 f"{p.n_entities:,} {p.entity} x {p.n_periods:,} {p.time}", effects,
-                 _sample_text(model), f"N = {model.nobs:,}{_lost(model)}",
-                 ("within " if p.effects else "") + _r2(model))
+    effects = (" and ".join(p.effects) + " fixed effects") if p.effects else \
+        "pooled (no fixed effects)"
+    return _join(_regression(model, absorbed=bool(p.effects)),
+                 f"{p.n_entities:,} entities x {p.n_periods:,} periods ({p.entity}, {p.time})",
+                 effects, _sample_text(model), f"N = {model.nobs:,}{_lost(model)}",
+                 _r2(model, "within " if p.effects else ""))
 
 
 def fama_macbeth_line(model) -> str:
-    return _join(f"Fama-MacBeth: {model.response} on "
-                 f"{', '.join(t for t in model.terms if t != INTERCEPT)}",
-                 f"{model.nobs} periods ({_sample_text(model)})")
+    return _join(f"Fama-MacBeth: {_regression(model)}",
+                 f"{model.nobs:,} periods ({_sample_text(model)})")
 
 
 def series_model_line(model) -> str:

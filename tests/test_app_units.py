@@ -43,35 +43,99 @@ def test_sensitivity_figure_traces_axes_and_marker(fit, sweep):
     assert lines["Bartlett"].line.width > lines["Parzen"].line.width      # current curve
     assert lines["Bartlett"].line.color == lagwise.get_kernel("bartlett").color
     assert fig.layout.shapes[0].x0 == 13.0                                 # patched by sliders
-    hlines = sorted(s.y0 for s in fig.layout.shapes[1:])
-    assert hlines == pytest.approx([-1.959964, 1.959964], abs=1e-5)
+    crit = [t for t in fig.data if (t.legendgroup or "") == "critical"]
+    assert sorted(t.y[0] for t in crit) == pytest.approx([-1.959964, 1.959964], abs=1e-5)
+    assert crit[0].name == "±1.96: normal critical value"
     mark = [t for t in fig.data if t.name == "Andrews (1991)"][0]
     assert mark.x[0] == 20.5
     assert mark.y[0] == pytest.approx(np.interp(20.5, sweep.bandwidths, sweep.t_stat[0, :, 1]))
-    label = [a for a in fig.layout.annotations if a.text == "Andrews (1991)"][0]
-    assert (label.x, label.y) == (mark.x[0], mark.y[0])
+    assert mark.hovertemplate.startswith("Andrews (1991)")
+    label = [a for a in fig.layout.annotations if a.text == "Andrews"][0]   # year on hover
+    assert label.hovertext == "Andrews (1991)"
+    # the label sits in the strip above the plotting area, its leader pointing at the rule's b
+    assert (label.x, label.yref, label.y) == (20.5, "paper", 1) and label.ay < 0
+    assert all(a.yref == "paper" and a.y >= 1 for a in fig.layout.annotations)
     assert "bandwidth b" in fig.layout.xaxis.title.text
+    assert list(fig.layout.xaxis.range) == [1.0, 40.0]     # label fractions = plot fractions
 
 
-def test_rule_labels_landing_close_together_are_stacked(fit, sweep):
-    """Rules whose labels would overlap get different heights, and labels at one height never
-    overlap (by the figure's own width estimate); each label's leader line starts at its
-    marker."""
-    marks = [(0, "rule A", 5.0), (0, "rule B", 6.0), (0, "rule C", 7.0), (0, "rule D", 35.0),
-             (1, "a much longer rule name", 33.0)]
+def test_rule_labels_sit_in_a_strip_and_never_overlap(fit, sweep):
+    """Rule labels live in a strip above the plotting area (no annotation inside it); rules
+    landing closer than a label's width share one label with a leader to each; labels of one
+    row never overlap by the figure's own width estimate; each leader points at its rule's
+    value, where a diamond sits on the curve with the full wording on hover."""
+    marks = [(0, "rule A", 5.0, "rule A in full"), (0, "rule B", 5.5), (0, "rule C", 6.0),
+             (0, "rule D", 35.0), (1, "a much longer rule name", 20.0)]
     fig = F.sensitivity_figure(sweep, "rate_capacity", "t", 0.95, "normal", 13.0, 0, marks)
-    labels = [a for a in fig.layout.annotations if a.text.startswith(("rule", "a much"))]
-    assert len(labels) == 5
-    heights = {a.text: a.ay for a in labels}
-    assert len({heights["rule A"], heights["rule B"], heights["rule C"]}) == 3
+    notes = [a for a in fig.layout.annotations if a.name == "rule"]
+    assert len(notes) == 5                                   # one leader per rule
+    labels = {(a.text, a.ax, a.ay) for a in notes}
+    assert {t for t, _, _ in labels} == {"rule A +2", "rule D", "a much longer rule name"}
+    titles = {m[1] for m in marks}
     span = sweep.values[-1] - sweep.values[0]
-    for a in labels:
-        for b in labels:
-            if a.text < b.text and a.ay == b.ay:
-                gap = abs(a.x - b.x) / span * F.PLOT_PX
-                assert gap >= (len(a.text) + len(b.text)) * F.CHAR_PX / 2 + 10
-        marker = [t for t in fig.data if t.name == a.text][0]
-        assert (a.x, a.y) == (marker.x[0], marker.y[0]) and a.ax == a.x
+    for a in notes:
+        assert a.yref == "paper" and a.y == 1 and a.ay < 0 and a.axref == "x"
+        marker = [t for t in fig.data if t.name in titles and t.x[0] == a.x]
+        assert len(marker) == 1
+    for ta, xa, ya in labels:
+        for tb, xb, yb in labels:
+            if ta < tb and ya == yb:
+                gap = abs(xa - xb) / span * F.PLOT_PX
+                assert gap >= (len(ta) + len(tb)) * F.CHAR_PX / 2 + 10
+    full = [a.hovertext for a in notes if a.text.startswith("rule A")][0]
+    assert F.strip_label(["Andrews (1991)", "LLSW (2018)"]) == "Andrews, LLSW"
+    assert full.startswith("rule A in full<br>rule B")
+    assert fig.layout.margin.t >= F.TITLE_PX + F.STRIP_ROW_PX
+
+
+def test_non_psd_kernels_start_hidden_and_points_beyond_are_marked(fit):
+    """Truncated and Tukey-Hanning curves start as legend-only (unless chosen); the range
+    follows the curves shown; points beyond it are triangles at the edge, in the curve's
+    legend group."""
+    sw = fit.sweep(kernels=["bartlett", "truncated", "tukey_hanning"],
+                   bandwidths=np.arange(1, 121.0))
+    fig = F.sensitivity_figure(sw, "rate_capacity", "t", 0.95, "normal", 10, 0)
+    lines = {t.name: t for t in fig.data if t.mode == "lines" and t.legendgroup}
+    assert lines["Bartlett"].visible is True
+    assert lines["Truncated (not PSD)"].visible == "legendonly"
+    assert lines["Tukey-Hanning (not PSD)"].visible == "legendonly"
+    lo, hi = fig.layout.yaxis.range
+    bart = sw.t_stat[0, :, 1]
+    assert lo <= np.percentile(bart, 1) and hi >= np.percentile(bart, 99)
+    out = (bart < lo) | (bart > hi)
+    assert sum(len(t.x) for t in fig.data if t.name == "Bartlett: beyond the chart") == \
+        out.sum()
+    trunc = sw.t_stat[1, :, 1]
+    beyond = np.isfinite(trunc) & ((trunc > hi) | (trunc < lo))
+    assert beyond.any()                   # the truncated kernel leaves the Bartlett range
+    edges = [t for t in fig.data if t.name == "Truncated (not PSD): beyond the chart"]
+    assert sum(len(t.x) for t in edges) == beyond.sum()
+    assert all(t.legendgroup == lines["Truncated (not PSD)"].legendgroup
+               and t.visible == "legendonly" for t in edges)
+    assert all(set(np.round(t.y, 12)) <= {round(lo, 12), round(hi, 12)} for t in edges)
+    chosen = F.sensitivity_figure(sw, "rate_capacity", "t", 0.95, "normal", 10, 1)
+    assert [t for t in chosen.data if t.name == "Truncated (not PSD)"][0].visible is True
+
+
+def test_conclusion_strips_and_their_summary(fit, sweep):
+    """One strip per curve shaded by the conclusion (as significance_flip decides), and one
+    sentence over them."""
+    states = F.conclusion_states(sweep, "rate_capacity", 0.95, "normal")
+    for c in range(2):
+        flip = lagwise.significance_flip(fit, "rate_capacity", sweep_result=sweep, curve=c,
+                                         reference="normal")
+        np.testing.assert_array_equal(states[c] == 1, flip.rejects & flip.valid)
+    fig = F.flip_strip_figure(sweep, "rate_capacity", 0.95, "normal", 13.0, 0)
+    heat = fig.data[0]
+    np.testing.assert_array_equal(np.asarray(heat.z)[::-1], states)
+    assert list(heat.y)[::-1] == ["Bartlett", "Parzen"]
+    assert fig.layout.shapes[0].x0 == 13.0
+    text = V.conclusion_summary(sweep, states, 0.95)
+    assert text.startswith("beta = 0 at 5%: rejected by all 2 curves for b ≤ ")
+    assert "by none for b ≥ " in text and "changes of conclusion in all" in text
+    # the ranges in the sentence are the engine's
+    every = np.flatnonzero((states == 1).all(axis=0))
+    assert f"b ≤ {sweep.values[every[-1]]:g}" in text
 
 
 def test_sensitivity_figure_fixed_b_curve_and_modes(fit, sweep):
@@ -105,10 +169,10 @@ def test_flagged_points_are_hollow_and_keep_the_axis(fit):
     sw = fit.sweep(kernels=["truncated"], bandwidths=np.arange(1, 200.0))
     assert (sw.status[0] == "repaired").any()
     fig = F.sensitivity_figure(sw, "rate_capacity", "t", 0.95, "normal", 10, 0)
-    flagged = [t for t in fig.data if t.name == "Truncated: flagged points"][0]
+    flagged = [t for t in fig.data if t.name == "Truncated (not PSD): flagged points"][0]
     assert flagged.marker.symbol == "circle-open"
     assert "eigenvalue repair" in flagged.customdata[0]
-    line = [t for t in fig.data if t.name == "Truncated"][0]
+    line = [t for t in fig.data if t.name == "Truncated (not PSD)"][0]
     assert np.isnan(np.asarray(line.y, dtype=float)[sw.status[0] != ""]).all()
     ok = sw.t_stat[0, sw.status[0] == "", 1]
     lo, hi = fig.layout.yaxis.range
@@ -144,7 +208,7 @@ def test_coefficient_records_are_the_engine_numbers(fit):
 
 
 def test_p_values_are_never_printed_to_silly_precision():
-    assert V.fmt_p(3.6e-279) == "<0.001" and V.fmt_p(0.0123) == "0.012"
+    assert V.fmt_p(3.6e-279) == "< 0.001" and V.fmt_p(0.0123) == "0.012"
     assert V.fmt_p(float("nan")) == ""
 
 
@@ -204,15 +268,6 @@ def test_store_counts_a_fits_caches(fit):
     fresh.moments.ensure(fresh.nobs - 1)
     store.refresh(s, "fit")
     assert store.nbytes >= before + fresh.moments.nbytes
-
-
-def test_report_html_is_self_contained(fit):
-    res = fit.infer(lagwise.estimator("hc1"))
-    fig = F.residual_figure(fit)
-    html = V.report_html(fit, [fig], [("Coefficients", res.table.reset_index())],
-                         res.describe(), "95% intervals")
-    assert html.startswith("<!doctype html>") and "<table" in html and "HC1" in html
-    assert "src=\"http" not in html and len(html) > 1_000_000      # plotly.js inlined
 
 
 def test_host_check_and_security_headers():

@@ -3,6 +3,7 @@
 Skipped locally without chromium; CI sets LAGWISE_REQUIRE_BROWSER=1 so they fail instead."""
 
 import json
+import math
 from pathlib import Path
 
 import numpy as np
@@ -11,6 +12,7 @@ from playwright.sync_api import Page, expect
 
 import lagwise
 from lagwise.app.views import fmt
+from lagwise.engine.covariance.bandwidth import bandwidth_text
 from lagwise._files import demo_file
 
 pytestmark = pytest.mark.browser
@@ -70,6 +72,9 @@ def test_upload_model_slider_rule(page: Page, live_server):
         engine_se("exret_36m", ["rate_capacity"], "rate_capacity", kernel="bartlett",
                   bandwidth="andrews"), timeout=20_000)
     expect(page.locator("#headline")).to_contain_text("value chosen by Andrews (1991)")
+    lags = math.ceil(b) - 1
+    expect(page.locator("#headline")).to_contain_text(
+        f"b = {bandwidth_text(b)} ({lags} lag{'s' if lags != 1 else ''})")
     # keyboard on the slider: two steps up, now a value set by hand
     landed = int(round(b))
     thumb.focus()
@@ -149,7 +154,9 @@ def test_exports_chart_and_table(page: Page, live_server, tmp_path):
     shown = lagwise.fit_ols(lagwise.load_table(DEMO), "exret_12m",
                             ["rate_capacity", "credit_spread"]).params["rate_capacity"]
     assert float(row.split(",")[1]) == pytest.approx(shown, rel=1e-8)   # a number, not text
-    assert csv_text.startswith("# ") and "reference law" in csv_text.splitlines()[1]
+    head = [ln for ln in csv_text.splitlines() if ln.startswith("# ")]
+    assert head[0].startswith("# Made by Lagwise") and "SHA-256" in head[1]
+    assert any("reference law" in ln for ln in head)
     with page.expect_download(timeout=30_000) as info:
         card(page, "compare-table").locator("button", has_text="CSV").click()
     csv_text = Path(info.value.path()).read_text()
@@ -350,7 +357,7 @@ def test_panel_demo_in_the_page(page: Page, live_server, tmp_path):
     moving the slider matches the engine, effects refit, and panel diagnostics are shown."""
     errors = open_app(page, live_server)
     page.locator("#load-demo-panel").click()
-    expect(page.locator("#upload-message")).to_contain_text("loaded the demo data",
+    expect(page.locator("#upload-message")).to_contain_text("loaded the panel demo (31,348 rows",
                                                             timeout=20_000)
     expect(page.locator("#fit-message")).to_contain_text("240 entities x 156 periods",
                                                          timeout=30_000)
@@ -610,10 +617,10 @@ def test_a_file_near_the_limit_shows_progress_then_its_results(page: Page, live_
     expect(strip.locator("progress").first).to_be_visible()
     expect(strip).to_contain_text(re.compile(r"\d+\.\d s"))
     expect(strip).to_have_class(re.compile("lw-hidden"), timeout=120_000)
-    expect(page.locator("#upload-message")).to_contain_text("700000 rows")
+    expect(page.locator("#upload-message")).to_contain_text("700,000 rows")
     expect(cells(page, "coef-table", "term")).to_have_text(["intercept", "x1"],
                                                            timeout=30_000)
-    expect(page.locator("#fit-message")).to_contain_text("T = 700000")
+    expect(page.locator("#fit-message")).to_contain_text("T = 700,000")
     from lagwise.app.work import IDLE_POLLS, POLL_MS
     time.sleep(1.5 * IDLE_POLLS * POLL_MS / 1000)     # the poll's idle grace
     before = len(polls)

@@ -1,5 +1,6 @@
 """CLI comparison on the demo data and the table exports."""
 
+import re
 import subprocess
 import sys
 
@@ -44,7 +45,7 @@ def test_table_command_transform_and_errors(capsys):
     rc = main(["table", DEMO, "--response", "exret_1m, sum of next 12", "--regressors",
                "rate_capacity", "--transform", "sum-next:exret_1m:12"])
     out = capsys.readouterr().out
-    assert rc == 0 and "overlapping 12-period response" in out
+    assert rc == 0 and "overlap h = 12" in out and "T = 408 (12 lost to leads and lags)" in out
     rc = main(["table", DEMO, "--response", "exret_1m", "--regressors", "nope"])
     assert rc == 2
     assert "no column named 'nope'" in capsys.readouterr().err
@@ -83,8 +84,19 @@ def _pdflatex():
     if exe is None:
         if os.environ.get("LAGWISE_REQUIRE_LATEX") == "1":
             pytest.fail("pdflatex not found; LAGWISE_REQUIRE_LATEX=1 makes this a failure")
-        pytest.skip("pdflatex not installed (.ci/run installs texlive-latex-base)")
+        pytest.skip("pdflatex not installed (.ci/run installs texlive-latex-base and "
+                    "texlive-latex-recommended)")
     return exe
+
+
+def latex_document(body: str) -> str:
+    """A document around exported LaTeX, loading exactly the packages the exports' own
+    "% needs \\usepackage{...}" comments name (so the comment is checked too)."""
+    needed = sorted(set(re.findall(r"^% needs \\usepackage\{(\w+)\}", body, re.M)))
+    return ("\\documentclass{article}\n\\usepackage[utf8]{inputenc}\n"
+            "\\usepackage[margin=1cm,landscape]{geometry}\n"
+            + "".join(f"\\usepackage{{{p}}}\n" for p in needed)
+            + "\\begin{document}\n" + body + "\n\\end{document}\n")
 
 
 def test_latex_exports_compile_with_awkward_text(tmp_path):
@@ -103,10 +115,11 @@ def test_latex_exports_compile_with_awkward_text(tmp_path):
                notes=res.notes),
         render(comp[["estimator", "std_error", "p_value", "reference", "note", "why"]], "latex",
                index=False)])
+    rules = [ln for ln in body.splitlines() if not ln.startswith("%")]
+    assert rules.count("\\toprule") == 3 and rules.count("\\bottomrule") == 3
+    assert "\\hline" not in body
     doc = tmp_path / "t.tex"
-    doc.write_text("\\documentclass{article}\n\\usepackage[utf8]{inputenc}\n"
-                   "\\usepackage[margin=1cm,landscape]{geometry}\n\\begin{document}\n"
-                   + body + "\n\\end{document}\n")
+    doc.write_text(latex_document(body))
     out = subprocess.run([exe, "-interaction=nonstopmode", "-halt-on-error", doc.name],
                          cwd=tmp_path, capture_output=True, text=True, timeout=120)
     assert out.returncode == 0, out.stdout[-2000:]

@@ -222,8 +222,8 @@ def test_cli_panel_command_on_the_cluster(client, frame, folder, tmp_path, capsy
                "--regressors", "x1,x2,x3", "--format", "csv", "--output",
                str(tmp_path / "mem.csv.out")])
     assert rc == 0
-    a = pd.read_csv(tmp_path / "dist.csv", skiprows=1)
-    b = pd.read_csv(tmp_path / "mem.csv.out", skiprows=1)
+    a = pd.read_csv(tmp_path / "dist.csv", comment="#")
+    b = pd.read_csv(tmp_path / "mem.csv.out", comment="#")
     b = b[b.estimator.isin(a.estimator)].reset_index(drop=True)
     assert len(a) >= 20 and list(a.estimator) == list(b.estimator)
     np.testing.assert_allclose(a.std_error, b.std_error, rtol=1e-9)

@@ -14,7 +14,7 @@ import statsmodels.api as sm
 import statsmodels.formula.api as smf
 
 import lagwise
-from tests.test_cli_export import _pdflatex
+from tests.test_cli_export import _pdflatex, latex_document
 
 DEMO = lagwise.demo_file()
 
@@ -140,7 +140,7 @@ def robustness(table):
     a = lagwise.fit("exret_12m ~ rate_capacity + credit_spread", table, horizon=12)
     b = lagwise.fit("exret_12m ~ rate_capacity", table, horizon=12)
     ests = {"HC1": lagwise.estimator("hc1"), "L = 12": lagwise.estimator("kernel", lags=12)}
-    return a, b, ests, lagwise.robustness_table({"both": a, "one": b}, ests, show="se")
+    return a, b, ests, lagwise.robustness_table({"both": a, "one": b}, ests, beneath="std_error")
 
 
 def test_robustness_table_content_cell_by_cell(robustness):
@@ -159,7 +159,7 @@ def test_robustness_table_content_cell_by_cell(robustness):
         assert grid[rows["observations"]][col] == str(fit.nobs)
     assert grid[rows["credit_spread"]][3] == ""                 # not in the second model
     assert any("(2) Bartlett, b = 13" in n for n in tab.notes)
-    assert "standard errors in parentheses" in tab.foot()[0]
+    assert tab.foot()[0].startswith("Beneath each estimate: its standard error")
 
 
 def test_robustness_table_outputs_parse_and_compile(robustness, tmp_path):
@@ -187,9 +187,9 @@ def test_robustness_table_outputs_parse_and_compile(robustness, tmp_path):
                                rtol=1e-12)
     exe = _pdflatex()
     doc = tmp_path / "r.tex"
-    doc.write_text("\\documentclass{article}\n\\usepackage[utf8]{inputenc}\n"
-                   "\\usepackage[margin=1cm,landscape]{geometry}\n\\begin{document}\n"
-                   + tab.to_latex(caption="Robustness: 12-month returns") + "\n\\end{document}\n")
+    tex = tab.to_latex(caption="Robustness: 12-month returns")
+    assert "\\toprule" in tex and "\\midrule" in tex and "\\bottomrule" in tex
+    doc.write_text(latex_document(tex))
     out = subprocess.run([exe, "-interaction=nonstopmode", "-halt-on-error", doc.name],
                          cwd=tmp_path, capture_output=True, text=True, timeout=120)
     assert out.returncode == 0, out.stdout[-2000:]

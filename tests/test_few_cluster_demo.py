@@ -57,7 +57,7 @@ def test_the_cli_shows_it(tmp_path, capsys):
                "--format", "csv", "--output", str(tmp_path / "out.csv")])
     assert rc == 0
     import pandas as pd
-    comp = pd.read_csv(tmp_path / "out.csv", skiprows=1)
+    comp = pd.read_csv(tmp_path / "out.csv", comment="#")
     sub = comp[comp.term == "subsidy"].set_index("estimator")
     assert bool(sub.loc["Clustered by region", "rejects"]) is True
     assert bool(sub.loc["Clustered by region, CR2, Bell-McCaffrey df", "rejects"]) is False

@@ -9,7 +9,7 @@ import pytest
 from scipy import stats
 
 import lagwise
-from lagwise.engine.models.iv_strength import partial_out as _partial_out, kleibergen_paap
+from lagwise.engine.models.iv_strength import RANK_F, partial_out as _partial_out, kleibergen_paap
 from tests.helpers import ar1
 
 
@@ -42,13 +42,13 @@ def test_gmm_sweep_equals_two_step_at_every_point():
 
 
 def test_strength_statistics_reduce_to_their_textbook_forms():
-    """One endogenous regressor: the KP rk Wald statistic is the robust first-stage Wald
+    """One endogenous regressor: the Kleibergen-Paap rank statistic is the robust first-stage Wald
     statistic, and with one instrument the effective F is that robust F. Two endogenous
     regressors with the homoskedastic covariance: rk / L is the Cragg-Donald minimum-eigenvalue
     statistic (derived in the test)."""
     df, zs = simulate(np.random.default_rng(3))
     fs = lagwise.fit_iv(df, "y", ["x"], ["x"], zs).first_stage("hc0")
-    assert fs.strength["Kleibergen-Paap rk Wald F"]["value"] == \
+    assert fs.strength[RANK_F]["value"] == \
         pytest.approx(fs.table.loc["x", "robust_f"], rel=1e-9)
     one = lagwise.fit_iv(df, "y", ["x"], ["x"], ["z1"]).first_stage("hc0")
     assert one.strength["effective F"]["value"] == pytest.approx(one.table.loc["x", "robust_f"],

@@ -85,7 +85,8 @@ def test_registered_kernel_reaches_the_app(with_daniell, fit):
     controls = estimator_controls("kernel")
     dropdown = [c for c in _walk(controls) if getattr(c, "id", None) ==
                 {"type": "est-param", "name": "kernel"}][0]
-    assert {"label": "Daniell", "value": "daniell"} in dropdown.options
+    assert {"label": "Daniell", "value": "daniell"} in [
+        {"label": o["label"], "value": o["value"]} for o in dropdown.options]
     store = Store()
     sid = store.open_session()
     old, cb.STORE = cb.STORE, store

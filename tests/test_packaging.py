@@ -61,3 +61,13 @@ def test_fresh_venv_imports_lagwise_not_engine_or_app(wheel, tmp_path):
     assert where.startswith(site)
     assert missing == "True True"
     assert float(slope) != 0.0
+    # the command line finds the bundled demo files after a normal install, and says its version
+    for args, check in ((["demo", "freight_index.csv"], lambda out: out.startswith(site)
+                         and Path(out).is_file()),
+                        (["--version"], lambda out: out == "lagwise " + (
+                            ROOT / "pyproject.toml").read_text().split('version = "')[1]
+                         .split('"')[0])):
+        res = subprocess.run([str(py), "-m", "lagwise.app.cli", *args], capture_output=True,
+                             text=True, cwd=tmp_path, timeout=120)
+        assert res.returncode == 0, res.stderr
+        assert check(res.stdout.strip()), (args, res.stdout)

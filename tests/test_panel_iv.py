@@ -16,6 +16,7 @@ import pandas as pd
 import pytest
 
 import lagwise
+from lagwise.engine.models.iv_strength import RANK_F
 from lagwise.engine.models.within import within
 
 pytest.importorskip("linearmodels")
@@ -126,9 +127,9 @@ def test_every_panel_estimator_strength_j_and_anderson_rubin_under_clustering():
     fs = fit.first_stage(est)
     assert fs.estimator == "Clustered by entity"
     assert fs.strength["effective F"]["value"] > 10
-    assert np.isfinite(fs.strength["Kleibergen-Paap rk Wald F"]["value"])
+    assert np.isfinite(fs.strength[RANK_F]["value"])
     # with one endogenous regressor the cluster-robust KP Wald F is the robust first-stage F
-    np.testing.assert_allclose(fs.strength["Kleibergen-Paap rk Wald F"]["value"],
+    np.testing.assert_allclose(fs.strength[RANK_F]["value"],
                                fs.table.loc["x", "robust_f"], rtol=1e-6)
     j = fit.j_test(est)
     assert j.df == 1 and "Clustered by entity" in j.s_from

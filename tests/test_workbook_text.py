@@ -75,7 +75,7 @@ def test_app_memo_workbook_stores_every_text_as_text():
     STORE.put(session, "fit:hostile", fit)
     specs = [{"key": "fit:hostile", "label": HOSTILE[0]}]
     ests = [json.dumps(lagwise.estimator("hc1").settings())]
-    table = studies.memo_table(session, specs, ests, "se", 0.95)
+    table = studies.memo_table(session, specs, ests, "std_error", 0.95)
     buf = io.BytesIO()
     table.to_excel(buf)
     assert_all_text(buf.getvalue(), HOSTILE)

@@ -62,11 +62,35 @@ class BandwidthChoice:
         return float(self.b)
 
 
+def bandwidth_text(b) -> str:
+    """A bandwidth with the digits that make the lag count ceil(b) - 1 follow from it: about
+    three significant digits, more where rounding would land on a whole number (34.0047 is
+    "34.005", not "34", which would mean 33 lags); a whole b as a whole number."""
+    b = float(b)
+    if not math.isfinite(b):
+        return str(b)
+    if b == int(b):
+        return str(int(b))
+    start = max(0, 2 - int(math.floor(math.log10(abs(b))))) if b else 0
+    for d in range(start, 13):
+        text = f"{b:.{d}f}"
+        text = text.rstrip("0").rstrip(".") if "." in text else text
+        shown = float(text)
+        if shown != int(shown) and math.ceil(shown) == math.ceil(b):
+            return text
+    return repr(b)
+
+
+def lags_text(lags) -> str:
+    """"1 lag", "39 lags"."""
+    return f"{lags} lag" + ("" if lags == 1 else "s")
+
+
 def rule_title(setting) -> str:
     """Words for a bandwidth setting in a label: 'Andrews (1991) bandwidth' or 'b = 12'."""
     if isinstance(setting, str):
         return f"{RULES[setting][0]} bandwidth"
-    return f"b = {float(setting):.4g}"
+    return f"b = {bandwidth_text(setting)}"
 
 
 def check_bandwidth_setting(value):
@@ -195,11 +219,11 @@ def choose(series: np.ndarray, constant: np.ndarray, kernel: Kernel, setting) ->
                          "bandwidth: the series is close to a unit root, and the bandwidth (and "
                          "any kernel estimate) is unreliable")
         shown = [f"{r:.2f}" for r, w in zip(rho, weights) if w > 0]
-        text = (f"Andrews (1991) AR(1) plug-in b = {b:.3g} from moment autocorrelations "
-                + ", ".join(shown) + (f" (|rho| capped at {RHO_CAP})" if capped else ""))
+        text = (f"Andrews (1991) AR(1) plug-in b = {bandwidth_text(b)} from moment "
+                "autocorrelations " + ", ".join(shown) + (f" (|rho| capped at {RHO_CAP})" if capped else ""))
     else:
         b = newey_west_1994(series, kernel, moment_weights(constant))
-        text = f"Newey-West (1994) plug-in b = {b:.3g}"
+        text = f"Newey-West (1994) plug-in b = {bandwidth_text(b)}"
     if not np.isfinite(b) or b <= 0:
         b = 0.0
         text += "; no autocorrelation detected: b = 0, lag 0 only"

@@ -191,7 +191,8 @@ def numeric_block(frame, cols, non_numeric, sample, what="column", ones: bool = 
                 f"{interior} rows inside the sample have missing values and were dropped; "
                 "the remaining rows are treated as consecutive periods by the lag-based "
                 "estimators")
-    info.notes.insert(0, f"{info.dropped_missing} rows with missing values dropped")
+    info.notes.insert(0, f"{info.dropped_missing} rows left out where a used column has no "
+                         "value (leads, lags and forward sums leave such rows at the ends)")
     index = index[ok]
     info.rows = rows[ok]
     kept = take_rows(values, idx)

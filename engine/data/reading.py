@@ -5,6 +5,7 @@ plus a `LoadReport` that says what was left out and why. Nothing is dropped sile
 from __future__ import annotations
 
 import csv
+import hashlib
 import io
 import re
 import warnings
@@ -95,13 +96,10 @@ def load_table(source, *, name: str | None = None, max_bytes: int = MAX_BYTES,
                         f"{max_bytes / 2**20:.0f} MiB")
     if not raw.strip():
         raise DataError(f"{label} is empty")
-    if raw[:4] == b"PAR1":
-        table = _load_parquet(raw, label, max_cells, step)
-        step(3, 3, "")
-        return table
     if raw[:4] == b"PK\x03\x04" or raw[:8] == b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1":
         raise DataError(f"{label} looks like a spreadsheet workbook; save it as CSV and load that")
-    table = _load_csv(raw, label, max_cells, step)
+    table = (_load_parquet if raw[:4] == b"PAR1" else _load_csv)(raw, label, max_cells, step)
+    table.report.sha256 = hashlib.sha256(raw).hexdigest()
     step(3, 3, "")
     return table
 

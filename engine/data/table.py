@@ -43,6 +43,8 @@ class LoadReport:
     spacing: str | None = None                                  # e.g. "regular (ME)"
     panel: tuple[str, str] | None = None                        # (entity, time) columns
     notes: list[str] = field(default_factory=list)
+    #: SHA-256 of the file's bytes as read (hex), so exports can name the exact file
+    sha256: str | None = None
 
     def lines(self) -> list[str]:
         """The report as short sentences, for the CLI and the app."""

@@ -11,6 +11,7 @@ import pandas as pd
 import html as _html
 
 from ..blas import single_blas_thread
+from ..covariance.bandwidth import bandwidth_text, lags_text
 from ..covariance.registry import Estimator, as_estimator
 from ..errors import EstimationError, SpecificationError
 from ..laws.reference import Law
@@ -38,6 +39,26 @@ class WaldTest:
         return (f"Wald test of {self.df} restriction(s) ({'; '.join(self.restrictions)}): "
                 f"W = {self.statistic:.4g}; F = {self.f_statistic:.4g}{df}; "
                 f"p = {self.p_value:.4g} under {self.law}")
+
+
+def split_outside_parentheses(text: str, sep: str = "; ") -> list[str]:
+    """Split at `sep` only where no parenthesis or bracket is open, so a description such as
+    "fixed-b (Bartlett kernel, b/T = 0.0966; simulated values)" stays on one line."""
+    out, depth, start, i = [], 0, 0, 0
+    while i < len(text):
+        ch = text[i]
+        if ch in "([":
+            depth += 1
+        elif ch in ")]":
+            depth = max(0, depth - 1)
+        elif depth == 0 and text.startswith(sep, i):
+            out.append(text[start:i])
+            i += len(sep)
+            start = i
+            continue
+        i += 1
+    out.append(text[start:])
+    return out
 
 
 @dataclass(repr=False)
@@ -84,7 +105,7 @@ class Inference:
         lr = self.long_run
         parts = [self.label]
         if lr.bandwidth is not None:
-            parts[0] += f" (b = {lr.bandwidth:.4g}, {lr.lags} lags)"
+            parts[0] += f" (b = {bandwidth_text(lr.bandwidth)}, {lags_text(lr.lags)})"
         if lr.how and not lr.how.startswith("fixed bandwidth"):
             parts.append(lr.how)
         small = [p for p in self.estimator.family.params if p.name == "small_sample"]
@@ -167,7 +188,7 @@ class Inference:
         """The result in plain text, in our own layout: what was estimated and how, then one
         line per coefficient, then the notes."""
         pct = f"{self.level:.0%}"
-        parts = self.describe().split("; ")
+        parts = split_outside_parentheses(self.describe())
         lines = [f"{parts[0]}  (N = {self.nobs}, {self.k} coefficients)"]
         lines += ["  " + part for part in parts[1:]]
         if self.flags:

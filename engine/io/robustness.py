@@ -4,6 +4,7 @@ LaTeX, Markdown, HTML or an Excel workbook."""
 from __future__ import annotations
 
 import html
+import warnings
 
 import numpy as np
 import pandas as pd
@@ -13,10 +14,16 @@ from openpyxl.styles import Alignment, Font
 
 from ..covariance.registry import as_estimator
 from ..errors import SpecificationError
-from .tables import latex_escape as esc, markdown_cell
+from .provenance import combined, stamp_lines
+from .tables import LATEX_PACKAGES, latex_comments, latex_escape as esc, markdown_cell, p_text
 
-SHOW = {"se": "standard errors in parentheses", "t": "t statistics in brackets",
-        "p": "p-values in braces", "ci": "confidence intervals in brackets"}
+#: What can stand beneath each estimate, and the footnote that says so.
+BENEATH = {"std_error": "beneath each estimate: its standard error, in parentheses",
+           "t": "beneath each estimate: its t statistic, in square brackets",
+           "p": "beneath each estimate: its p-value (p = ...)",
+           "interval": "beneath each estimate: its confidence interval, in square brackets"}
+#: Older option values (`show=`), accepted with a deprecation warning.
+_OLD_SHOW = {"se": "std_error", "t": "t", "p": "p", "ci": "interval"}
 
 
 def _labelled(items, what):
@@ -37,16 +44,22 @@ class RobustnessTable:
     ci_low, ci_high); `to_latex()`, `to_markdown()`, `to_html()` return text; `to_excel(path)`
     writes a workbook (the table with numbers kept numeric, and the long numbers)."""
 
-    def __init__(self, frame, columns, specs, estimators, terms, show, level, notes, extra):
+    def __init__(self, frame, columns, specs, estimators, terms, beneath, level, notes, extra,
+                 stamps=()):
         self.frame = frame
         self.columns = columns              # column headers "(1)", "(2)", ...
         self.specs = specs                  # per column: specification label
         self.estimators = estimators        # per column: estimator label
         self.terms = terms
-        self.show = show
+        self.beneath = beneath              # a key of BENEATH
         self.level = level
         self.notes = notes
         self.extra = extra                  # per column: {"N": .., "R2": ..}
+        self.stamps = list(stamps)          # provenance of each data source (and when made)
+
+    def stamp(self) -> list[str]:
+        """Which Lagwise made the table, when, and from which data (file, rows, SHA-256)."""
+        return stamp_lines(self.stamps)
 
     # cells
     def _value(self, col, term, field):
@@ -60,12 +73,13 @@ class RobustnessTable:
         r = row.iloc[0]
         if not np.isfinite(r.std_error):
             return "(n/a)"
-        if self.show == "se":
+        if self.beneath == "std_error":
             return f"({r.std_error:.{digits}f})"
-        if self.show == "t":
+        if self.beneath == "t":
             return f"[{r.t_stat:.2f}]"
-        if self.show == "p":
-            return "{<0.001}" if r.p_value < 0.001 else f"{{{r.p_value:.3f}}}"
+        if self.beneath == "p":
+            p = p_text(r.p_value)
+            return f"p {p}" if p.startswith("<") else f"p = {p}"
         return f"[{r.ci_low:.{digits}f}, {r.ci_high:.{digits}f}]"
 
     def grid(self, digits: int = 3) -> list[list[str]]:
@@ -82,7 +96,8 @@ class RobustnessTable:
         return out
 
     def foot(self) -> list[str]:
-        return [f"Estimates with {SHOW[self.show]}; {self.level:.0%} level, two-sided tests of "
+        first = BENEATH[self.beneath]
+        return [first[0].upper() + first[1:] + f"; {self.level:.0%} level, two-sided tests of "
                 "beta = 0."] + self.notes
 
     def to_markdown(self, digits: int = 3) -> str:
@@ -92,25 +107,27 @@ class RobustnessTable:
         lines = [head, "|" + "---|" * len(g[0]),
                  "| | " + " | ".join(markdown_cell(e) for e in self.estimators) + " |"]
         lines += ["| " + " | ".join(markdown_cell(c) for c in row) + " |" for row in g[3:]]
-        return "\n".join(lines) + "\n\n" + "\n\n".join(markdown_cell(n) for n in self.foot()) + "\n"
+        return "\n".join(lines) + "\n\n" + "\n\n".join(markdown_cell(n) for n in
+                                                    self.foot() + self.stamp()) + "\n"
 
     def to_latex(self, digits: int = 3, caption: str = "") -> str:
         g = self.grid(digits)
         n = len(self.columns)
-        out = ["\\begin{table}[ht]", "\\centering"]
+        out = [LATEX_PACKAGES, *latex_comments(self.stamp()), "\\begin{table}[ht]",
+               "\\centering"]
         if caption:
             out.append(f"\\caption{{{esc(caption)}}}")
-        out += [f"\\begin{{tabular}}{{l{'c' * n}}}", "\\hline"]
+        out += [f"\\begin{{tabular}}{{l{'c' * n}}}", "\\toprule"]
         for row in g[:3]:
             out.append(" & ".join(esc(c) for c in row) + " \\\\")
-        out.append("\\hline")
+        out.append("\\midrule")
         body = g[3:-2]
         for row in body:
             out.append(" & ".join(esc(c) for c in row) + " \\\\")
-        out.append("\\hline")
+        out.append("\\midrule")
         for row in g[-2:]:
             out.append(" & ".join(esc(c) for c in row) + " \\\\")
-        out += ["\\hline", "\\end{tabular}"]
+        out += ["\\bottomrule", "\\end{tabular}"]
         for note in self.foot():
             out.append(f"\\par\\smallskip{{\\footnotesize {esc(note)}}}")
         out.append("\\end{table}")
@@ -126,7 +143,7 @@ class RobustnessTable:
         for row in g[3:]:
             out.append("<tr>" + "".join(f"<td>{esc(c)}</td>" for c in row) + "</tr>")
         out.append("</tbody><tfoot>")
-        for note in self.foot():
+        for note in self.foot() + self.stamp():
             out.append(f"<tr><td colspan='{len(g[0])}'>{esc(note)}</td></tr>")
         out.append("</tfoot></table>")
         return "\n".join(out) + "\n"
@@ -139,7 +156,8 @@ class RobustnessTable:
         ws = wb.active
         ws.title = "table"
         fmt_est = "0." + "0" * digits
-        fmt_stat = {"se": f"(0.{'0' * digits})", "t": "[0.00]", "p": '"{"0.000"}"'}.get(self.show)
+        fmt_stat = {"std_error": f"(0.{'0' * digits})", "t": "[0.00]",
+                    "p": '"p = "0.000'}.get(self.beneath)
         header = [[""] + self.specs, [""] + self.estimators, [""] + self.columns]
         for r, row in enumerate(header, start=1):
             for c, v in enumerate(row, start=1):
@@ -147,7 +165,7 @@ class RobustnessTable:
                 cell.font = Font(bold=(r == 3))
                 cell.alignment = Alignment(horizontal="center")
         r = 4
-        field = {"se": "std_error", "t": "t_stat", "p": "p_value"}.get(self.show)
+        field = {"std_error": "std_error", "t": "t_stat", "p": "p_value"}.get(self.beneath)
         for term in self.terms:
             _put(ws, r, 1, term)
             for c, col in enumerate(self.columns, start=2):
@@ -156,8 +174,10 @@ class RobustnessTable:
                     ws.cell(row=r, column=c, value=float(v)).number_format = fmt_est
                 if field is not None:
                     s = self._value(col, term, field)
-                    if s is not None and np.isfinite(s):
+                    if s is not None and np.isfinite(s) and not (field == "p_value" and s < 0.001):
                         ws.cell(row=r + 1, column=c, value=float(s)).number_format = fmt_stat
+                    elif s is not None and np.isfinite(s):
+                        ws.cell(row=r + 1, column=c, value=self._stat_text(col, term, digits))
                 else:
                     _put(ws, r + 1, c, self._stat_text(col, term, digits))
             r += 2
@@ -169,9 +189,14 @@ class RobustnessTable:
             if np.isfinite(r2):
                 ws.cell(row=r + 1, column=c, value=float(r2)).number_format = "0.000"
         r += 3
-        for note in self.foot():
+        for note in self.foot() + self.stamp():
             _put(ws, r, 1, note)
             r += 1
+        if self.stamps:
+            first = self.stamps[0]
+            wb.properties.creator = f"Lagwise {first.version}"
+            wb.properties.description = "; ".join(self.stamp())
+            wb.properties.title = "Lagwise robustness table"
         ws2 = wb.create_sheet("numbers")
         for c, name in enumerate(self.frame.columns, start=1):
             _put(ws2, 1, c, str(name))
@@ -188,18 +213,26 @@ class RobustnessTable:
         return self.to_markdown()
 
 
-def robustness_table(fits, estimators, show: str = "se", level: float = 0.95,
-                     reference: str = "auto", terms=None) -> RobustnessTable:
+def robustness_table(fits, estimators, beneath: str = "std_error", level: float = 0.95,
+                     reference: str = "auto", terms=None, show: str | None = None
+                     ) -> RobustnessTable:
     """Coefficients of one or more fits under one or more estimators, side by side.
 
     fits: a fit, a list of fits, or {label: fit}; estimators: an Estimator (or name), a list, or
     {label: estimator}. With one fit the columns are estimators; with one estimator they are
-    specifications; with several of each, every (specification, estimator) pair. show: "se",
-    "t", "p" or "ci" beneath each estimate. terms: the rows (default every term, in order of
-    first appearance). The notes at the foot state each column's estimator, tuning value and
-    how it was chosen, small-sample factor, reference law and method."""
-    if show not in SHOW:
-        raise SpecificationError(f"show must be one of {', '.join(SHOW)}")
+    specifications; with several of each, every (specification, estimator) pair. beneath:
+    what stands beneath each estimate, "std_error", "t", "p" or "interval" (`show=` with the
+    older values "se", "t", "p", "ci" still works and warns). terms: the rows (default every
+    term, in order of first appearance). The notes at the foot state each column's estimator,
+    tuning value and how it was chosen, small-sample factor, reference law and method; the
+    stamp states the Lagwise version, when the table was made and each data file (name, rows,
+    SHA-256)."""
+    if show is not None:
+        warnings.warn("robustness_table(show=...) is deprecated; use beneath='std_error', 't', "
+                      "'p' or 'interval'", DeprecationWarning, stacklevel=2)
+        beneath = _OLD_SHOW.get(show, show)
+    if beneath not in BENEATH:
+        raise SpecificationError(f"beneath must be one of {', '.join(BENEATH)}")
     fit_items = _labelled(fits, "fit")
     est_items = [(lab, as_estimator(e)) for lab, e in _labelled(estimators, "estimator")]
     pairs = [(fl, f, el, e) for fl, f in fit_items for el, e in est_items]
@@ -223,7 +256,8 @@ def robustness_table(fits, estimators, show: str = "se", level: float = 0.95,
     if unknown:
         raise SpecificationError(f"no coefficient named {unknown[0]!r} in these fits")
     return RobustnessTable(frame[frame.term.isin(order)].reset_index(drop=True), columns,
-                           specs, ests, order, show, level, notes, extra)
+                           specs, ests, order, beneath, level, notes, extra,
+                           combined(f for _, f in fit_items))
 
 
 #: Text a spreadsheet would take for a formula or a command if it were typed in (the same

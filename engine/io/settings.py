@@ -50,6 +50,8 @@ _FIELDS = {
     "entity": ((str, type(None)), None),
     "time": ((str, type(None)), None),
     "effects": ((list,), "effects"),
+    # where the file came from (engine.io.provenance): read for the record, never applied
+    "made_by": ((dict,), "made_by"),
 }
 
 
@@ -164,6 +166,11 @@ def validate_settings(data: dict) -> dict:
             raise DataError(f"settings: '{key}' has the wrong type")
         if not isinstance(value, types):
             raise DataError(f"settings: '{key}' should be {' or '.join(t.__name__ for t in types)}")
+        if isinstance(value, float) and not math.isfinite(value):
+            raise DataError(f"settings: '{key}' must be a finite number")
+        if isinstance(value, list) and any(isinstance(v, float) and not math.isfinite(v)
+                                           for v in value):
+            raise DataError(f"settings: '{key}' holds a number that is not finite")
         if isinstance(value, str) and len(value) > 500:
             raise DataError(f"settings: '{key}' is too long")
         if check == "names" and (len(value) > 200 or not all(isinstance(v, str) and len(v) < 500
@@ -186,6 +193,12 @@ def validate_settings(data: dict) -> dict:
                 len(value) != 2 or not all(isinstance(v, int) and not isinstance(v, bool)
                                            and abs(v) <= MAX_SAMPLE for v in value)):
             raise DataError("settings: 'window' must be two row positions")
+        if check == "made_by" and not all(
+                k in ("lagwise", "made", "data") and (isinstance(v, _SCALAR) or (
+                    isinstance(v, dict) and all(isinstance(x, _SCALAR) for x in v.values())))
+                for k, v in value.items()):
+            raise DataError("settings: 'made_by' holds the version, the time and the data's "
+                            "file, rows and hash only")
         if check == "transforms":
             if len(value) > 50:
                 raise DataError("settings: at most 50 transforms")

@@ -66,6 +66,8 @@ class MomentModel:
     horizon: int | None = None
     leverage: np.ndarray | None = None
     resid: np.ndarray | None = None
+    #: the Table the model was fitted on, when it was fitted on one (exports state its file)
+    table = None
     #: why the residual degrees of freedom are what they are ("T - k", "N - K", ...)
     df_reason = "T - k"
     #: the estimator family whose kernels `sweep(kernels=...)` moves along the bandwidth

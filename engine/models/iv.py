@@ -12,9 +12,9 @@ A = Q'X, W = I gives 2SLS, and the influence map is M = (A'WA)^-1 A'W (V = T M S
 "2sls", "two-step" (W = S^-1 from the first step's moment contributions, S from any registered
 estimator), "iterated" (to convergence), "cue" (continuously updated, S(beta) in the objective).
 Specification and strength: Hansen's J, the difference-in-J test, first-stage results, the
-effective F of Montiel Olea & Pflueger (one endogenous regressor) and the Kleibergen-Paap rk
-Wald F (several); weak-instrument-robust inference: the Anderson-Rubin test and its confidence
-set by test inversion.
+effective F of Montiel Olea & Pflueger (one endogenous regressor) and a robust first-stage F
+from the Kleibergen-Paap (2006) rank statistic (several); weak-instrument-robust inference:
+the Anderson-Rubin test and its confidence set by test inversion.
 """
 
 from __future__ import annotations

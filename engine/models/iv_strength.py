@@ -1,7 +1,7 @@
 """Instrument strength and weak-instrument-robust inference for linear IV, under any estimator of
 S: the first-stage system as a moment model, the effective F of Montiel Olea & Pflueger (one
-endogenous regressor), the Kleibergen-Paap rk Wald statistic (several), and the Anderson-Rubin
-test and its confidence set by test inversion. These work on the IV fit's shared core (its data
+endogenous regressor), a robust first-stage F from the Kleibergen-Paap (2006) rank statistic
+(several), and the Anderson-Rubin test and its confidence set by test inversion. These work on the IV fit's shared core (its data
 and the basis of Z) and never refit the model."""
 
 from __future__ import annotations
@@ -17,6 +17,9 @@ from ..blas import single_blas_thread
 from ..errors import LagwiseError, SpecificationError
 from ..laws.reference import chi_square_upper, f_upper
 
+
+#: The rank statistic's name on screen and in exports, in our own words.
+RANK_F = "robust first-stage F (Kleibergen-Paap 2006 rank statistic)"
 
 #: Rules of thumb for instrument strength (common practice, not tests with known size).
 RULE_OF_THUMB_F = 10.0            # Staiger & Stock (1997): first-stage F below 10 is weak
@@ -104,7 +107,7 @@ def first_stage(fit, est):
             "source": "Montiel Olea & Pflueger (2013): 23.1 is their critical value for a 10% "
                       "worst-case bias at 5% (recalled, not recomputed here)"}
     rk = kleibergen_paap(pi, v_pi, zt, vt)
-    strength["Kleibergen-Paap rk Wald F"] = {
+    strength[RANK_F] = {
         "value": rk / L, "compare_with": RULE_OF_THUMB_F,
         "source": "rule of thumb: F below about 10 signals weak instruments (Staiger & Stock "
                   "1997; common practice; Stock & Yogo's tables assume homoskedastic errors)"}

@@ -413,7 +413,8 @@ def _regressor_persistence(fit) -> dict:
 
 
 def _p_words(p: float) -> str:
-    return "below 1e-16" if p < 1e-16 else (f"= {p:.2g}" if p >= 1e-4 else f"= {p:.1e}")
+    """A p-value in words as the tables show it: never in scientific notation."""
+    return "below 0.001" if p < 0.001 else f"= {p:.3f}"
 
 
 def _ranges(lags: list[int]) -> str:

@@ -277,4 +277,5 @@ def _panel_reading(tests, acf_df, persistence, fit) -> list[str]:
 
 
 def _pw(p: float) -> str:
-    return "below 1e-16" if p < 1e-16 else (f"= {p:.2g}" if p >= 1e-4 else f"= {p:.1e}")
+    """A p-value in words as the tables show it: never in scientific notation."""
+    return "below 0.001" if p < 0.001 else f"= {p:.3f}"
