@@ -469,6 +469,7 @@ def factor_premia_lines(args, kernel: str, level: float) -> list[str]:
 
 
 def cmd_factors(args) -> int:
+    from ..engine.io.provenance import provenance
     from ..engine.io.tables import render
     from .. import engine
     bar = progress_bar(3, "reading the file")
@@ -484,9 +485,10 @@ def cmd_factors(args) -> int:
     if args.format != "text":
         bar.close()
         out = render(frame, args.format, index=False,
-                     caption=f"{engine.model_line(fm)}: alphas under each estimator")
+                     caption=f"{engine.model_line(fm)}: alphas under each estimator",
+                     stamp=provenance(table).lines(), level=args.level)
     else:
-        lines = [f"Lagwise factor model: {engine.model_line(fm)}"]
+        lines = [f"Lagwise factor model: {engine.model_line(fm)}", *provenance(table).lines()]
         lines += [f"  note: {n}" for n in fm.sample.notes]
         labels = list(dict.fromkeys(frame.estimator))
         lines += ["", f"Alphas and t statistics under each estimator ({args.level:.0%} level)"]
@@ -516,6 +518,7 @@ def cmd_bootstrap(args) -> int:
     clustered t tests it is compared with."""
     from .. import engine
     from ..engine.data.columns import as_list
+    from ..engine.io.provenance import provenance
     table = engine.load_table(args.file)
     regs = as_list(args.regressors)
     endog, instr = as_list(args.endogenous), as_list(args.instruments)
@@ -543,7 +546,8 @@ def cmd_bootstrap(args) -> int:
         pvalue=args.pvalue, progress=lambda done, total: bar.update(done - bar.n))
     bar.close()
     pct = f"{args.level:.0%}"
-    lines = [f"Lagwise wild cluster bootstrap: {engine.model_line(fit)}", "",
+    lines = [f"Lagwise wild cluster bootstrap: {engine.model_line(fit)}",
+             *provenance(table).lines(), "",
              f"{res.coefficient} = {res.null:g}, clustered by {by}:"]
     for c, d in (("cr1", "clusters"), ("cr2", "bell-mccaffrey"), ("cr3", "bell-mccaffrey")):
         try:

@@ -34,9 +34,9 @@ def lp_estimator_arg(text: str):
     return engine.estimator(text)
 
 
-def irf_text(lp, frame, caption, notes, summary, flips, boot_lines) -> str:
+def irf_text(lp, frame, caption, notes, summary, flips, boot_lines, stamp=()) -> str:
     """Our own plain-text layout: the model, the table by horizon, the conclusions."""
-    lines = [f"Lagwise impulse response: {lp.line}"]
+    lines = [f"Lagwise impulse response: {lp.line}", *stamp]
     lines += [f"  note: {n}" for n in lp.notes]
     lines += ["", caption, frame.to_string(index=False), ""]
     lines += [f"  {n}" for n in notes]
@@ -62,6 +62,7 @@ def cmd_irf(args) -> int:
     from .. import engine
     from ..engine.data.columns import as_list
     from ..engine.io.lp_tables import paper_table
+    from ..engine.io.provenance import provenance
     from ..engine.io.tables import render
     from ..engine.models.lp_inference import default_estimators
     from tqdm import tqdm
@@ -74,8 +75,10 @@ def cmd_irf(args) -> int:
     ests = [lp_estimator_arg(e) for e in args.estimator] if args.estimator else \
         default_estimators(lp)
     frame, caption, notes = paper_table(lp, ests, args.level, args.reference)
+    stamp = provenance(table).lines()
     if args.format != "text":
-        out = render(frame, args.format, index=False, caption=caption, notes=notes)
+        out = render(frame, args.format, index=False, caption=caption, notes=[lp.line, *notes],
+                     stamp=stamp, level=args.level)
     else:
         summary = lp.significance(ests, args.level, "pointwise", args.reference)
         sup = lp.significance(ests, args.level, "sup-t", args.reference)
@@ -104,7 +107,7 @@ def cmd_irf(args) -> int:
                         f"{b.attrs['sup_t_mc_se']:.3f}); {b.attrs['note']}",
                     b[["estimate", "std_error", "critical_value", "ci_low", "ci_high",
                        "sup_t_low", "sup_t_high"]].to_string()]
-        out = irf_text(lp, frame, caption, notes, summary, flips, boot)
+        out = irf_text(lp, frame, caption, notes, summary, flips, boot, stamp)
     if args.output:
         Path(args.output).write_text(out)
         print(f"wrote {args.output}", file=sys.stderr)

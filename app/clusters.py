@@ -299,7 +299,9 @@ def bootstrap_row(d: dict) -> dict:
           State("fc-by", "value"), State("focus", "value"), State("level", "value"),
           State("fc-boot-data", "data"), State("session", "data"), prevent_initial_call=True)
 def on_fc_export(clicks, fkey, by, focus, level, boot, session):
+    from ..engine.io.provenance import provenance
     from ..engine.io.tables import render
+    from ..engine.kinds import model_line
     trig = ctx.triggered_id
     if not isinstance(trig, dict) or not any(c for c in clicks or [] if c):
         raise PreventUpdate
@@ -322,6 +324,7 @@ def on_fc_export(clicks, fkey, by, focus, level, boot, session):
             (boot["ci_low"], boot["ci_high"])).summary())
     fmt = trig.get("fmt")
     text = render(frame, fmt, index=False, caption=f"{focus}: clustered by {by}, CR1/CR2/CR3 "
-                  f"with their degrees of freedom ({level:.0%} intervals)", notes=notes)
+                  f"with their degrees of freedom ({level:.0%} intervals)",
+                  notes=[model_line(model), *notes], stamp=provenance(model).lines())
     ext = {"csv": "csv", "markdown": "md", "latex": "tex"}.get(fmt, "txt")
     return {"content": text, "filename": f"lagwise_few_clusters.{ext}"}

@@ -31,6 +31,7 @@ from .. import engine
 from ..engine.covariance.registry import FAMILIES
 from ..engine.data.columns import index_label
 from ..engine.inference.compare import family_presets
+from ..engine.io.provenance import provenance
 from ..engine.io.tables import FORMATS, render
 from ..engine.kinds import kind_of, model_line
 from ..engine.models.risk_premia import CORRECTIONS, risk_premia_of
@@ -801,7 +802,7 @@ def paper_table(model, est, level):
     ests = {}
     for e in (engine.estimator("classical"), engine.estimator("hc1"), est):
         ests.setdefault(e.label, e)
-    tab = engine.robustness_table(model, ests, show="se", level=level,
+    tab = engine.robustness_table(model, ests, beneath="std_error", level=level,
                                   terms=model.alpha_terms)
     for lab, e in ests.items():
         try:
@@ -840,7 +841,8 @@ def on_factor_export(clicks, alpha_fig, joint_fig, session, fkey, name, values, 
             fig = alpha_fig if target == "fm-alpha-graph" else joint_fig
             if not isinstance(fig, dict):
                 raise engine.SpecificationError("the chart is not drawn yet")
-            data = export_figure(go.Figure(fig), fmt)
+            data = export_figure(go.Figure(fig), fmt, subtitle=model_line(model),
+                                 stamp=provenance(model))
             return {"content": base64.b64encode(data).decode(), "base64": True,
                     "filename": f"lagwise_{target}.{fmt}"}
         est = make_estimator(name, values, ids, rule, slider)
@@ -860,7 +862,8 @@ def on_factor_export(clicks, alpha_fig, joint_fig, session, fkey, name, values, 
         zb = isinstance(zero_beta, list) and "on" in zero_beta
         frame, caption, notes = factor_table(target, session, fkey, model, est, level,
                                              reference, zb)
-        text = render(frame, fmt, index=False, caption=caption, notes=notes)
+        text = render(frame, fmt, index=False, caption=caption, notes=notes,
+                      stamp=provenance(model).lines(), level=level)
     except (engine.LagwiseError, ValueError) as exc:
         return {"content": f"export failed: {exc}\n", "filename": "lagwise_export_error.txt"}
     ext = {"csv": "csv", "markdown": "md", "latex": "tex", "html": "html"}[fmt]

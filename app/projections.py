@@ -17,6 +17,7 @@ from dash import ALL, Input, Output, State, ctx, html, no_update
 from .. import engine
 from .._files import demo_dir, demo_file
 from ..engine.io.lp_tables import lp_script, paper_table
+from ..engine.io.provenance import provenance
 from ..engine.io.tables import FORMATS, render
 from ..engine.models.lp_inference import (default_estimators, horizon_rule, irf_table,
                                           lag_augmented, pointwise_bands, runs_text,
@@ -347,16 +348,17 @@ def on_lp_export(clicks, graph, flip_graph, lkey, dkey, name, values, ids, rule,
     target, fmt = trig.get("target"), trig.get("fmt")
     try:
         figs = {"lp-graph": graph, "lp-flip-graph": flip_graph}
-        if target in figs:
-            if not isinstance(figs[target], dict):
-                return no_update
-            data = export_figure(go.Figure(figs[target]), fmt)
-            return {"content": base64.b64encode(data).decode(), "base64": True,
-                    "filename": f"lagwise_{target}.{fmt}"}
         lp = stored(session, lkey)
         if lp is None:
             raise engine.SpecificationError("nothing to export yet: switch the local-projection "
                                             "mode on")
+        stamp = provenance(lp.table)
+        if target in figs:
+            if not isinstance(figs[target], dict):
+                return no_update
+            data = export_figure(go.Figure(figs[target]), fmt, subtitle=lp.line, stamp=stamp)
+            return {"content": base64.b64encode(data).decode(), "base64": True,
+                    "filename": f"lagwise_{target}.{fmt}"}
         level = level if isinstance(level, float) else 0.9
         reference = reference if isinstance(reference, str) else "auto"
         est = lp_estimator(choice, name, values, ids, rule, slider)
@@ -366,12 +368,13 @@ def on_lp_export(clicks, graph, flip_graph, lkey, dkey, name, values, ids, rule,
                 raise engine.SpecificationError("the data of this view is not loaded any more")
             source = table.report.source or "data.csv"
             text = lp_script(source, (demo_dir() / source).is_file(), table.transforms, lp,
-                             est, level, reference)
+                             est, level, reference, stamp=provenance(table).lines())
             return {"content": text, "filename": "lagwise_impulse_response.py"}
         if fmt not in FORMATS:
             return no_update
         frame, caption, notes = lp_table_frame(target, lp, est, level, reference)
-        text = render(frame, fmt, index=False, caption=caption, notes=notes)
+        text = render(frame, fmt, index=False, caption=caption, notes=[lp.line, *notes],
+                      stamp=stamp.lines(), level=level)
     except (engine.LagwiseError, ValueError) as exc:
         return {"content": f"export failed: {exc}\n", "filename": "lagwise_export_error.txt"}
     ext = {"csv": "csv", "markdown": "md", "latex": "tex", "html": "html"}[fmt]

@@ -70,7 +70,7 @@ def _report_of(source) -> LoadReport | None:
     if isinstance(source, Table):
         return source.report
     if isinstance(source, MomentModel):
-        return source.table.report if isinstance(source.table, Table) else None
+        return source.source_report
     return None
 
 

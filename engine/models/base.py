@@ -37,6 +37,7 @@ from ..covariance.fewclusters import ClusterBlocks, blocks_from_rows, pieces
 from ..covariance.hc import LEVERAGE_TOL
 from ..data.columns import index_label
 from ..data.groupings import Grouping
+from ..data.table import Table
 from ..errors import EstimationError, SpecificationError
 from ..inference.compare import compare
 from ..inference.infer import infer
@@ -68,6 +69,12 @@ class MomentModel:
     resid: np.ndarray | None = None
     #: the Table the model was fitted on, when it was fitted on one (exports state its file)
     table = None
+    @property
+    def source_report(self):
+        """The LoadReport of the file behind the model (exports state its name, rows and
+        SHA-256), or None when the data were given in memory."""
+        return self.table.report if isinstance(self.table, Table) else None
+
     #: why the residual degrees of freedom are what they are ("T - k", "N - K", ...)
     df_reason = "T - k"
     #: the estimator family whose kernels `sweep(kernels=...)` moves along the bandwidth

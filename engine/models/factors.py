@@ -42,6 +42,7 @@ from ..covariance.kernels import KERNELS
 from ..covariance.registry import estimator as make_estimator
 from ..data.columns import INTERCEPT, SampleInfo, as_list, frame_and_meta, index_label
 from ..data.dates import parse_dates
+from ..data.table import Table
 from ..errors import DataError, EstimationError, SpecificationError
 from ..laws.reference import f_upper, normal_critical, normal_upper
 from .joint import (JointSweep, JointTest, joint_sweep, joint_test_from,
@@ -83,9 +84,15 @@ class FactorModel(StackedModel):
         self.response = f"{len(self.assets)} assets"
         # opened as it is by lagwise.show (no table refit: the page has a factor-model mode)
         self.table = None
+        self.loaded_from = None           # the LoadReport of the file read (exports cite it)
         #: excess returns (T x N, NaN where missing) and factors (T x K) on the common index
         self.returns = returns
         self.factor_values = factor_values
+
+    @property
+    def source_report(self):
+        """The file the returns were read from (the model keeps no table: see `table`)."""
+        return self.loaded_from
 
     # ------------------------------------------------------------------ description
     def _sample(self) -> SampleInfo:
@@ -590,6 +597,8 @@ def fit_factor_model(data, assets, factors, time: str | None = None,
                     f"({', '.join(factors)}) over {len(index)} periods")
     returns = pd.DataFrame(np.where(observed, excess, np.nan), index=index, columns=assets)
     factor_values = pd.DataFrame(fac, index=index, columns=factors)
-    return FactorModel(members, assets=assets, factors=factors, risk_free=risk_free,
-                       returns=returns, factor_values=factor_values, intro_notes=notes,
-                       balanced=balanced, time=time, window=sample)
+    fm = FactorModel(members, assets=assets, factors=factors, risk_free=risk_free,
+                     returns=returns, factor_values=factor_values, intro_notes=notes,
+                     balanced=balanced, time=time, window=sample)
+    fm.loaded_from = table.report if isinstance(table, Table) else None
+    return fm
