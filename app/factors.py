@@ -93,7 +93,8 @@ def sidebar_section():
         html.Label("factors", className="lw-label"),
         dcc.Dropdown(id="fm-factors", multi=True),
         html.Label("risk-free column (subtracted from every asset)", className="lw-label"),
-        dcc.Dropdown(id="fm-rf", placeholder="none: the assets are excess returns"),
+        html.Div(dcc.Dropdown(id="fm-rf", placeholder="none (excess returns)"),
+                 title="none: the assets are excess returns already"),
         dcc.Checklist(id="fm-balanced", options=[
             {"label": " balanced subsample (only periods with every asset)", "value": "on"}],
             value=[], className="lw-check"),

@@ -397,7 +397,7 @@ def test_panel_demo_in_the_page(page: Page, live_server, tmp_path):
     expect(page.locator("#tune-title")).to_have_text("no tuning value", timeout=20_000)
     cl = fit.infer(lagwise.estimator("cluster", by="entity"))
     expect(se_cell(page, 1)).to_have_text(fmt(cl.table.std_error.iloc[1]), timeout=20_000)
-    expect(page.locator("#coef-caption")).to_contain_text("G - 1, G = 240 entities")
+    expect(page.locator("#coef-caption")).to_contain_text("G - 1, G = 240 clusters (entity)")
     # diagnostics for panels
     expect(cells(page, "diag-table", "test").first).to_have_text("Pesaran CD", timeout=30_000)
     # entity fixed effects: the intercept is absorbed and the degrees of freedom stated
