@@ -64,7 +64,7 @@ def first_screen(page, path: Path):
 
 
 def element(page, selector: str, path: Path):
-    loc = page.locator(selector).first
+    loc = page.locator(selector).locator("visible=true").first
     loc.scroll_into_view_if_needed()
     settle(page, 1500)
     loc.screenshot(path=str(path))
