@@ -8,11 +8,11 @@ from __future__ import annotations
 import argparse
 import math
 import sys
-from pathlib import Path
 
 import numpy as np
 
 from .cli_irf import add_irf_parser   # `lagwise irf`: impulse responses by local projections
+from .cli_output import emit
 
 def _fmt(x, spec=".4g"):
     if x is None or (isinstance(x, float) and not math.isfinite(x)):
@@ -197,12 +197,7 @@ def write_output(args, fit, comp, extra, what: str) -> int:
                 "ci_high", "bandwidth", "lags", "reference", "rejects", "note"]
         out = render(comp[cols], args.format, index=False, caption=f"{fit.response}: {what}",
                      notes=[model_line(fit)], stamp=stamp.lines(), level=args.level)
-    if args.output:
-        Path(args.output).write_text(out)
-        print(f"wrote {args.output}", file=sys.stderr)
-    else:
-        sys.stdout.write(out)
-    return 0
+    return emit(args, out)
 
 
 def predictive_lines(fit, args) -> list[str]:
@@ -505,12 +500,7 @@ def cmd_factors(args) -> int:
             lines += factor_premia_lines(args, kernel, args.level)
         bar.close()
         out = "\n".join(lines) + "\n"
-    if args.output:
-        Path(args.output).write_text(out)
-        print(f"wrote {args.output}", file=sys.stderr)
-    else:
-        sys.stdout.write(out)
-    return 0
+    return emit(args, out)
 
 
 def cmd_bootstrap(args) -> int:
@@ -571,12 +561,7 @@ def cmd_bootstrap(args) -> int:
     if by != "both":
         lines += cluster_lines(fit, [by], args.level)
     text = "\n".join(lines) + "\n"
-    if args.output:
-        Path(args.output).write_text(text)
-        print(f"wrote {args.output}", file=sys.stderr)
-    else:
-        sys.stdout.write(text)
-    return 0
+    return emit(args, text)
 
 
 def cmd_demo(args) -> int:

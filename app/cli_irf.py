@@ -6,9 +6,10 @@ each horizon's conclusion changes along the bandwidth."""
 from __future__ import annotations
 
 import sys
-from pathlib import Path
 
 import pandas as pd
+
+from .cli_output import emit
 
 
 def lp_estimator_arg(text: str):
@@ -108,12 +109,7 @@ def cmd_irf(args) -> int:
                     b[["estimate", "std_error", "critical_value", "ci_low", "ci_high",
                        "sup_t_low", "sup_t_high"]].to_string()]
         out = irf_text(lp, frame, caption, notes, summary, flips, boot, stamp)
-    if args.output:
-        Path(args.output).write_text(out)
-        print(f"wrote {args.output}", file=sys.stderr)
-    else:
-        sys.stdout.write(out)
-    return 0
+    return emit(args, out)
 
 
 def add_irf_parser(sub) -> None:
