@@ -14,7 +14,7 @@ import base64
 
 import numpy as np
 import pandas as pd
-from dash import ALL, Input, Output, Patch, State, ctx, html, no_update
+from dash import ALL, Input, Output, State, ctx, html, no_update
 from dash.exceptions import PreventUpdate
 
 from .. import engine
@@ -33,7 +33,7 @@ from .derived import (comparison_for, current_curve, dataset_from_bytes, diagnos
 from .layout import estimator_controls, rule_options
 from .clusters import bootstrap_rows, grouping_columns
 from .state import STORE, key_for, spec_hash
-from .wiring import RUNNING, callback
+from .wiring import RUNNING, callback, clientside
 from .work import IDLE_POLLS, SHOW_AFTER, WORK
 
 
@@ -451,18 +451,39 @@ def on_inference(fkey, name, values, rule, slider, reference, level, focus, meth
             signature if rows is not no_update else no_update)
 
 
-@callback(Output("sens-graph", "figure", allow_duplicate=True),
-          Output("flip-graph", "figure", allow_duplicate=True),
-          Input("tune-slider", "value"), prevent_initial_call=True)
-def on_marker(slider):
-    """Move the current-value markers only (partial updates of the two figures)."""
-    patches = []
-    for _ in range(2):
-        patch = Patch()
-        patch["layout"]["shapes"][0]["x0"] = slider
-        patch["layout"]["shapes"][0]["x1"] = slider
-        patches.append(patch)
-    return tuple(patches)
+@callback(Output("fit-cards", "data"), Input("fit-key", "data"), State("session", "data"),
+          State("fit-cards", "data"))
+def on_fit_cards(fkey, session, current):
+    """The cards of the current model's kind, for the page to route slider presses."""
+    model = stored(session, fkey)
+    cards = sorted(kind_of(model).cards) if model is not None else []
+    return no_update if cards == current else cards
+
+
+# One press of the slider goes to the server once (on_inference); the instrument, factor and
+# local-projection cards hear of it only when the page holds such a model.
+clientside(
+    """function(v, cards, lkey) {
+        const nu = window.dash_clientside.no_update, has = c => (cards || []).includes(c);
+        return [has("instruments") ? v : nu, has("factors") ? v : nu, lkey ? v : nu];
+    }""",
+    Output("slider-iv", "data"), Output("slider-fm", "data"), Output("slider-lp", "data"),
+    Input("tune-slider", "value"), State("fit-cards", "data"), State("lp-key", "data"),
+    prevent_initial_call=True)
+
+
+# The current-value markers of the sensitivity and flip charts move in the page (partial
+# updates of the two figures, no request).
+clientside(
+    """function(v) {
+        const patch = () => new window.dash_clientside.Patch()
+            .assign(["layout", "shapes", 0, "x0"], v)
+            .assign(["layout", "shapes", 0, "x1"], v).build();
+        return [patch(), patch()];
+    }""",
+    Output("sens-graph", "figure", allow_duplicate=True),
+    Output("flip-graph", "figure", allow_duplicate=True),
+    Input("tune-slider", "value"), prevent_initial_call=True)
 
 
 @callback(Output("sens-graph", "figure"), Output("flip-text", "children"),
@@ -568,9 +589,10 @@ def on_diagnostics(fkey, session):
           Output("ar-text", "children"),
           Input("fit-key", "data"), Input("est-name", "value"),
           Input({"type": "est-param", "name": ALL}, "value"), Input("tune-rule", "value"),
-          Input("iv-method", "value"), Input("level", "value"), Input("tune-slider", "value"),
-          State({"type": "est-param", "name": ALL}, "id"), State("session", "data"), message=4)
-def on_strength(fkey, name, values, rule, method, level, slider, ids, session):
+          Input("iv-method", "value"), Input("level", "value"), Input("slider-iv", "data"),
+          State({"type": "est-param", "name": ALL}, "id"), State("session", "data"),
+          State("tune-slider", "value"), message=4)
+def on_strength(fkey, name, values, rule, method, level, _press, ids, session, slider):
     """First stage, strength statistics, J and difference-in-J, and the Anderson-Rubin set,
     under the estimator of S chosen in the Sensitivity card."""
     model = stored(session, fkey)

@@ -631,7 +631,7 @@ def on_factor_spec(mode, assets, factors, rf, balanced, current):
 
 CARD_INPUTS = [Input("fit-key", "data"), Input("est-name", "value"),
                Input({"type": "est-param", "name": ALL}, "value"), Input("tune-rule", "value"),
-               Input("tune-slider", "value"), Input("reference", "value"),
+               Input("slider-fm", "data"), Input("reference", "value"),
                Input("level", "value")]
 
 
@@ -647,8 +647,9 @@ def _view(session, fkey, name, values, ids, rule, slider):
 @callback(Output("fm-cards", "style"), Output("fm-alpha-graph", "figure"),
           Output("fm-joint-text", "children"),
           *CARD_INPUTS, Input("fm-sort", "value"), State({"type": "est-param", "name": ALL}, "id"),
-          State("session", "data"), message=2)
-def on_factor_alphas(fkey, name, values, rule, slider, reference, level, sort, ids, session):
+          State("session", "data"), State("tune-slider", "value"), message=2)
+def on_factor_alphas(fkey, name, values, rule, _press, reference, level, sort, ids, session,
+                     slider):
     """Every asset's alpha under the estimator on screen, and the joint test there."""
     model, est = _view(session, fkey, name, values, ids, rule, slider)
     if model is None:
@@ -699,7 +700,7 @@ def on_factor_joint(fkey, name, values, rule, reference, level, ids, slider, ses
 
 
 @callback(Output("fm-joint-graph", "figure", allow_duplicate=True),
-          Input("tune-slider", "value"), State("fit-key", "data"), State("session", "data"),
+          Input("slider-fm", "data"), State("fit-key", "data"), State("session", "data"),
           prevent_initial_call=True)
 def on_factor_marker(slider, fkey, session):
     """Move the current-value line of the joint chart (a partial update of the figure)."""
@@ -734,9 +735,9 @@ def on_factor_every(fkey, reference, level, show, options, session):
 @callback(Output("fm-premia-table", "rowData"), Output("fm-premia-notes", "children"),
           *CARD_INPUTS, Input("fm-zero-beta", "value"),
           State({"type": "est-param", "name": ALL}, "id"), State("session", "data"),
-          message=1, running=RUNNING)
-def on_factor_premia(fkey, name, values, rule, slider, reference, level, zero_beta, ids,
-                     session):
+          State("tune-slider", "value"), message=1, running=RUNNING)
+def on_factor_premia(fkey, name, values, rule, _press, reference, level, zero_beta, ids,
+                     session, slider):
     model, est = _view(session, fkey, name, values, ids, rule, slider)
     if model is None:
         return [], []

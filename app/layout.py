@@ -547,6 +547,10 @@ def build_layout(session: str, initial: dict, where: str = "this computer", badg
         dcc.Store(id="dataset-key", data=initial.get("dataset_key")),
         dcc.Store(id="fit-key", data=initial.get("fit_key")),
         dcc.Store(id="compare-shown"),
+        # the slider, passed on in the page only to the cards the current model has (see
+        # app.callbacks.on_fit_cards): a press on a plain regression sends one request
+        dcc.Store(id="fit-cards", data=[]), dcc.Store(id="slider-iv"),
+        dcc.Store(id="slider-fm"), dcc.Store(id="slider-lp"),
         dcc.Store(id="pending-settings", data=initial.get("settings")),
         dcc.Store(id="initial-spec", data=spec),
         dcc.Download(id="download"),

@@ -212,7 +212,7 @@ def _overlays(session, lkey, lp, level, reference):
 
 VIEW_INPUTS = [Input("lp-key", "data"), Input("est-name", "value"),
                Input({"type": "est-param", "name": ALL}, "value"),
-               Input("tune-rule", "value"), Input("tune-slider", "value"),
+               Input("tune-rule", "value"), Input("slider-lp", "data"),
                Input("level", "value"), Input("reference", "value"),
                Input("lp-band-est", "value")]
 
@@ -220,8 +220,10 @@ VIEW_INPUTS = [Input("lp-key", "data"), Input("est-name", "value"),
 @callback(Output("lp-graph", "figure"), Output("lp-table", "rowData"),
           Output("lp-reading", "children"), Output("lp-assumes", "children"),
           Output("lp-notes", "children"), *VIEW_INPUTS, Input("lp-show", "value"),
-          *EST_STATE, State("session", "data"), prevent_initial_call=True, message=3)
-def on_lp_view(lkey, name, values, rule, slider, level, reference, choice, show, ids, session):
+          *EST_STATE, State("session", "data"), State("tune-slider", "value"),
+          prevent_initial_call=True, message=3)
+def on_lp_view(lkey, name, values, rule, _press, level, reference, choice, show, ids, session,
+               slider):
     """The hot path: every horizon's band under the current estimator (a slider move
     reweights each horizon's cached autocovariances), the sup-t band and the table."""
     lp = stored(session, lkey)
@@ -264,8 +266,10 @@ def on_lp_view(lkey, name, values, rule, slider, level, reference, choice, show,
 
 @callback(Output("lp-flip-graph", "figure"), Output("lp-compare", "rowData"),
           Output("lp-flip-notes", "children"), *VIEW_INPUTS, *EST_STATE,
-          State("session", "data"), prevent_initial_call=True, message=2)
-def on_lp_flips(lkey, name, values, rule, slider, level, reference, choice, ids, session):
+          State("session", "data"), State("tune-slider", "value"), prevent_initial_call=True,
+          message=2)
+def on_lp_flips(lkey, name, values, rule, _press, level, reference, choice, ids, session,
+                slider):
     """Where each horizon's conclusion changes along b (the current kernel), and where the
     response stops being significant under every estimator."""
     lp = stored(session, lkey)

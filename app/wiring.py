@@ -14,6 +14,7 @@ from dash.exceptions import PreventUpdate
 from . import views as V
 
 CALLBACKS: list = []
+CLIENTSIDE: list = []
 LOG = logging.getLogger("lagwise")
 
 #: Callbacks that may run for more than a second switch the progress poll on while they run
@@ -58,8 +59,15 @@ def guarded(fn, args, message):
     return run
 
 
+def clientside(code: str, *args, **kwargs) -> None:
+    """Record a clientside callback (JavaScript run in the page: no request to the server)."""
+    CLIENTSIDE.append((code, args, kwargs))
+
+
 def register(app) -> None:
     """Wire every recorded callback to `app` (the modules that record them are imported by
     whoever builds the app: app.main)."""
     for args, kwargs, fn in CALLBACKS:
         app.callback(*args, **kwargs)(fn)
+    for code, args, kwargs in CLIENTSIDE:
+        app.clientside_callback(code, *args, **kwargs)

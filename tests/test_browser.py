@@ -626,3 +626,25 @@ def test_a_file_near_the_limit_shows_progress_then_its_results(page: Page, live_
     before = len(polls)
     time.sleep(2.0)
     assert polls and len(polls) == before     # it polled while working, and has stopped
+
+
+def test_a_slider_press_is_one_request(page: Page, live_server):
+    """On a plain regression a key press on the slider (a value set by hand) sends one callback
+    request (the coefficient card's); the sensitivity chart's marker moves in the page."""
+    open_app(page, live_server)
+    expect(cells(page, "compare-table", "estimator").first).to_be_visible(timeout=60_000)
+    thumb = page.locator("#tune-slider [role=slider]")
+    thumb.focus()
+    page.keyboard.press("ArrowRight")                # the first press leaves the automatic rule
+    page.wait_for_timeout(3000)                      # (the chart redraws) and the poll stops
+    sent = []
+    page.on("request", lambda r: sent.append(json.loads(r.post_data or "{}").get("output", ""))
+            if "_dash-update-component" in r.url else None)
+    page.keyboard.press("ArrowRight")
+    value = int(thumb.get_attribute("aria-valuenow"))
+    expect(page.locator("#coef-caption")).to_contain_text(f"b = {value}", timeout=20_000)
+    page.wait_for_function(
+        "(v) => document.getElementById('sens-graph').querySelector('.js-plotly-plot')"
+        ".layout.shapes[0].x0 === v", arg=value)
+    page.wait_for_timeout(1000)
+    assert len(sent) == 1 and "coef-table.rowData" in sent[0], sent

@@ -107,7 +107,7 @@ def test_callbacks_through_the_store_and_the_exports():
                                                        "prewhiten")]
     vals = ["bartlett", [], ["on"], []]
     style, fig, text = FA.on_factor_alphas(fkey, "kernel", vals, "andrews", 10, "auto", 0.95,
-                                           "asset", ids, session)
+                                           "asset", ids, session, 10)
     assert style == {} and "Bartlett, Andrews (1991)" in fig.layout.title.text
     est = lagwise.estimator("kernel", kernel="bartlett", bandwidth="andrews")
     frame, caption, notes = FA.factor_table("fm-alpha-table", session, fkey, model, est, 0.95,

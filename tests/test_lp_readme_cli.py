@@ -134,7 +134,7 @@ def test_page_callbacks_show_the_engine_numbers(demo_lp):
     STORE.put(session, "lp-test", demo_lp)
     fig, rows, reading, assumes, _ = P.on_lp_view("lp-test", "kernel", [], "fixed", 3, 0.9,
                                                   "auto", "current", ["supt", "overlay"], [],
-                                                  session)
+                                                  session, 3)
     t = demo_lp.irf(lagwise.estimator("kernel", kernel="bartlett", bandwidth=3.0), 0.9)
     assert [r["std_error"] for r in rows] == pytest.approx(list(t["std_error"]), rel=1e-12)
     assert rows[0]["verdict"] == "rejected (sup-t too)" and rows[3]["verdict"] == "not rejected"
@@ -142,7 +142,7 @@ def test_page_callbacks_show_the_engine_numbers(demo_lp):
     assert len(fig.data) == 5 + 2 * 5               # band, sup-t, estimate, 5 overlays
     assert "autocorrelated" in assumes
     _, compare, notes = P.on_lp_flips("lp-test", "kernel", [], "fixed", 3, 0.9, "auto",
-                                      "current", [], session)
+                                      "current", [], session, 3)
     assert compare[0]["significant_at"] == "0-2" and compare[0]["stops_at"] == "3"
     assert {r["significant_at"] for r in compare[-2:]} == {"none"}
     assert "h = 0: b < 15" in str(notes)
