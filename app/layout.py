@@ -108,6 +108,11 @@ def export_menu(target: str, formats, copy: bool = False) -> html.Div:
     return html.Div(items, className="lw-export")
 
 
+#: Spinners of cards a slider press updates show only when an update takes longer than this
+#: (a spinner shown and hidden on every press costs the page a style and layout pass).
+LOADING_DELAY_MS = 300
+
+
 def graph(gid: str, height: int = 360):
     """A chart that reserves `height` pixels while computing and then takes the height of its
     figure (a comparison of many estimators or a chart with a J panel is taller)."""
@@ -116,7 +121,7 @@ def graph(gid: str, height: int = 360):
         id=gid, style={"minHeight": f"{height}px"}, figure=empty_figure("computing...", height),
         config={"displaylogo": False, "toImageButtonOptions": {
             "format": "png", "filename": f"lagwise_{gid}", "scale": 2}}),
-        type="dot", color="#0e6e64")
+        type="dot", color="#0e6e64", delay_show=LOADING_DELAY_MS)
 
 
 def grid(gid: str, columns: list[dict], height: str | None = None, **grid_options):
@@ -502,8 +507,9 @@ def main_area():
                        "hover an estimator for its notes. A different conclusion is not an "
                        "error of either estimator: it shows how much the answer depends on "
                        "the choice.", className="lw-help"),
+                # a slider press answers in well under the delay: no spinner toggled per press
                 dcc.Loading(grid("compare-table", views.COMPARE_COLUMNS),
-                            type="dot", color="#0e6e64")],
+                            type="dot", color="#0e6e64", delay_show=LOADING_DELAY_MS)],
                  export=export_menu("compare-table", TABLE_FORMATS, copy=True)),
         ], className="lw-results"),
         few_clusters_card(),
