@@ -26,8 +26,8 @@ from . import answer as A
 from . import figures as F
 from . import views as V
 from .factors import factor_fit
-from .derived import (comparison_for, current_curve, dataset_from_bytes, diagnostics_for,
-                      flip_for, is_gmm, make_estimator, no_model_message,
+from .derived import (comparison_for, current_curve, dataset_from_bytes, dataset_from_path,
+                      diagnostics_for, flip_for, is_gmm, make_estimator, no_model_message,
                       panel_reference_lines, rule_marks, stored, strength_for, sweep_for,
                       view_inference)
 from .layout import estimator_controls, rule_options
@@ -52,8 +52,7 @@ def on_upload(contents, _demo, _panel_demo, filename, session):
     try:
         if ctx.triggered_id in ("load-demo", "load-demo-panel"):
             panel = ctx.triggered_id == "load-demo-panel"
-            path = engine_demo(panel)
-            key, table = dataset_from_bytes(session, path.read_bytes(), path.name)
+            key, table = dataset_from_path(session, engine_demo(panel))
             what = "the panel demo" if panel else "the demo data"
             return key, V.ok_box(f"loaded {what} ({len(table.frame):,} rows, simulated)"), \
                 None, no_update

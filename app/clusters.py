@@ -20,7 +20,7 @@ from .._files import demo_file
 from ..engine.covariance.cluster import CORRECTION_TITLES, DF_TITLES
 from ..engine.studies.wild_bootstrap import WildBootstrapResult, prepare_bootstrap
 from . import views as V
-from .derived import dataset_from_bytes, stored
+from .derived import dataset_from_path, stored
 from .state import STORE, key_for
 from .studies import job_cache
 from .wiring import RUNNING, callback
@@ -77,9 +77,8 @@ def on_few_demo(n, session):
     """The few-cluster demo: a simulated panel of firms in 14 regions of very unequal size."""
     if not n:
         raise PreventUpdate
-    path = demo_file(FEW_DEMO)
     try:
-        key, table = dataset_from_bytes(session, path.read_bytes(), path.name)
+        key, table = dataset_from_path(session, demo_file(FEW_DEMO))
     except engine.LagwiseError as exc:
         return no_update, V.error_box(str(exc)), no_update, no_update
     return key, V.ok_box(f"loaded the few-cluster demo ({len(table.frame)} rows, simulated): "

@@ -34,6 +34,11 @@ def dataset_from_bytes(session: str, raw: bytes, name: str):
     return key, table
 
 
+def dataset_from_path(session: str, path):
+    """A file on the server (a bundled demo) read as this session's data: (key, table)."""
+    return dataset_from_bytes(session, path.read_bytes(), path.name)
+
+
 def dataset_from_table(session: str, table) -> str:
     """A Table made in Python (lagwise.show) as this session's data."""
     key = key_for("data", "table", id(table))

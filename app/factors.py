@@ -37,7 +37,7 @@ from ..engine.kinds import kind_of, model_line
 from ..engine.models.risk_premia import CORRECTIONS, risk_premia_of
 from . import views as V
 from .._files import demo_file
-from .derived import dataset_from_bytes, make_estimator, stored
+from .derived import dataset_from_path, make_estimator, stored
 from .exports import export_figure, view_script
 from .figures import ACCENT, FONT, GRID, INK, MUTED, PAPER, WARN, empty_figure
 from .layout import CHART_FORMATS, MAIN_EXTRAS, SIDEBAR_EXTRAS, TABLE_FORMATS, card, graph, grid
@@ -575,9 +575,8 @@ def on_factor_demo(n, session):
     """Load the simulated factor demo (the factor section then opens on its model)."""
     if not n:
         raise PreventUpdate
-    path = demo_file(DEMO)
     try:
-        key, table = dataset_from_bytes(session, path.read_bytes(), path.name)
+        key, table = dataset_from_path(session, demo_file(DEMO))
     except engine.LagwiseError as exc:
         return no_update, V.error_box(str(exc))
     return key, V.ok_box(f"loaded the factor demo ({len(table.frame)} months, simulated)")

@@ -24,7 +24,7 @@ from ..engine.models.lp_inference import (default_estimators, horizon_rule, irf_
                                           significant, stop_horizon)
 from ..engine.models.lp_inference import PerHorizon
 from . import views as V
-from .derived import dataset_from_bytes, make_estimator, stored
+from .derived import dataset_from_path, make_estimator, stored
 from .exports import export_figure
 from .figures import empty_figure
 from .projection_figures import flip_map_figure, irf_figure
@@ -62,9 +62,8 @@ def _whole(value, default):
           prevent_initial_call=True, message=1, running=RUNNING)
 def on_lp_demo(_n, session):
     """Load the simulated impulse-response demo and switch the mode on."""
-    path = demo_file(LP_DEMO)
     try:
-        key, table = dataset_from_bytes(session, path.read_bytes(), path.name)
+        key, table = dataset_from_path(session, demo_file(LP_DEMO))
     except engine.LagwiseError as exc:
         return no_update, V.error_box(str(exc)), no_update, no_update, no_update, no_update
     return (key, V.ok_box(f"loaded the impulse-response demo ({len(table.frame)} months, "
